@@ -1,0 +1,348 @@
+//! The combinators that build maps from maps: sequential composition,
+//! pairing, product, sum, scaling and transpose.
+
+use crate::combinators::{Add, Fst, Snd};
+use crate::error::Result;
+use crate::map::{Compose, Linear, Map, Reverse};
+use crate::space::{Scale, Space};
+
+/// Sequential composition in diagrammatic order: first `f`, then `g`.
+///
+/// Created by [`Compose::then`]. The backward pass is the chain rule,
+/// `R[f ; g](x, dz) = R[f](x, R[g](f(x), dz))`, run on the residuals kept by
+/// the forward pass, so nothing is evaluated twice.
+///
+/// ```
+/// use revdiff::{Compose, Exp, Map, Sin};
+/// let f = Sin.then(Exp); // x -> exp(sin x)
+/// let x = 0.3_f64;
+/// assert!((f.backward(&x, &1.0).unwrap() - x.sin().exp() * x.cos()).abs() < 1e-12);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Then<F, G> {
+    /// The map applied first.
+    pub first: F,
+    /// The map applied second.
+    pub second: G,
+}
+
+impl<F, G> Then<F, G> {
+    /// `f` then `g`.
+    pub fn new(first: F, second: G) -> Self {
+        Then { first, second }
+    }
+}
+
+/// The pairing `<f, g>`: one input, both outputs.
+///
+/// Created by [`Compose::pair`]. Its backward is the sum
+/// `R[<f, g>](x, (dy, dz)) = R[f](x, dy) + R[g](x, dz)`.
+///
+/// ```
+/// use revdiff::{Compose, Cos, Map, Sin};
+/// let f = Sin.pair(Cos);
+/// let x = 0.3_f64;
+/// assert_eq!(f.forward(&x).unwrap(), (x.sin(), x.cos()));
+/// let g = f.backward(&x, &(1.0, 1.0)).unwrap();
+/// assert!((g - (x.cos() - x.sin())).abs() < 1e-12);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Pair<F, G> {
+    /// Gives the first output.
+    pub left: F,
+    /// Gives the second output.
+    pub right: G,
+}
+
+impl<F, G> Pair<F, G> {
+    /// `<f, g>`.
+    pub fn new(left: F, right: G) -> Self {
+        Pair { left, right }
+    }
+}
+
+/// The product `f x g`, acting on pairs: `(a, c) -> (f(a), g(c))`.
+///
+/// Created by [`Compose::cross`].
+///
+/// ```
+/// use revdiff::{Compose, Exp, Map, Sin};
+/// let f = Sin.cross(Exp);
+/// let (da, dc) = f.backward(&(0.0_f64, 0.0_f64), &(2.0, 3.0)).unwrap();
+/// assert_eq!((da, dc), (2.0, 3.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Cross<F, G> {
+    /// Acts on the first component.
+    pub left: F,
+    /// Acts on the second component.
+    pub right: G,
+}
+
+impl<F, G> Cross<F, G> {
+    /// `f x g`.
+    pub fn new(left: F, right: G) -> Self {
+        Cross { left, right }
+    }
+}
+
+/// The sum of two maps with the same input and output, `x -> f(x) + g(x)`.
+///
+/// Created by [`Compose::plus`]. `R[f + g] = R[f] + R[g]`.
+///
+/// ```
+/// use revdiff::{Compose, Cos, Map, Sin};
+/// let f = Sin.plus(Cos);
+/// let x = 0.3_f64;
+/// assert!((f.forward(&x).unwrap() - (x.sin() + x.cos())).abs() < 1e-15);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Sum<F, G> {
+    /// The first summand.
+    pub left: F,
+    /// The second summand.
+    pub right: G,
+}
+
+impl<F, G> Sum<F, G> {
+    /// `f + g`.
+    pub fn new(left: F, right: G) -> Self {
+        Sum { left, right }
+    }
+}
+
+/// A map scaled by a fixed scalar, `x -> s f(x)`.
+///
+/// Created by [`Compose::scaled`].
+///
+/// ```
+/// use revdiff::{Compose, Map, Sin};
+/// let f = Sin.scaled(2.0);
+/// assert_eq!(f.backward(&0.0_f64, &1.0).unwrap(), 2.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Scaled<F, S> {
+    /// The map.
+    pub map: F,
+    /// The factor.
+    pub factor: S,
+}
+
+impl<F, S> Scaled<F, S> {
+    /// `s f`.
+    pub fn new(map: F, factor: S) -> Self {
+        Scaled { map, factor }
+    }
+}
+
+/// The transpose `B -> A` of a linear map `A -> B`.
+///
+/// Created by [`Linear::transpose_at`]; see there for an example. Its own
+/// reverse derivative is the original map.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Transpose<F, R, A> {
+    map: F,
+    rev: R,
+    at: A,
+}
+
+impl<F, R, A> Transpose<F, R, A> {
+    /// The transpose of `map`, whose reverse derivative is `rev`, with `at`
+    /// giving the input's shape.
+    pub fn new(map: F, rev: R, at: A) -> Self {
+        Transpose { map, rev, at }
+    }
+}
+
+impl<F, G> Compose for Then<F, G> {}
+impl<F, G> Compose for Pair<F, G> {}
+impl<F, G> Compose for Cross<F, G> {}
+impl<F, G> Compose for Sum<F, G> {}
+impl<F, S> Compose for Scaled<F, S> {}
+impl<F, R, A> Compose for Transpose<F, R, A> {}
+
+impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
+    type Output = G::Output;
+    type Residual = (F::Residual, G::Residual);
+    fn forward(&self, x: &A) -> Result<G::Output> {
+        self.second.forward(&self.first.forward(x)?)
+    }
+    fn forward_keep(&self, x: &A) -> Result<(G::Output, Self::Residual)> {
+        let (y, rf) = self.first.forward_keep(x)?;
+        let (z, rg) = self.second.forward_keep(&y)?;
+        Ok((z, (rf, rg)))
+    }
+    fn backward_from(&self, (rf, rg): &Self::Residual, dz: &G::Output) -> Result<A> {
+        let dy = self.second.backward_from(rg, dz)?;
+        self.first.backward_from(rf, &dy)
+    }
+}
+
+/// `R[f ; g] = <fst, <fst ; f, snd> ; R[g]> ; R[f]`.
+pub type ThenRev<F, FR, GR> = Then<Pair<Fst, Then<Pair<Then<Fst, F>, Snd>, GR>>, FR>;
+
+impl<A: Space, F: Reverse<A>, G: Reverse<F::Output>> Reverse<A> for Then<F, G> {
+    type Rev = ThenRev<F, F::Rev, G::Rev>;
+    fn rev(&self) -> Self::Rev {
+        Fst.pair(Fst.then(self.first.clone()).pair(Snd).then(self.second.rev()))
+            .then(self.first.rev())
+    }
+}
+
+impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
+    type Output = (F::Output, G::Output);
+    type Residual = (F::Residual, G::Residual);
+    fn forward(&self, x: &A) -> Result<Self::Output> {
+        Ok((self.left.forward(x)?, self.right.forward(x)?))
+    }
+    fn forward_keep(&self, x: &A) -> Result<(Self::Output, Self::Residual)> {
+        let (y, rf) = self.left.forward_keep(x)?;
+        let (z, rg) = self.right.forward_keep(x)?;
+        Ok(((y, z), (rf, rg)))
+    }
+    fn backward_from(&self, (rf, rg): &Self::Residual, (dy, dz): &Self::Output) -> Result<A> {
+        let mut dx = self.left.backward_from(rf, dy)?;
+        dx.try_add_assign(&self.right.backward_from(rg, dz)?)?;
+        Ok(dx)
+    }
+}
+
+/// `R[<f, g>] = <<fst, snd ; fst> ; R[f], <fst, snd ; snd> ; R[g]> ; add`.
+pub type PairRev<FR, GR> =
+    Then<Pair<Then<Pair<Fst, Then<Snd, Fst>>, FR>, Then<Pair<Fst, Then<Snd, Snd>>, GR>>, Add>;
+
+impl<A: Space, F: Reverse<A>, G: Reverse<A>> Reverse<A> for Pair<F, G> {
+    type Rev = PairRev<F::Rev, G::Rev>;
+    fn rev(&self) -> Self::Rev {
+        let left = Fst.pair(Snd.then(Fst)).then(self.left.rev());
+        let right = Fst.pair(Snd.then(Snd)).then(self.right.rev());
+        left.pair(right).then(Add)
+    }
+}
+
+impl<A: Space, C: Space, F: Map<A>, G: Map<C>> Map<(A, C)> for Cross<F, G> {
+    type Output = (F::Output, G::Output);
+    type Residual = (F::Residual, G::Residual);
+    fn forward(&self, (a, c): &(A, C)) -> Result<Self::Output> {
+        Ok((self.left.forward(a)?, self.right.forward(c)?))
+    }
+    fn forward_keep(&self, (a, c): &(A, C)) -> Result<(Self::Output, Self::Residual)> {
+        let (b, rf) = self.left.forward_keep(a)?;
+        let (d, rg) = self.right.forward_keep(c)?;
+        Ok(((b, d), (rf, rg)))
+    }
+    fn backward_from(&self, (rf, rg): &Self::Residual, (db, dd): &Self::Output) -> Result<(A, C)> {
+        Ok((
+            self.left.backward_from(rf, db)?,
+            self.right.backward_from(rg, dd)?,
+        ))
+    }
+}
+
+/// `R[f x g] = <<fst ; fst, snd ; fst> ; R[f], <fst ; snd, snd ; snd> ; R[g]>`.
+pub type CrossRev<FR, GR> = Pair<
+    Then<Pair<Then<Fst, Fst>, Then<Snd, Fst>>, FR>,
+    Then<Pair<Then<Fst, Snd>, Then<Snd, Snd>>, GR>,
+>;
+
+impl<A: Space, C: Space, F: Reverse<A>, G: Reverse<C>> Reverse<(A, C)> for Cross<F, G> {
+    type Rev = CrossRev<F::Rev, G::Rev>;
+    fn rev(&self) -> Self::Rev {
+        let left = Fst.then(Fst).pair(Snd.then(Fst)).then(self.left.rev());
+        let right = Fst.then(Snd).pair(Snd.then(Snd)).then(self.right.rev());
+        left.pair(right)
+    }
+}
+
+impl<A: Space, F: Map<A>, G: Map<A, Output = F::Output>> Map<A> for Sum<F, G> {
+    type Output = F::Output;
+    type Residual = (F::Residual, G::Residual);
+    fn forward(&self, x: &A) -> Result<F::Output> {
+        let mut y = self.left.forward(x)?;
+        y.try_add_assign(&self.right.forward(x)?)?;
+        Ok(y)
+    }
+    fn forward_keep(&self, x: &A) -> Result<(F::Output, Self::Residual)> {
+        let (mut y, rf) = self.left.forward_keep(x)?;
+        let (z, rg) = self.right.forward_keep(x)?;
+        y.try_add_assign(&z)?;
+        Ok((y, (rf, rg)))
+    }
+    fn backward_from(&self, (rf, rg): &Self::Residual, dy: &F::Output) -> Result<A> {
+        let mut dx = self.left.backward_from(rf, dy)?;
+        dx.try_add_assign(&self.right.backward_from(rg, dy)?)?;
+        Ok(dx)
+    }
+}
+
+impl<A: Space, F: Reverse<A>, G: Reverse<A, Output = F::Output>> Reverse<A> for Sum<F, G> {
+    type Rev = Sum<F::Rev, G::Rev>;
+    fn rev(&self) -> Self::Rev {
+        Sum::new(self.left.rev(), self.right.rev())
+    }
+}
+
+impl<A: Space, S: Copy, F: Map<A>> Map<A> for Scaled<F, S>
+where
+    F::Output: Scale<S>,
+{
+    type Output = F::Output;
+    type Residual = F::Residual;
+    fn forward(&self, x: &A) -> Result<F::Output> {
+        Ok(self.map.forward(x)?.scale(self.factor))
+    }
+    fn forward_keep(&self, x: &A) -> Result<(F::Output, F::Residual)> {
+        let (y, r) = self.map.forward_keep(x)?;
+        Ok((y.scale(self.factor), r))
+    }
+    fn backward_from(&self, r: &F::Residual, dy: &F::Output) -> Result<A> {
+        self.map.backward_from(r, &dy.scale(self.factor))
+    }
+}
+
+impl<A: Scale<S>, S: Copy, F: Reverse<A>> Reverse<A> for Scaled<F, S>
+where
+    F::Output: Scale<S>,
+    F::Rev: Clone,
+{
+    // R[s f](x, dy) = R[f](x, s dy) = s R[f](x, dy), the latter being a map.
+    type Rev = Scaled<F::Rev, S>;
+    fn rev(&self) -> Self::Rev {
+        Scaled::new(self.map.rev(), self.factor)
+    }
+}
+
+impl<A: Space, B: Space, F: Linear<A, Output = B, Rev = R>, R> Map<B> for Transpose<F, R, A>
+where
+    R: Reverse<(A, B), Output = A>,
+{
+    type Output = A;
+    type Residual = ();
+    fn forward_keep(&self, dy: &B) -> Result<(A, ())> {
+        Ok((self.rev.forward(&(self.at.clone(), dy.clone()))?, ()))
+    }
+    fn backward_from(&self, _: &(), dx: &A) -> Result<B> {
+        self.map.forward(dx)
+    }
+}
+
+impl<A: Space, B: Space, F: Linear<A, Output = B, Rev = R>, R> Reverse<B> for Transpose<F, R, A>
+where
+    R: Reverse<(A, B), Output = A>,
+{
+    type Rev = crate::combinators::Then<Snd, F>;
+    fn rev(&self) -> Self::Rev {
+        Then::new(Snd, self.map.clone())
+    }
+}
+
+impl<A: Space, B: Space, F: Linear<A, Output = B, Rev = R>, R> Linear<B> for Transpose<F, R, A> where
+    R: Reverse<(A, B), Output = A>
+{
+}
+
+impl<A: Space, F: Linear<A>, G: Linear<F::Output>> Linear<A> for Then<F, G> {}
+impl<A: Space, F: Linear<A>, G: Linear<A>> Linear<A> for Pair<F, G> {}
+impl<A: Space, C: Space, F: Linear<A>, G: Linear<C>> Linear<(A, C)> for Cross<F, G> {}
+impl<A: Space, F: Linear<A>, G: Linear<A, Output = F::Output>> Linear<A> for Sum<F, G> {}
+impl<A: Scale<S>, S: Copy, F: Linear<A>> Linear<A> for Scaled<F, S> where F::Output: Scale<S> {}

@@ -1,0 +1,343 @@
+//! The structural maps: identity, projections, copy, addition, the map to
+//! `()`, zero, constants and scaling. Their reverse derivatives are built from
+//! structural maps only, so every order of reverse derivative stays here.
+
+use crate::combinators::{Pair, Then};
+use crate::error::Result;
+use crate::map::{Compose, Linear, Map, Reverse};
+use crate::space::{Scale, Space};
+
+macro_rules! compose_and_linear {
+    ($($t:ident),*) => {$( impl Compose for $t {} )*};
+}
+
+/// The identity map `x -> x`. Created by [`id`].
+///
+/// ```
+/// use revdiff::{id, Map};
+/// assert_eq!(id().backward(&2.0, &3.0).unwrap(), 3.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Id;
+
+/// The identity map.
+pub fn id() -> Id {
+    Id
+}
+
+/// The first projection `(a, b) -> a`. Created by [`fst`]; its backward puts
+/// a zero in the second slot.
+///
+/// ```
+/// use revdiff::{fst, Map};
+/// assert_eq!(fst().backward(&(1.0, 2.0), &5.0).unwrap(), (5.0, 0.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Fst;
+
+/// The first projection.
+pub fn fst() -> Fst {
+    Fst
+}
+
+/// The second projection `(a, b) -> b`. Created by [`snd`]; its backward
+/// puts a zero in the first slot.
+///
+/// ```
+/// use revdiff::{snd, Map};
+/// assert_eq!(snd().backward(&(1.0, 2.0), &5.0).unwrap(), (0.0, 5.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Snd;
+
+/// The second projection.
+pub fn snd() -> Snd {
+    Snd
+}
+
+/// The diagonal copy `x -> (x, x)`. Created by [`duplicate`]; its backward
+/// adds the two changes.
+///
+/// ```
+/// use revdiff::{duplicate, Map};
+/// assert_eq!(duplicate().backward(&1.0, &(2.0, 3.0)).unwrap(), 5.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Duplicate;
+
+/// The diagonal copy.
+pub fn duplicate() -> Duplicate {
+    Duplicate
+}
+
+/// The addition of a space, `(a, b) -> a + b`, on any [`Space`]. Created by
+/// [`add`]; its backward copies the change to both slots.
+///
+/// ```
+/// use revdiff::{add, Map};
+/// assert_eq!(add().forward(&(1.0, 2.0)).unwrap(), 3.0);
+/// assert_eq!(add().backward(&(1.0, 2.0), &4.0).unwrap(), (4.0, 4.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Add;
+
+/// The addition of a space.
+pub fn add() -> Add {
+    Add
+}
+
+/// The map to the terminal space, `x -> ()`. Created by [`discard`].
+///
+/// ```
+/// use revdiff::{discard, Map};
+/// assert_eq!(discard().backward(&7.0, &()).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Discard;
+
+/// The map to `()`.
+pub fn discard() -> Discard {
+    Discard
+}
+
+/// The zero map `x -> 0`, the zero shaped like its input. Created by
+/// [`zero_map`].
+///
+/// ```
+/// use revdiff::{zero_map, Map};
+/// use ndarray::array;
+/// assert_eq!(zero_map().forward(&array![1.0, 2.0]).unwrap(), array![0.0, 0.0]);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct ZeroMap;
+
+/// The zero map.
+pub fn zero_map() -> ZeroMap {
+    ZeroMap
+}
+
+/// The constant map `x -> c`. Created by [`constant`].
+///
+/// ```
+/// use revdiff::{constant, Map};
+/// let c = constant(4.0_f64);
+/// assert_eq!(c.forward(&1.0_f64).unwrap(), 4.0);
+/// assert_eq!(c.backward(&1.0_f64, &9.0).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Constant<B>(pub B);
+
+/// The constant map with value `c`.
+pub fn constant<B>(c: B) -> Constant<B> {
+    Constant(c)
+}
+
+/// Scaling by a fixed scalar, `x -> s x`. Created by [`scaling`].
+///
+/// ```
+/// use revdiff::{scaling, Map};
+/// assert_eq!(scaling(3.0).backward(&1.0, &2.0).unwrap(), 6.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Scaling<S>(pub S);
+
+/// Scaling by `s`.
+pub fn scaling<S>(s: S) -> Scaling<S> {
+    Scaling(s)
+}
+
+compose_and_linear!(Id, Fst, Snd, Duplicate, Add, Discard, ZeroMap);
+impl<B> Compose for Constant<B> {}
+impl<S> Compose for Scaling<S> {}
+
+impl<A: Space> Map<A> for Id {
+    type Output = A;
+    type Residual = ();
+    fn forward(&self, x: &A) -> Result<A> {
+        Ok(x.clone())
+    }
+    fn forward_keep(&self, x: &A) -> Result<(A, ())> {
+        Ok((x.clone(), ()))
+    }
+    fn backward_from(&self, _: &(), dy: &A) -> Result<A> {
+        Ok(dy.clone())
+    }
+}
+
+impl<A: Space> Reverse<A> for Id {
+    type Rev = Snd;
+    fn rev(&self) -> Snd {
+        Snd
+    }
+}
+
+impl<A: Space, B: Space> Map<(A, B)> for Fst {
+    type Output = A;
+    type Residual = B;
+    fn forward(&self, x: &(A, B)) -> Result<A> {
+        Ok(x.0.clone())
+    }
+    fn forward_keep(&self, x: &(A, B)) -> Result<(A, B)> {
+        Ok((x.0.clone(), x.1.zero_like()))
+    }
+    fn backward_from(&self, zero_b: &B, da: &A) -> Result<(A, B)> {
+        Ok((da.clone(), zero_b.clone()))
+    }
+}
+
+impl<A: Space, B: Space> Reverse<(A, B)> for Fst {
+    // ((a, b), da) -> (da, 0_b)
+    type Rev = Pair<Snd, Then<Then<Fst, Snd>, ZeroMap>>;
+    fn rev(&self) -> Self::Rev {
+        Snd.pair(Fst.then(Snd).then(ZeroMap))
+    }
+}
+
+impl<A: Space, B: Space> Map<(A, B)> for Snd {
+    type Output = B;
+    type Residual = A;
+    fn forward(&self, x: &(A, B)) -> Result<B> {
+        Ok(x.1.clone())
+    }
+    fn forward_keep(&self, x: &(A, B)) -> Result<(B, A)> {
+        Ok((x.1.clone(), x.0.zero_like()))
+    }
+    fn backward_from(&self, zero_a: &A, db: &B) -> Result<(A, B)> {
+        Ok((zero_a.clone(), db.clone()))
+    }
+}
+
+impl<A: Space, B: Space> Reverse<(A, B)> for Snd {
+    // ((a, b), db) -> (0_a, db)
+    type Rev = Pair<Then<Then<Fst, Fst>, ZeroMap>, Snd>;
+    fn rev(&self) -> Self::Rev {
+        Fst.then(Fst).then(ZeroMap).pair(Snd)
+    }
+}
+
+impl<A: Space> Map<A> for Duplicate {
+    type Output = (A, A);
+    type Residual = ();
+    fn forward_keep(&self, x: &A) -> Result<((A, A), ())> {
+        Ok(((x.clone(), x.clone()), ()))
+    }
+    fn backward_from(&self, _: &(), dy: &(A, A)) -> Result<A> {
+        dy.0.try_add(&dy.1)
+    }
+}
+
+impl<A: Space> Reverse<A> for Duplicate {
+    type Rev = Then<Snd, Add>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Add)
+    }
+}
+
+impl<A: Space> Map<(A, A)> for Add {
+    type Output = A;
+    type Residual = ();
+    fn forward_keep(&self, x: &(A, A)) -> Result<(A, ())> {
+        Ok((x.0.try_add(&x.1)?, ()))
+    }
+    fn backward_from(&self, _: &(), dy: &A) -> Result<(A, A)> {
+        Ok((dy.clone(), dy.clone()))
+    }
+}
+
+impl<A: Space> Reverse<(A, A)> for Add {
+    type Rev = Then<Snd, Duplicate>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Duplicate)
+    }
+}
+
+impl<A: Space> Map<A> for Discard {
+    type Output = ();
+    type Residual = A;
+    fn forward(&self, _: &A) -> Result<()> {
+        Ok(())
+    }
+    fn forward_keep(&self, x: &A) -> Result<((), A)> {
+        Ok(((), x.zero_like()))
+    }
+    fn backward_from(&self, zero: &A, _: &()) -> Result<A> {
+        Ok(zero.clone())
+    }
+}
+
+impl<A: Space> Reverse<A> for Discard {
+    type Rev = Then<Fst, ZeroMap>;
+    fn rev(&self) -> Self::Rev {
+        Fst.then(ZeroMap)
+    }
+}
+
+impl<A: Space> Map<A> for ZeroMap {
+    type Output = A;
+    type Residual = A;
+    fn forward(&self, x: &A) -> Result<A> {
+        Ok(x.zero_like())
+    }
+    fn forward_keep(&self, x: &A) -> Result<(A, A)> {
+        let zero = x.zero_like();
+        Ok((zero.clone(), zero))
+    }
+    fn backward_from(&self, zero: &A, _: &A) -> Result<A> {
+        Ok(zero.clone())
+    }
+}
+
+impl<A: Space> Reverse<A> for ZeroMap {
+    type Rev = Then<Fst, ZeroMap>;
+    fn rev(&self) -> Self::Rev {
+        Fst.then(ZeroMap)
+    }
+}
+
+impl<A: Space, B: Space> Map<A> for Constant<B> {
+    type Output = B;
+    type Residual = A;
+    fn forward(&self, _: &A) -> Result<B> {
+        Ok(self.0.clone())
+    }
+    fn forward_keep(&self, x: &A) -> Result<(B, A)> {
+        Ok((self.0.clone(), x.zero_like()))
+    }
+    fn backward_from(&self, zero: &A, _: &B) -> Result<A> {
+        Ok(zero.clone())
+    }
+}
+
+impl<A: Space, B: Space> Reverse<A> for Constant<B> {
+    type Rev = Then<Fst, ZeroMap>;
+    fn rev(&self) -> Self::Rev {
+        Fst.then(ZeroMap)
+    }
+}
+
+impl<S: Copy, A: Scale<S>> Map<A> for Scaling<S> {
+    type Output = A;
+    type Residual = ();
+    fn forward_keep(&self, x: &A) -> Result<(A, ())> {
+        Ok((x.scale(self.0), ()))
+    }
+    fn backward_from(&self, _: &(), dy: &A) -> Result<A> {
+        Ok(dy.scale(self.0))
+    }
+}
+
+impl<S: Copy, A: Scale<S>> Reverse<A> for Scaling<S> {
+    type Rev = Then<Snd, Scaling<S>>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(*self)
+    }
+}
+
+impl<A: Space> Linear<A> for Id {}
+impl<A: Space, B: Space> Linear<(A, B)> for Fst {}
+impl<A: Space, B: Space> Linear<(A, B)> for Snd {}
+impl<A: Space> Linear<A> for Duplicate {}
+impl<A: Space> Linear<(A, A)> for Add {}
+impl<A: Space> Linear<A> for Discard {}
+impl<A: Space> Linear<A> for ZeroMap {}
+impl<S: Copy, A: Scale<S>> Linear<A> for Scaling<S> {}

@@ -1,0 +1,159 @@
+//! Quantities read off the reverse derivative and the reverse derivative of
+//! the reverse derivative: forward derivatives, Hessian-vector products and
+//! full Jacobians.
+
+use crate::error::{Error, Result};
+use crate::map::{Map, Reverse};
+use crate::space::{Euclidean, Real, Space};
+use ndarray::Array2;
+
+/// The second reverse derivative `R[R[f]]: ((A, B), A) -> (A, B)`.
+///
+/// ```
+/// use revdiff::{second_reverse, Map, Sin};
+/// // R[R[sin]](((x, dy), u)) = (-sin(x) dy u, cos(x) u)
+/// let rr = second_reverse(&Sin);
+/// let (dx, ddy) = rr.forward(&((0.5_f64, 2.0), 3.0)).unwrap();
+/// assert!((dx + 0.5_f64.sin() * 6.0).abs() < 1e-12);
+/// assert!((ddy - 0.5_f64.cos() * 3.0).abs() < 1e-12);
+/// ```
+pub fn second_reverse<A: Space, F: Reverse<A>>(f: &F) -> <F::Rev as Reverse<(A, F::Output)>>::Rev {
+    f.rev().rev()
+}
+
+/// The forward (directional) derivative `D[f](x, v)`, the Jacobian of `f` at
+/// `x` applied to `v`, recovered exactly from the second reverse derivative:
+/// it is the output-change component of `R[R[f]]((x, 0), v)`.
+///
+/// ```
+/// use revdiff::{forward_derivative, Compose, Exp, Sin};
+/// let f = Sin.then(Exp);
+/// let x = 0.4_f64;
+/// let d = forward_derivative(&f, &x, &2.0).unwrap();
+/// assert!((d - x.sin().exp() * x.cos() * 2.0).abs() < 1e-12);
+/// ```
+pub fn forward_derivative<A: Space, F: Reverse<A>>(f: &F, x: &A, v: &A) -> Result<F::Output> {
+    let zero = f.forward(x)?.zero_like();
+    let (_, dy) = second_reverse(f).forward(&((x.clone(), zero), v.clone()))?;
+    Ok(dy)
+}
+
+/// The Hessian-vector product `H(x) v` of a scalar-valued map, the first
+/// component of `R[R[f]]((x, 1), v)`; exact, with no finite differences.
+///
+/// ```
+/// use revdiff::{hessian_vector, Compose, Mul, Map, Pair, fst, snd};
+/// // f(a, b) = a b has Hessian [[0, 1], [1, 0]].
+/// let f = Mul;
+/// let hv = hessian_vector(&f, &(2.0_f64, 3.0), &(1.0, 0.0)).unwrap();
+/// assert_eq!(hv, (0.0, 1.0));
+/// ```
+pub fn hessian_vector<A, F, R>(f: &F, x: &A, v: &A) -> Result<A>
+where
+    A: Space,
+    R: Real + Space,
+    F: Reverse<A, Output = R>,
+{
+    let (hv, _) = second_reverse(f).forward(&((x.clone(), R::one()), v.clone()))?;
+    Ok(hv)
+}
+
+/// The basis vector `e_i` shaped like `like`.
+fn basis<R: Real, S: Euclidean<R>>(like: &S, i: usize) -> Result<S> {
+    let mut coords = vec![R::zero(); like.dimension()];
+    coords[i] = R::one();
+    like.from_coordinates_like(&coords)
+}
+
+/// The Jacobian of `f` at `x` as an `m x n` matrix (`m` output coordinates,
+/// `n` input coordinates, in [`Euclidean`] coordinate order), by one forward
+/// pass and `m` backward passes on basis vectors. Needs only [`Map`].
+///
+/// ```
+/// use revdiff::{jacobian_by_backward, Mul};
+/// use ndarray::array;
+/// let j = jacobian_by_backward(&Mul, &(2.0_f64, 3.0)).unwrap();
+/// assert_eq!(j, array![[3.0, 2.0]]);
+/// ```
+pub fn jacobian_by_backward<R, A, F>(f: &F, x: &A) -> Result<Array2<R>>
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Map<A>,
+    F::Output: Euclidean<R>,
+{
+    let (y, residual) = f.forward_keep(x)?;
+    let (m, n) = (y.dimension(), x.dimension());
+    let mut j = Array2::zeros((m, n));
+    for i in 0..m {
+        let row = f.backward_from(&residual, &basis(&y, i)?)?.coordinates();
+        check_len(n, row.len())?;
+        j.row_mut(i).assign(&ndarray::ArrayView1::from(&row[..]));
+    }
+    Ok(j)
+}
+
+/// The Jacobian of `f` at `x` as an `m x n` matrix, by `n` forward
+/// derivatives on basis vectors, each from the second reverse derivative.
+///
+/// ```
+/// use revdiff::{jacobian_by_forward, Mul};
+/// use ndarray::array;
+/// let j = jacobian_by_forward(&Mul, &(2.0_f64, 3.0)).unwrap();
+/// assert_eq!(j, array![[3.0, 2.0]]);
+/// ```
+pub fn jacobian_by_forward<R, A, F>(f: &F, x: &A) -> Result<Array2<R>>
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Reverse<A>,
+    F::Output: Euclidean<R>,
+{
+    let zero = f.forward(x)?.zero_like();
+    let rr = second_reverse(f);
+    let (m, n) = (zero.dimension(), x.dimension());
+    let mut j = Array2::zeros((m, n));
+    for k in 0..n {
+        let (_, col) = rr.forward(&((x.clone(), zero.clone()), basis(x, k)?))?;
+        let col = col.coordinates();
+        check_len(m, col.len())?;
+        j.column_mut(k).assign(&ndarray::ArrayView1::from(&col[..]));
+    }
+    Ok(j)
+}
+
+/// The Jacobian of `f` at `x`, by backward passes when the output has no
+/// more coordinates than the input and by forward derivatives otherwise.
+///
+/// ```
+/// use revdiff::{jacobian, Compose, Sin, Cos};
+/// let j = jacobian(&Sin.pair(Cos), &0.0_f64).unwrap();
+/// assert_eq!(j.shape(), &[2, 1]);
+/// assert_eq!(j[[0, 0]], 1.0);
+/// ```
+pub fn jacobian<R, A, F>(f: &F, x: &A) -> Result<Array2<R>>
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Reverse<A>,
+    F::Output: Euclidean<R>,
+{
+    let m = f.forward(x)?.dimension();
+    if m <= x.dimension() {
+        jacobian_by_backward(f, x)
+    } else {
+        jacobian_by_forward(f, x)
+    }
+}
+
+fn check_len(expected: usize, found: usize) -> Result<()> {
+    if expected == found {
+        Ok(())
+    } else {
+        Err(Error::Length {
+            operation: "assembling a Jacobian",
+            expected,
+            found,
+        })
+    }
+}

@@ -1,0 +1,203 @@
+//! The core traits: [`Map`] (a map with a fast reverse derivative),
+//! [`Reverse`] (a map whose reverse derivative is again a map), [`Linear`]
+//! (linear maps, which have transposes) and [`Compose`] (the combinator
+//! methods).
+
+use crate::combinators::{Cross, Pair, Scaled, Sum, Then, Transpose};
+use crate::error::Result;
+use crate::space::Space;
+
+/// A map `A -> Self::Output` that carries its reverse derivative.
+///
+/// The reverse derivative `R[f]: A x B -> A` sends a point `x` and a change
+/// `dy` of the output to the change of the input, the transposed Jacobian of
+/// `f` at `x` applied to `dy`. It is computed in two passes:
+/// [`forward_keep`](Map::forward_keep) evaluates the map and keeps a residual
+/// (whatever the backward pass needs: the input, the output, nothing), and
+/// [`backward_from`](Map::backward_from) turns the residual and an output
+/// change into an input change. [`backward`](Map::backward) does both.
+///
+/// Composites keep the residuals of their parts, so one forward pass and one
+/// backward pass cost the same order of work as evaluating the map, however
+/// deeply the combinators are nested.
+///
+/// The input space is a type parameter rather than an associated type, so one
+/// primitive (say [`Exp`](crate::Exp)) acts on `f64`, `f32` and arrays of
+/// any dimension alike.
+///
+/// # Example
+///
+/// A hand-written primitive, `x -> x^3`, composed with a catalogue piece:
+///
+/// ```
+/// use revdiff::{Compose, Map, Result, Sin};
+///
+/// #[derive(Clone, Debug)]
+/// struct Cube;
+///
+/// impl Compose for Cube {}
+///
+/// impl Map<f64> for Cube {
+///     type Output = f64;
+///     type Residual = f64; // the input, for the slope 3x^2
+///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///         Ok((x * x * x, *x))
+///     }
+///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///         Ok(3.0 * x * x * dy)
+///     }
+/// }
+///
+/// let model = Cube.then(Sin); // x -> sin(x^3)
+/// let x = 0.7_f64;
+/// let grad = model.backward(&x, &1.0).unwrap();
+/// assert!((grad - (x * x * x).cos() * 3.0 * x * x).abs() < 1e-12);
+/// ```
+pub trait Map<A: Space>: Compose {
+    /// The output space.
+    type Output: Space;
+    /// What the forward pass keeps for the backward pass.
+    type Residual;
+
+    /// Evaluates the map.
+    fn forward(&self, x: &A) -> Result<Self::Output> {
+        Ok(self.forward_keep(x)?.0)
+    }
+
+    /// Evaluates the map and keeps what the backward pass needs.
+    fn forward_keep(&self, x: &A) -> Result<(Self::Output, Self::Residual)>;
+
+    /// The input change for output change `dy`, at the point the residual was
+    /// kept for. One residual serves any number of output changes.
+    fn backward_from(&self, residual: &Self::Residual, dy: &Self::Output) -> Result<A>;
+
+    /// The reverse derivative `R[f](x, dy)`.
+    fn backward(&self, x: &A, dy: &Self::Output) -> Result<A> {
+        let (_, residual) = self.forward_keep(x)?;
+        self.backward_from(&residual, dy)
+    }
+}
+
+/// A map whose reverse derivative is itself a map of the library, from
+/// `A x B` to `A`, and so can be differentiated again, to any order.
+///
+/// The rule: [`rev`](Reverse::rev)`().forward(&(x, dy))` equals
+/// `backward(&x, &dy)` to rounding. Its own reverse derivative gives the
+/// second-order quantities: the forward derivative
+/// ([`forward_derivative`](crate::forward_derivative)), Hessian-vector products
+/// ([`hessian_vector`](crate::hessian_vector)) and the second-order laws.
+///
+/// # Example
+///
+/// The user primitive `x -> x^3` again, its reverse derivative assembled from
+/// catalogue pieces: `R[cube](x, dy) = 3 x^2 dy`.
+///
+/// ```
+/// use revdiff::{fst, snd, Compose, Fst, Map, Mul, Pair, Powi, Result, Reverse, Snd, Then};
+///
+/// #[derive(Clone, Debug)]
+/// struct Cube;
+/// impl Compose for Cube {}
+/// impl Map<f64> for Cube {
+///     type Output = f64;
+///     type Residual = f64;
+///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///         Ok((x * x * x, *x))
+///     }
+///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///         Ok(3.0 * x * x * dy)
+///     }
+/// }
+/// impl Reverse<f64> for Cube {
+///     type Rev = Then<Pair<Then<Fst, Powi<f64>>, Snd>, Mul>;
+///     fn rev(&self) -> Self::Rev {
+///         fst().then(Powi::scaled(3.0, 2)).pair(snd()).then(Mul)
+///     }
+/// }
+///
+/// let x = 1.5;
+/// assert_eq!(Cube.rev().forward(&(x, 2.0)).unwrap(), Cube.backward(&x, &2.0).unwrap());
+/// // The second derivative 6x, read off the second reverse derivative.
+/// let hv = revdiff::hessian_vector(&Cube, &x, &1.0).unwrap();
+/// assert!((hv - 6.0 * x).abs() < 1e-12);
+/// ```
+pub trait Reverse<A: Space>: Map<A> + Clone {
+    /// The reverse derivative, as a map `(A, B) -> A`.
+    type Rev: Reverse<(A, Self::Output), Output = A>;
+
+    /// Builds the reverse derivative.
+    fn rev(&self) -> Self::Rev;
+}
+
+/// A linear map: its reverse derivative does not depend on the point, so it
+/// has a transpose `B -> A`.
+///
+/// Implement it only for maps that really are linear; the transpose's own
+/// reverse derivative is the map itself, which is right only then.
+///
+/// ```
+/// use revdiff::{Linear, Map, MatrixTranspose};
+/// use ndarray::array;
+///
+/// let a = array![[1.0, 2.0, 3.0]];
+/// // The transpose of taking the matrix transpose is taking the transpose.
+/// let t = MatrixTranspose.transpose_at(array![[0.0], [0.0], [0.0]]);
+/// assert_eq!(t.forward(&a).unwrap(), array![[1.0], [2.0], [3.0]]);
+/// ```
+pub trait Linear<A: Space>: Reverse<A> {
+    /// The transpose `dy -> R[f](x, dy)`. For a linear map the point `x` only
+    /// supplies shapes; any value of the input's shape will do.
+    fn transpose_at(&self, x: A) -> Transpose<Self, Self::Rev, A>
+    where
+        Self: Sized,
+    {
+        Transpose::new(self.clone(), self.rev(), x)
+    }
+}
+
+/// The combinator methods, shared by every map.
+///
+/// It has no required items: a hand-written map opts in with
+/// `impl Compose for MyMap {}`. The methods do not depend on the input
+/// space, which is why they live here rather than on [`Map`].
+pub trait Compose {
+    /// First `self`, then `g`: the map `x -> g(self(x))`. See [`Then`].
+    fn then<G>(self, g: G) -> Then<Self, G>
+    where
+        Self: Sized,
+    {
+        Then::new(self, g)
+    }
+
+    /// The pairing `<self, g>`: `x -> (self(x), g(x))`. See [`Pair`].
+    fn pair<G>(self, g: G) -> Pair<Self, G>
+    where
+        Self: Sized,
+    {
+        Pair::new(self, g)
+    }
+
+    /// The product `self x g`: `(a, c) -> (self(a), g(c))`. See [`Cross`].
+    fn cross<G>(self, g: G) -> Cross<Self, G>
+    where
+        Self: Sized,
+    {
+        Cross::new(self, g)
+    }
+
+    /// The sum of maps `self + g`: `x -> self(x) + g(x)`. See [`Sum`].
+    fn plus<G>(self, g: G) -> Sum<Self, G>
+    where
+        Self: Sized,
+    {
+        Sum::new(self, g)
+    }
+
+    /// The scaled map `s * self`: `x -> s * self(x)`. See [`Scaled`].
+    fn scaled<S>(self, s: S) -> Scaled<Self, S>
+    where
+        Self: Sized,
+    {
+        Scaled::new(self, s)
+    }
+}

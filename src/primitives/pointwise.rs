@@ -1,0 +1,615 @@
+//! Elementwise primitives over real scalars and arrays.
+//!
+//! Every map here acts on any [`Pointwise`] space: `f32`, `f64`, `[T; N]`
+//! and ndarray arrays of any dimension, one element at a time. Binary maps
+//! take a pair of values of the same shape; different shapes are an
+//! [`Error::ShapeMismatch`](crate::Error::ShapeMismatch), never a broadcast.
+//!
+//! Outside a map's domain the value follows IEEE arithmetic (`Ln` of a
+//! negative number is NaN); the law checkers and the training loop report
+//! such values as errors. At non-differentiable points the derivative is
+//! fixed by convention and documented on each map.
+//!
+//! Each reverse derivative is `(x, dy) -> slope(x) * dy` with `slope` itself
+//! a primitive of this module, so reverse derivatives of every order exist.
+
+use crate::combinators::{Fst, Id, Pair, Scaling, Snd, Then, ZeroMap};
+use crate::error::Result;
+use crate::map::{Compose, Linear, Map, Reverse};
+use crate::space::{Pointwise, Real};
+
+impl Compose for Exp {}
+impl Compose for Ln {}
+impl Compose for Sqrt {}
+impl Compose for Sin {}
+impl Compose for Cos {}
+impl Compose for Tanh {}
+impl Compose for SechSquared {}
+impl Compose for Sigmoid {}
+impl Compose for Softplus {}
+impl Compose for Relu {}
+impl Compose for Heaviside {}
+impl Compose for Abs {}
+impl Compose for Signum {}
+impl<T> Compose for Powi<T> {}
+impl<T> Compose for Powf<T> {}
+
+/// A scalar function with its derivative, applied element by element.
+trait Elementwise<T: Real> {
+    /// Name used in error messages.
+    const NAME: &'static str;
+    /// The function's value.
+    fn value(&self, x: T) -> T;
+    /// Its derivative.
+    fn slope(&self, x: T) -> T;
+}
+
+fn real<T: Real>(v: f64) -> T {
+    T::from(v).expect("every real type holds small constants")
+}
+
+/// `(x, dy) -> slope(x) * dy`, where `S` is the map computing `slope`.
+pub type SlopeTimes<S> = Then<Pair<Then<Fst, S>, Snd>, Mul>;
+
+macro_rules! elementwise {
+    ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
+        impl<$($gen)*> Map<E> for $ty {
+            type Output = E;
+            type Residual = E;
+            fn forward(&self, x: &E) -> Result<E> {
+                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
+            }
+            fn forward_keep(&self, x: &E) -> Result<(E, E)> {
+                Ok((self.forward(x)?, x.clone()))
+            }
+            fn backward_from(&self, x: &E, dy: &E) -> Result<E> {
+                x.zip_elems(dy, <Self as Elementwise<E::Elem>>::NAME, |v, d| {
+                    Elementwise::<E::Elem>::slope(self, v) * d
+                })
+            }
+        }
+
+        impl<$($gen)*> Reverse<E> for $ty {
+            type Rev = SlopeTimes<$slope_ty>;
+            fn rev(&self) -> Self::Rev {
+                let $s = self;
+                Fst.then($slope).pair(Snd).then(Mul)
+            }
+        }
+    };
+}
+
+/// `x -> e^x`. Reverse derivative: `e^x dy`.
+///
+/// ```
+/// use revdiff::{Exp, Map};
+/// assert_eq!(Exp.backward(&0.0_f64, &2.0).unwrap(), 2.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Exp;
+
+impl<T: Real> Elementwise<T> for Exp {
+    const NAME: &'static str = "exp";
+    fn value(&self, x: T) -> T {
+        x.exp()
+    }
+    fn slope(&self, x: T) -> T {
+        x.exp()
+    }
+}
+elementwise!([E: Pointwise] Exp, slope map Exp = |_s| Exp);
+
+/// The natural logarithm, domain `x > 0`. Reverse derivative: `dy / x`.
+///
+/// ```
+/// use revdiff::{Ln, Map};
+/// assert_eq!(Ln.backward(&4.0_f64, &2.0).unwrap(), 0.5);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Ln;
+
+impl<T: Real> Elementwise<T> for Ln {
+    const NAME: &'static str = "ln";
+    fn value(&self, x: T) -> T {
+        x.ln()
+    }
+    fn slope(&self, x: T) -> T {
+        x.recip()
+    }
+}
+elementwise!([E: Pointwise] Ln, slope map Powi<E::Elem> = |_s| Powi::new(-1));
+
+/// The square root, domain `x >= 0`, differentiable for `x > 0`. Reverse
+/// derivative: `dy / (2 sqrt x)` (infinite at 0).
+///
+/// ```
+/// use revdiff::{Map, Sqrt};
+/// assert_eq!(Sqrt.backward(&4.0_f64, &1.0).unwrap(), 0.25);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Sqrt;
+
+impl<T: Real> Elementwise<T> for Sqrt {
+    const NAME: &'static str = "sqrt";
+    fn value(&self, x: T) -> T {
+        x.sqrt()
+    }
+    fn slope(&self, x: T) -> T {
+        real::<T>(0.5) / x.sqrt()
+    }
+}
+elementwise!([E: Pointwise] Sqrt, slope map Powf<E::Elem> = |_s| Powf::scaled(real(0.5), real(-0.5)));
+
+/// A scaled integer power `x -> c x^n` (with `c = 1` from [`Powi::new`]).
+///
+/// Reverse derivative: `c n x^(n-1) dy`, whose slope is again a `Powi`. A
+/// zero coefficient gives the zero map, also where `x^n` would be infinite,
+/// so that the derivative of a constant is zero everywhere.
+///
+/// ```
+/// use revdiff::{Map, Powi};
+/// assert_eq!(Powi::new(3).forward(&2.0_f64).unwrap(), 8.0);
+/// assert_eq!(Powi::new(3).backward(&2.0_f64, &1.0).unwrap(), 12.0);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Powi<T> {
+    /// The coefficient `c`.
+    pub coef: T,
+    /// The exponent `n`.
+    pub n: i32,
+}
+
+impl<T: Real> Powi<T> {
+    /// `x -> x^n`.
+    pub fn new(n: i32) -> Self {
+        Powi { coef: T::one(), n }
+    }
+    /// `x -> c x^n`.
+    pub fn scaled(coef: T, n: i32) -> Self {
+        Powi { coef, n }
+    }
+}
+
+impl<T: Real> Elementwise<T> for Powi<T> {
+    const NAME: &'static str = "integer power";
+    fn value(&self, x: T) -> T {
+        if self.coef == T::zero() {
+            T::zero()
+        } else {
+            self.coef * x.powi(self.n)
+        }
+    }
+    fn slope(&self, x: T) -> T {
+        self.rev_slope().value(x)
+    }
+}
+
+impl<T: Real> Powi<T> {
+    fn rev_slope(&self) -> Powi<T> {
+        Powi::scaled(self.coef * real::<T>(f64::from(self.n)), self.n - 1)
+    }
+}
+elementwise!([T: Real, E: Pointwise<Elem = T>] Powi<T>, slope map Powi<T> = |s| s.rev_slope());
+
+/// A scaled real power `x -> c x^p`, domain `x > 0` (for integer exponents
+/// on all reals, use [`Powi`]).
+///
+/// Reverse derivative: `c p x^(p-1) dy`. A zero coefficient gives the zero map.
+///
+/// ```
+/// use revdiff::{Map, Powf};
+/// assert_eq!(Powf::new(0.5).forward(&9.0_f64).unwrap(), 3.0);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Powf<T> {
+    /// The coefficient `c`.
+    pub coef: T,
+    /// The exponent `p`.
+    pub p: T,
+}
+
+impl<T: Real> Powf<T> {
+    /// `x -> x^p`.
+    pub fn new(p: T) -> Self {
+        Powf { coef: T::one(), p }
+    }
+    /// `x -> c x^p`.
+    pub fn scaled(coef: T, p: T) -> Self {
+        Powf { coef, p }
+    }
+    fn rev_slope(&self) -> Powf<T> {
+        Powf::scaled(self.coef * self.p, self.p - T::one())
+    }
+}
+
+impl<T: Real> Elementwise<T> for Powf<T> {
+    const NAME: &'static str = "real power";
+    fn value(&self, x: T) -> T {
+        if self.coef == T::zero() {
+            T::zero()
+        } else {
+            self.coef * x.powf(self.p)
+        }
+    }
+    fn slope(&self, x: T) -> T {
+        self.rev_slope().value(x)
+    }
+}
+elementwise!([T: Real, E: Pointwise<Elem = T>] Powf<T>, slope map Powf<T> = |s| s.rev_slope());
+
+/// The sine. Reverse derivative: `cos(x) dy`.
+///
+/// ```
+/// use revdiff::{Map, Sin};
+/// assert_eq!(Sin.backward(&0.0_f64, &3.0).unwrap(), 3.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Sin;
+
+impl<T: Real> Elementwise<T> for Sin {
+    const NAME: &'static str = "sin";
+    fn value(&self, x: T) -> T {
+        x.sin()
+    }
+    fn slope(&self, x: T) -> T {
+        x.cos()
+    }
+}
+elementwise!([E: Pointwise] Sin, slope map Cos = |_s| Cos);
+
+/// The cosine. Reverse derivative: `-sin(x) dy`.
+///
+/// ```
+/// use revdiff::{Cos, Map};
+/// assert_eq!(Cos.backward(&0.0_f64, &3.0).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Cos;
+
+impl<T: Real> Elementwise<T> for Cos {
+    const NAME: &'static str = "cos";
+    fn value(&self, x: T) -> T {
+        x.cos()
+    }
+    fn slope(&self, x: T) -> T {
+        -x.sin()
+    }
+}
+elementwise!([E: Pointwise] Cos, slope map Then<Sin, Neg> = |_s| Sin.then(Neg));
+
+/// The hyperbolic tangent. Reverse derivative: `(1 - tanh(x)^2) dy`.
+///
+/// ```
+/// use revdiff::{Map, Tanh};
+/// assert_eq!(Tanh.backward(&0.0_f64, &1.0).unwrap(), 1.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Tanh;
+
+impl<T: Real> Elementwise<T> for Tanh {
+    const NAME: &'static str = "tanh";
+    fn value(&self, x: T) -> T {
+        x.tanh()
+    }
+    fn slope(&self, x: T) -> T {
+        SechSquared.value(x)
+    }
+}
+elementwise!([E: Pointwise] Tanh, slope map SechSquared = |_s| SechSquared);
+
+/// `x -> sech(x)^2 = 1 - tanh(x)^2`, the slope of [`Tanh`]. Reverse
+/// derivative: `-2 sech(x)^2 tanh(x) dy`.
+///
+/// ```
+/// use revdiff::{Map, SechSquared};
+/// assert_eq!(SechSquared.forward(&0.0_f64).unwrap(), 1.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct SechSquared;
+
+impl<T: Real> Elementwise<T> for SechSquared {
+    const NAME: &'static str = "sech squared";
+    fn value(&self, x: T) -> T {
+        let t = x.tanh();
+        T::one() - t * t
+    }
+    fn slope(&self, x: T) -> T {
+        real::<T>(-2.0) * self.value(x) * x.tanh()
+    }
+}
+elementwise!([E: Pointwise] SechSquared,
+    slope map Then<Then<Pair<Tanh, SechSquared>, Mul>, Scaling<E::Elem>> =
+    |_s| Tanh.pair(SechSquared).then(Mul).then(Scaling(real(-2.0))));
+
+/// The logistic sigmoid `1 / (1 + e^-x)`, computed without overflow for
+/// large `|x|`. Reverse derivative: `s (1 - s) dy` with `s` the sigmoid,
+/// written `s(x) s(-x) dy`.
+///
+/// ```
+/// use revdiff::{Map, Sigmoid};
+/// assert_eq!(Sigmoid.forward(&0.0_f64).unwrap(), 0.5);
+/// assert_eq!(Sigmoid.backward(&0.0_f64, &1.0).unwrap(), 0.25);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Sigmoid;
+
+impl<T: Real> Elementwise<T> for Sigmoid {
+    const NAME: &'static str = "sigmoid";
+    fn value(&self, x: T) -> T {
+        if x >= T::zero() {
+            T::one() / (T::one() + (-x).exp())
+        } else {
+            let e = x.exp();
+            e / (T::one() + e)
+        }
+    }
+    fn slope(&self, x: T) -> T {
+        self.value(x) * self.value(-x)
+    }
+}
+elementwise!([E: Pointwise] Sigmoid,
+    slope map Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, Mul> =
+    |_s| Sigmoid.pair(Neg.then(Sigmoid)).then(Mul));
+
+/// `x -> ln(1 + e^x)`, computed as `max(x, 0) + ln(1 + e^-|x|)` so that it
+/// neither overflows nor loses digits. Reverse derivative: `sigmoid(x) dy`.
+///
+/// ```
+/// use revdiff::{Map, Softplus};
+/// assert_eq!(Softplus.backward(&0.0_f64, &1.0).unwrap(), 0.5);
+/// assert_eq!(Softplus.forward(&1000.0_f64).unwrap(), 1000.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Softplus;
+
+impl<T: Real> Elementwise<T> for Softplus {
+    const NAME: &'static str = "softplus";
+    fn value(&self, x: T) -> T {
+        x.max(T::zero()) + (-x.abs()).exp().ln_1p()
+    }
+    fn slope(&self, x: T) -> T {
+        Sigmoid.value(x)
+    }
+}
+elementwise!([E: Pointwise] Softplus, slope map Sigmoid = |_s| Sigmoid);
+
+/// `x -> max(x, 0)`. Reverse derivative: `dy` where `x > 0`, else `0`; at
+/// `x = 0` the derivative is taken to be 0.
+///
+/// ```
+/// use revdiff::{Map, Relu};
+/// assert_eq!(Relu.backward(&0.0_f64, &1.0).unwrap(), 0.0);
+/// assert_eq!(Relu.backward(&2.0_f64, &1.0).unwrap(), 1.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Relu;
+
+impl<T: Real> Elementwise<T> for Relu {
+    const NAME: &'static str = "relu";
+    fn value(&self, x: T) -> T {
+        x.max(T::zero())
+    }
+    fn slope(&self, x: T) -> T {
+        Heaviside.value(x)
+    }
+}
+elementwise!([E: Pointwise] Relu, slope map Heaviside = |_s| Heaviside);
+
+/// The unit step: 1 where `x > 0`, 0 elsewhere (0 at `x = 0`), the slope of
+/// [`Relu`]. Its derivative is taken to be 0 everywhere.
+///
+/// ```
+/// use revdiff::{Heaviside, Map};
+/// assert_eq!(Heaviside.forward(&0.0_f64).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Heaviside;
+
+impl<T: Real> Elementwise<T> for Heaviside {
+    const NAME: &'static str = "step";
+    fn value(&self, x: T) -> T {
+        if x > T::zero() { T::one() } else { T::zero() }
+    }
+    fn slope(&self, _: T) -> T {
+        T::zero()
+    }
+}
+elementwise!([E: Pointwise] Heaviside, slope map ZeroMap = |_s| ZeroMap);
+
+/// The absolute value. Reverse derivative: `sign(x) dy`, with the sign of 0
+/// taken to be 0.
+///
+/// ```
+/// use revdiff::{Abs, Map};
+/// assert_eq!(Abs.backward(&-2.0_f64, &1.0).unwrap(), -1.0);
+/// assert_eq!(Abs.backward(&0.0_f64, &1.0).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Abs;
+
+impl<T: Real> Elementwise<T> for Abs {
+    const NAME: &'static str = "abs";
+    fn value(&self, x: T) -> T {
+        x.abs()
+    }
+    fn slope(&self, x: T) -> T {
+        Signum.value(x)
+    }
+}
+elementwise!([E: Pointwise] Abs, slope map Signum = |_s| Signum);
+
+/// The sign: -1, 0 or 1 (0 at `x = 0`), the slope of [`Abs`]. Its derivative
+/// is taken to be 0 everywhere.
+///
+/// ```
+/// use revdiff::{Map, Signum};
+/// assert_eq!(Signum.forward(&-3.0_f64).unwrap(), -1.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Signum;
+
+impl<T: Real> Elementwise<T> for Signum {
+    const NAME: &'static str = "sign";
+    fn value(&self, x: T) -> T {
+        if x > T::zero() {
+            T::one()
+        } else if x < T::zero() {
+            -T::one()
+        } else {
+            T::zero()
+        }
+    }
+    fn slope(&self, _: T) -> T {
+        T::zero()
+    }
+}
+elementwise!([E: Pointwise] Signum, slope map ZeroMap = |_s| ZeroMap);
+
+/// Negation `x -> -x`, a linear map. Reverse derivative: `-dy`.
+///
+/// ```
+/// use revdiff::{Map, Neg};
+/// assert_eq!(Neg.backward(&1.0_f64, &2.0).unwrap(), -2.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Neg;
+
+impl Compose for Neg {}
+
+impl<E: Pointwise> Map<E> for Neg {
+    type Output = E;
+    type Residual = ();
+    fn forward_keep(&self, x: &E) -> Result<(E, ())> {
+        Ok((x.map_elems(|v| -v), ()))
+    }
+    fn backward_from(&self, _: &(), dy: &E) -> Result<E> {
+        Ok(dy.map_elems(|v| -v))
+    }
+}
+
+impl<E: Pointwise> Reverse<E> for Neg {
+    type Rev = Then<Snd, Neg>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Neg)
+    }
+}
+
+impl<E: Pointwise> Linear<E> for Neg {}
+
+/// Elementwise subtraction `(a, b) -> a - b`, a linear map. Reverse
+/// derivative: `(dy, -dy)`. (Addition is the structural [`Add`](crate::Add).)
+///
+/// ```
+/// use revdiff::{Map, Sub};
+/// assert_eq!(Sub.forward(&(5.0_f64, 3.0)).unwrap(), 2.0);
+/// assert_eq!(Sub.backward(&(5.0_f64, 3.0), &1.0).unwrap(), (1.0, -1.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Sub;
+
+impl Compose for Sub {}
+
+impl<E: Pointwise> Map<(E, E)> for Sub {
+    type Output = E;
+    type Residual = ();
+    fn forward_keep(&self, (a, b): &(E, E)) -> Result<(E, ())> {
+        Ok((a.zip_elems(b, "subtraction", |u, v| u - v)?, ()))
+    }
+    fn backward_from(&self, _: &(), dy: &E) -> Result<(E, E)> {
+        Ok((dy.clone(), dy.map_elems(|v| -v)))
+    }
+}
+
+impl<E: Pointwise> Reverse<(E, E)> for Sub {
+    type Rev = Then<Snd, Pair<Id, Neg>>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Id.pair(Neg))
+    }
+}
+
+impl<E: Pointwise> Linear<(E, E)> for Sub {}
+
+/// Elementwise multiplication `(a, b) -> a b`. Reverse derivative:
+/// `(b dy, a dy)`.
+///
+/// ```
+/// use revdiff::{Map, Mul};
+/// assert_eq!(Mul.backward(&(2.0_f64, 3.0), &1.0).unwrap(), (3.0, 2.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Mul;
+
+impl Compose for Mul {}
+
+impl<E: Pointwise> Map<(E, E)> for Mul {
+    type Output = E;
+    type Residual = (E, E);
+    fn forward(&self, (a, b): &(E, E)) -> Result<E> {
+        a.zip_elems(b, "multiplication", |u, v| u * v)
+    }
+    fn forward_keep(&self, x: &(E, E)) -> Result<(E, (E, E))> {
+        Ok((self.forward(x)?, x.clone()))
+    }
+    fn backward_from(&self, (a, b): &(E, E), dy: &E) -> Result<(E, E)> {
+        Ok((
+            b.zip_elems(dy, "multiplication", |u, v| u * v)?,
+            a.zip_elems(dy, "multiplication", |u, v| u * v)?,
+        ))
+    }
+}
+
+/// `((a, b), dy) -> (b dy, a dy)`.
+pub type MulRev = Pair<Then<Pair<Then<Fst, Snd>, Snd>, Mul>, Then<Pair<Then<Fst, Fst>, Snd>, Mul>>;
+
+impl<E: Pointwise> Reverse<(E, E)> for Mul {
+    type Rev = MulRev;
+    fn rev(&self) -> MulRev {
+        let da = Fst.then(Snd).pair(Snd).then(Mul);
+        let db = Fst.then(Fst).pair(Snd).then(Mul);
+        da.pair(db)
+    }
+}
+
+/// Elementwise division `(a, b) -> a / b`, domain `b != 0`. Reverse
+/// derivative: `(dy / b, -(a / b) (dy / b))`.
+///
+/// ```
+/// use revdiff::{Div, Map};
+/// assert_eq!(Div.backward(&(1.0_f64, 2.0), &1.0).unwrap(), (0.5, -0.25));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Div;
+
+impl Compose for Div {}
+
+impl<E: Pointwise> Map<(E, E)> for Div {
+    type Output = E;
+    /// The divisor and the quotient.
+    type Residual = (E, E);
+    fn forward(&self, (a, b): &(E, E)) -> Result<E> {
+        a.zip_elems(b, "division", |u, v| u / v)
+    }
+    fn forward_keep(&self, x: &(E, E)) -> Result<(E, (E, E))> {
+        let q = self.forward(x)?;
+        Ok((q.clone(), (x.1.clone(), q)))
+    }
+    fn backward_from(&self, (b, q): &(E, E), dy: &E) -> Result<(E, E)> {
+        let da = dy.zip_elems(b, "division", |d, v| d / v)?;
+        let db = da.zip_elems(q, "division", |d, v| -(d * v))?;
+        Ok((da, db))
+    }
+}
+
+/// `((a, b), dy) -> dy / b`.
+type DyOverB = Then<Pair<Snd, Then<Fst, Snd>>, Div>;
+
+/// `((a, b), dy) -> (dy / b, -(dy / b) (a / b))`.
+pub type DivRev = Pair<DyOverB, Then<Then<Pair<DyOverB, Then<Fst, Div>>, Mul>, Neg>>;
+
+impl<E: Pointwise> Reverse<(E, E)> for Div {
+    type Rev = DivRev;
+    fn rev(&self) -> DivRev {
+        let dy_over_b = || Snd.pair(Fst.then(Snd)).then(Div);
+        dy_over_b().pair(dy_over_b().pair(Fst.then(Div)).then(Mul).then(Neg))
+    }
+}

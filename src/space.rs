@@ -1,0 +1,477 @@
+//! Spaces: the values that maps act on.
+//!
+//! A [`Space`] has a zero shaped like any of its values and an addition; that
+//! is all the algebra of reverse derivatives needs, and it holds over the
+//! reals and over the two-element field alike. The real-number parts live in
+//! separate traits: [`Scale`] for multiplication by a scalar, [`Euclidean`]
+//! for inner products and coordinates (what checkers, Jacobians and finite
+//! differences need), and [`Pointwise`] for values whose elements can be
+//! mapped one by one (what the elementwise primitives need).
+//!
+//! Implemented for `f32`, `f64`, fixed-size arrays `[T; N]`, owned ndarray
+//! arrays of any dimension, `()` (the terminal space: one value, no
+//! coordinates) and tuples of two, three and four spaces.
+//!
+//! Arrays of different shapes are never broadcast: adding them returns
+//! [`Error::ShapeMismatch`] naming both shapes.
+//!
+//! ```
+//! use revdiff::{Euclidean, Space};
+//! use ndarray::array;
+//!
+//! let a = (array![1.0, 2.0], 3.0_f64);
+//! let b = (array![0.5, 0.5], -1.0);
+//! assert_eq!(a.try_add(&b).unwrap(), (array![1.5, 2.5], 2.0));
+//! assert_eq!(a.inner(&b).unwrap(), 1.5 - 3.0);
+//! assert_eq!(a.zero_like(), (array![0.0, 0.0], 0.0));
+//! assert!(array![1.0, 2.0].try_add(&array![1.0]).is_err());
+//! ```
+
+use crate::error::{Error, Result};
+use ndarray::{Array, Dimension, ScalarOperand};
+use num_traits::Float;
+use std::fmt::{Debug, Display};
+
+/// The real scalar types the crate computes with: `f32` and `f64`.
+///
+/// A shorthand for the bounds that real elements need; it is implemented for
+/// every type that meets them.
+pub trait Real: Float + ScalarOperand + Debug + Display + Send + Sync + 'static {}
+
+impl<T: Float + ScalarOperand + Debug + Display + Send + Sync + 'static> Real for T {}
+
+/// A commutative monoid of values, with a zero shaped like any given value.
+///
+/// This is the only structure a map's input and output need. It asks for no
+/// scalar field, so spaces over bits fit as well as spaces over the reals.
+///
+/// # Example
+///
+/// A user space of polynomials with a fixed number of coefficients:
+///
+/// ```
+/// use revdiff::{Error, Result, Space};
+///
+/// #[derive(Clone, Debug, PartialEq)]
+/// struct Coefficients(Vec<f64>);
+///
+/// impl Space for Coefficients {
+///     fn zero_like(&self) -> Self {
+///         Coefficients(vec![0.0; self.0.len()])
+///     }
+///     fn try_add(&self, other: &Self) -> Result<Self> {
+///         if self.0.len() != other.0.len() {
+///             return Err(Error::shape("adding coefficients", self.shape_string(), other.shape_string()));
+///         }
+///         Ok(Coefficients(self.0.iter().zip(&other.0).map(|(a, b)| a + b).collect()))
+///     }
+///     fn shape_string(&self) -> String {
+///         format!("({},)", self.0.len())
+///     }
+/// }
+///
+/// let p = Coefficients(vec![1.0, 2.0]);
+/// assert_eq!(p.try_add(&p).unwrap(), Coefficients(vec![2.0, 4.0]));
+/// assert!(p.try_add(&Coefficients(vec![1.0])).is_err());
+/// ```
+pub trait Space: Clone + Debug {
+    /// The additive identity with the same shape as `self`.
+    fn zero_like(&self) -> Self;
+
+    /// `self + other`; an error if the shapes differ.
+    fn try_add(&self, other: &Self) -> Result<Self>;
+
+    /// `self += other`; an error (and `self` unchanged) if the shapes differ.
+    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+        *self = self.try_add(other)?;
+        Ok(())
+    }
+
+    /// The shape, printed for error messages: `scalar`, `(3, 4)`, `((2,), scalar)`.
+    fn shape_string(&self) -> String;
+}
+
+/// Multiplication of a space's values by scalars of type `S`.
+pub trait Scale<S>: Space {
+    /// `s * self`.
+    fn scale(&self, s: S) -> Self;
+}
+
+/// A real space with an inner product and a flat list of coordinates.
+///
+/// Coordinates are listed in a fixed order (tuple components left to right,
+/// array elements in logical row-major order); the Jacobian's rows and
+/// columns follow it.
+///
+/// ```
+/// use revdiff::Euclidean;
+/// use ndarray::array;
+///
+/// let x = (2.0_f64, array![[1.0, 2.0], [3.0, 4.0]]);
+/// assert_eq!(x.dimension(), 5);
+/// assert_eq!(x.coordinates(), vec![2.0, 1.0, 2.0, 3.0, 4.0]);
+/// let y = x.from_coordinates_like(&[0.0, 1.0, 1.0, 1.0, 1.0]).unwrap();
+/// assert_eq!(y, (0.0, array![[1.0, 1.0], [1.0, 1.0]]));
+/// ```
+pub trait Euclidean<R: Real>: Scale<R> {
+    /// The inner product `<self, other>`; an error if the shapes differ.
+    fn inner(&self, other: &Self) -> Result<R>;
+
+    /// Number of real coordinates.
+    fn dimension(&self) -> usize;
+
+    /// Appends the coordinates to `out`.
+    fn write_coordinates(&self, out: &mut Vec<R>);
+
+    /// Builds a value shaped like `self` from the front of `coords`,
+    /// advancing the slice past what it used.
+    fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self>;
+
+    /// The coordinates as a vector.
+    fn coordinates(&self) -> Vec<R> {
+        let mut out = Vec::with_capacity(self.dimension());
+        self.write_coordinates(&mut out);
+        out
+    }
+
+    /// Builds a value shaped like `self` from exactly `self.dimension()` coordinates.
+    fn from_coordinates_like(&self, coords: &[R]) -> Result<Self> {
+        if coords.len() != self.dimension() {
+            return Err(Error::Length {
+                operation: "building a value from coordinates",
+                expected: self.dimension(),
+                found: coords.len(),
+            });
+        }
+        let mut rest = coords;
+        self.read_coordinates(&mut rest)
+    }
+
+    /// Whether every coordinate is finite.
+    fn all_finite(&self) -> bool {
+        self.coordinates().iter().all(|c| c.is_finite())
+    }
+
+    /// The squared Euclidean norm `<self, self>`.
+    fn norm_squared(&self) -> R {
+        self.inner(self).unwrap_or_else(|_| R::nan())
+    }
+}
+
+/// A real space whose values are collections of scalar elements that can be
+/// transformed one by one; the elementwise primitives act on any of them.
+pub trait Pointwise: Euclidean<Self::Elem> {
+    /// The element type.
+    type Elem: Real;
+
+    /// Applies `f` to every element.
+    fn map_elems(&self, f: impl Fn(Self::Elem) -> Self::Elem) -> Self;
+
+    /// Combines two values of the same shape element by element; `operation`
+    /// names the caller in the error when the shapes differ.
+    fn zip_elems(
+        &self,
+        other: &Self,
+        operation: &'static str,
+        f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem,
+    ) -> Result<Self>;
+}
+
+macro_rules! real_scalar_space {
+    ($($t:ty),*) => {$(
+        impl Space for $t {
+            fn zero_like(&self) -> Self {
+                0.0
+            }
+            fn try_add(&self, other: &Self) -> Result<Self> {
+                Ok(self + other)
+            }
+            fn shape_string(&self) -> String {
+                "scalar".to_string()
+            }
+        }
+        impl Scale<$t> for $t {
+            fn scale(&self, s: $t) -> Self {
+                s * self
+            }
+        }
+        impl Euclidean<$t> for $t {
+            fn inner(&self, other: &Self) -> Result<$t> {
+                Ok(self * other)
+            }
+            fn dimension(&self) -> usize {
+                1
+            }
+            fn write_coordinates(&self, out: &mut Vec<$t>) {
+                out.push(*self);
+            }
+            fn read_coordinates(&self, coords: &mut &[$t]) -> Result<Self> {
+                let (first, rest) = coords.split_first().ok_or(Error::Length {
+                    operation: "reading a scalar from coordinates",
+                    expected: 1,
+                    found: 0,
+                })?;
+                *coords = rest;
+                Ok(*first)
+            }
+            fn all_finite(&self) -> bool {
+                self.is_finite()
+            }
+        }
+        impl Pointwise for $t {
+            type Elem = $t;
+            fn map_elems(&self, f: impl Fn($t) -> $t) -> Self {
+                f(*self)
+            }
+            fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn($t, $t) -> $t) -> Result<Self> {
+                Ok(f(*self, *other))
+            }
+        }
+    )*};
+}
+real_scalar_space!(f32, f64);
+
+/// Prints an ndarray shape as a tuple: `(3, 4)`, `(5,)`, `()`.
+pub(crate) fn shape_tuple(shape: &[usize]) -> String {
+    match shape {
+        [n] => format!("({n},)"),
+        _ => {
+            let parts: Vec<String> = shape.iter().map(|n| n.to_string()).collect();
+            format!("({})", parts.join(", "))
+        }
+    }
+}
+
+pub(crate) fn same_shape<T, D: Dimension>(
+    operation: &'static str,
+    a: &Array<T, D>,
+    b: &Array<T, D>,
+) -> Result<()> {
+    if a.shape() == b.shape() {
+        Ok(())
+    } else {
+        Err(Error::shape(
+            operation,
+            shape_tuple(a.shape()),
+            shape_tuple(b.shape()),
+        ))
+    }
+}
+
+impl<T: Real, D: Dimension> Space for Array<T, D> {
+    fn zero_like(&self) -> Self {
+        Array::zeros(self.raw_dim())
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        same_shape("adding arrays", self, other)?;
+        Ok(self + other)
+    }
+    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+        same_shape("adding arrays", self, other)?;
+        self.zip_mut_with(other, |a, b| *a = *a + *b);
+        Ok(())
+    }
+    fn shape_string(&self) -> String {
+        shape_tuple(self.shape())
+    }
+}
+
+impl<T: Real, D: Dimension> Scale<T> for Array<T, D> {
+    fn scale(&self, s: T) -> Self {
+        self * s
+    }
+}
+
+impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
+    fn inner(&self, other: &Self) -> Result<T> {
+        same_shape("inner product of arrays", self, other)?;
+        Ok(self
+            .iter()
+            .zip(other.iter())
+            .fold(T::zero(), |acc, (a, b)| acc + *a * *b))
+    }
+    fn dimension(&self) -> usize {
+        self.len()
+    }
+    fn write_coordinates(&self, out: &mut Vec<T>) {
+        out.extend(self.iter().copied());
+    }
+    fn read_coordinates(&self, coords: &mut &[T]) -> Result<Self> {
+        let n = self.len();
+        if coords.len() < n {
+            return Err(Error::Length {
+                operation: "reading an array from coordinates",
+                expected: n,
+                found: coords.len(),
+            });
+        }
+        let (head, rest) = coords.split_at(n);
+        *coords = rest;
+        Array::from_shape_vec(self.raw_dim(), head.to_vec())
+            .map_err(|e| Error::shape("reading an array from coordinates", self.shape_string(), e))
+    }
+    fn all_finite(&self) -> bool {
+        self.iter().all(|v| v.is_finite())
+    }
+}
+
+impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
+    type Elem = T;
+    fn map_elems(&self, f: impl Fn(T) -> T) -> Self {
+        self.mapv(f)
+    }
+    fn zip_elems(&self, other: &Self, operation: &'static str, f: impl Fn(T, T) -> T) -> Result<Self> {
+        same_shape(operation, self, other)?;
+        let mut out = self.clone();
+        out.zip_mut_with(other, |a, b| *a = f(*a, *b));
+        Ok(out)
+    }
+}
+
+impl<S: Space, const N: usize> Space for [S; N] {
+    fn zero_like(&self) -> Self {
+        std::array::from_fn(|i| self[i].zero_like())
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        let mut out = self.clone();
+        out.try_add_assign(other)?;
+        Ok(out)
+    }
+    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+        // Check every slot first so that a refusal leaves `self` unchanged.
+        for (a, b) in self.iter().zip(other) {
+            a.try_add(b)?;
+        }
+        for (a, b) in self.iter_mut().zip(other) {
+            a.try_add_assign(b)?;
+        }
+        Ok(())
+    }
+    fn shape_string(&self) -> String {
+        match self.first() {
+            Some(s) => format!("[{}; {N}]", s.shape_string()),
+            None => "[; 0]".to_string(),
+        }
+    }
+}
+
+impl<S: Scale<K>, K: Copy, const N: usize> Scale<K> for [S; N] {
+    fn scale(&self, s: K) -> Self {
+        std::array::from_fn(|i| self[i].scale(s))
+    }
+}
+
+impl<S: Euclidean<R>, R: Real, const N: usize> Euclidean<R> for [S; N] {
+    fn inner(&self, other: &Self) -> Result<R> {
+        self.iter()
+            .zip(other)
+            .try_fold(R::zero(), |acc, (a, b)| Ok(acc + a.inner(b)?))
+    }
+    fn dimension(&self) -> usize {
+        self.iter().map(|s| s.dimension()).sum()
+    }
+    fn write_coordinates(&self, out: &mut Vec<R>) {
+        for s in self {
+            s.write_coordinates(out);
+        }
+    }
+    fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self> {
+        let mut parts = Vec::with_capacity(N);
+        for s in self {
+            parts.push(s.read_coordinates(coords)?);
+        }
+        parts.try_into().map_err(|_| Error::Length {
+            operation: "reading a fixed-size array from coordinates",
+            expected: N,
+            found: 0,
+        })
+    }
+}
+
+impl<T: Real, const N: usize> Pointwise for [T; N]
+where
+    T: Pointwise<Elem = T>,
+{
+    type Elem = T;
+    fn map_elems(&self, f: impl Fn(T) -> T) -> Self {
+        self.map(f)
+    }
+    fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn(T, T) -> T) -> Result<Self> {
+        Ok(std::array::from_fn(|i| f(self[i], other[i])))
+    }
+}
+
+impl Space for () {
+    fn zero_like(&self) -> Self {}
+    fn try_add(&self, _: &Self) -> Result<Self> {
+        Ok(())
+    }
+    fn shape_string(&self) -> String {
+        "()".to_string()
+    }
+}
+
+impl<K> Scale<K> for () {
+    fn scale(&self, _: K) -> Self {}
+}
+
+impl<R: Real> Euclidean<R> for () {
+    fn inner(&self, _: &Self) -> Result<R> {
+        Ok(R::zero())
+    }
+    fn dimension(&self) -> usize {
+        0
+    }
+    fn write_coordinates(&self, _: &mut Vec<R>) {}
+    fn read_coordinates(&self, _: &mut &[R]) -> Result<Self> {
+        Ok(())
+    }
+}
+
+macro_rules! tuple_space {
+    ($($name:ident $idx:tt),+) => {
+        impl<$($name: Space),+> Space for ($($name,)+) {
+            fn zero_like(&self) -> Self {
+                ($(self.$idx.zero_like(),)+)
+            }
+            fn try_add(&self, other: &Self) -> Result<Self> {
+                Ok(($(self.$idx.try_add(&other.$idx)?,)+))
+            }
+            fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+                // Check every component first so that a refusal leaves `self` unchanged.
+                $(self.$idx.try_add(&other.$idx)?;)+
+                $(self.$idx.try_add_assign(&other.$idx)?;)+
+                Ok(())
+            }
+            fn shape_string(&self) -> String {
+                let parts = [$(self.$idx.shape_string()),+];
+                format!("({})", parts.join(", "))
+            }
+        }
+        impl<K: Copy, $($name: Scale<K>),+> Scale<K> for ($($name,)+) {
+            fn scale(&self, s: K) -> Self {
+                ($(self.$idx.scale(s),)+)
+            }
+        }
+        impl<R: Real, $($name: Euclidean<R>),+> Euclidean<R> for ($($name,)+) {
+            fn inner(&self, other: &Self) -> Result<R> {
+                Ok(R::zero() $(+ self.$idx.inner(&other.$idx)?)+)
+            }
+            fn dimension(&self) -> usize {
+                0 $(+ self.$idx.dimension())+
+            }
+            fn write_coordinates(&self, out: &mut Vec<R>) {
+                $(self.$idx.write_coordinates(out);)+
+            }
+            fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self> {
+                Ok(($(self.$idx.read_coordinates(coords)?,)+))
+            }
+            fn all_finite(&self) -> bool {
+                true $(&& self.$idx.all_finite())+
+            }
+        }
+    };
+}
+tuple_space!(A 0, B 1);
+tuple_space!(A 0, B 1, C 2);
+tuple_space!(A 0, B 1, C 2, D 3);
