@@ -68,6 +68,13 @@ pub enum Error {
         /// What was seen, and where in the value.
         detail: String,
     },
+    /// A residual handed to a type-erased map's backward pass was not one
+    /// that map's forward pass kept.
+    #[error("{operation}: the residual was not produced by this map's forward pass")]
+    ForeignResidual {
+        /// The map that refused it.
+        operation: &'static str,
+    },
     /// An input was empty where at least one element is needed.
     #[error("{operation}: empty input")]
     Empty {

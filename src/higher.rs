@@ -12,7 +12,7 @@ use ndarray::Array2;
 /// ```
 /// use revdiff::{second_reverse, Map, Sin};
 /// // R[R[sin]](((x, dy), u)) = (-sin(x) dy u, cos(x) u)
-/// let rr = second_reverse(&Sin);
+/// let rr = second_reverse::<f64, _>(&Sin);
 /// let (dx, ddy) = rr.forward(&((0.5_f64, 2.0), 3.0)).unwrap();
 /// assert!((dx + 0.5_f64.sin() * 6.0).abs() < 1e-12);
 /// assert!((ddy - 0.5_f64.cos() * 3.0).abs() < 1e-12);

@@ -34,11 +34,23 @@ use std::fmt::{Debug, Display};
 
 /// The real scalar types the crate computes with: `f32` and `f64`.
 ///
-/// A shorthand for the bounds that real elements need; it is implemented for
-/// every type that meets them.
-pub trait Real: Float + ScalarOperand + Debug + Display + Send + Sync + 'static {}
+/// A shorthand for the bounds that real elements need: a num-traits
+/// [`Float`] that is also a one-dimensional space.
+pub trait Real:
+    Float
+    + ScalarOperand
+    + Debug
+    + Display
+    + Send
+    + Sync
+    + 'static
+    + Euclidean<Self>
+    + Pointwise<Elem = Self>
+{
+}
 
-impl<T: Float + ScalarOperand + Debug + Display + Send + Sync + 'static> Real for T {}
+impl Real for f32 {}
+impl Real for f64 {}
 
 /// A commutative monoid of values, with a zero shaped like any given value.
 ///
@@ -320,7 +332,12 @@ impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
     fn map_elems(&self, f: impl Fn(T) -> T) -> Self {
         self.mapv(f)
     }
-    fn zip_elems(&self, other: &Self, operation: &'static str, f: impl Fn(T, T) -> T) -> Result<Self> {
+    fn zip_elems(
+        &self,
+        other: &Self,
+        operation: &'static str,
+        f: impl Fn(T, T) -> T,
+    ) -> Result<Self> {
         same_shape(operation, self, other)?;
         let mut out = self.clone();
         out.zip_mut_with(other, |a, b| *a = f(*a, *b));

@@ -184,8 +184,12 @@ pub type ThenRev<F, FR, GR> = Then<Pair<Fst, Then<Pair<Then<Fst, F>, Snd>, GR>>,
 impl<A: Space, F: Reverse<A>, G: Reverse<F::Output>> Reverse<A> for Then<F, G> {
     type Rev = ThenRev<F, F::Rev, G::Rev>;
     fn rev(&self) -> Self::Rev {
-        Fst.pair(Fst.then(self.first.clone()).pair(Snd).then(self.second.rev()))
-            .then(self.first.rev())
+        Fst.pair(
+            Fst.then(self.first.clone())
+                .pair(Snd)
+                .then(self.second.rev()),
+        )
+        .then(self.first.rev())
     }
 }
 

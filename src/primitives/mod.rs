@@ -2,9 +2,18 @@
 //! softmax. Each reverse derivative is assembled from primitives of this
 //! catalogue and combinators, so every order exists.
 
+mod linalg;
 mod pointwise;
+mod reduce;
+mod softmax;
 
+pub use linalg::{
+    Affine, AffineComposite, MatMul, MatMulRev, MatVec, MatVecRev, MatrixTranspose, Outer,
+    OuterRev, affine_composite,
+};
 pub use pointwise::{
     Abs, Cos, Div, DivRev, Exp, Heaviside, Ln, Mul, MulRev, Neg, Powf, Powi, Relu, SechSquared,
     Sigmoid, Signum, Sin, SlopeTimes, Softplus, Sqrt, Sub, Tanh,
 };
+pub use reduce::{Dot, FillLike, FillLikeRev, SquaredNorm, Total, dot, squared_norm};
+pub use softmax::{LogSoftmax, LogSoftmaxRev, LogSumExp, LogSumExpRev, Softmax, SoftmaxRev};

@@ -1,0 +1,352 @@
+//! Type-erased maps for models assembled at run time.
+//!
+//! [`Boxed`] hides any map's type (and its residual's) behind a box, so maps
+//! of different types can be stored together and nested to a depth known
+//! only at run time. [`Chain`] is a sequence of stages over
+//! `ArrayD<T>` whose shapes are checked as it is assembled: a stage that
+//! cannot take what the previous one produces is refused with an
+//! [`Error::ChainShape`] naming both shapes and the stage, and the chain is
+//! left as it was.
+//!
+//! Both forms are first-order (forward and backward passes). Reverse
+//! derivatives as maps, and so second order, need the statically typed
+//! combinators, whose types describe the whole map.
+
+use crate::error::{Error, Result};
+use crate::map::{Compose, Map};
+use crate::primitives::Affine;
+use crate::space::{Real, Space, shape_tuple};
+use ndarray::{Array1, Array2, ArrayD, Ix1, IxDyn};
+use std::any::Any;
+use std::fmt;
+
+trait ErasedMap<A, B> {
+    fn erased_forward(&self, x: &A) -> Result<B>;
+    fn erased_forward_keep(&self, x: &A) -> Result<(B, Box<dyn Any>)>;
+    fn erased_backward(&self, residual: &dyn Any, dy: &B) -> Result<A>;
+}
+
+impl<A: Space, F: Map<A>> ErasedMap<A, F::Output> for F
+where
+    F::Residual: 'static,
+{
+    fn erased_forward(&self, x: &A) -> Result<F::Output> {
+        Map::forward(self, x)
+    }
+    fn erased_forward_keep(&self, x: &A) -> Result<(F::Output, Box<dyn Any>)> {
+        let (y, r) = Map::forward_keep(self, x)?;
+        Ok((y, Box::new(r)))
+    }
+    fn erased_backward(&self, residual: &dyn Any, dy: &F::Output) -> Result<A> {
+        let r = residual
+            .downcast_ref::<F::Residual>()
+            .ok_or(Error::ForeignResidual {
+                operation: "backward pass of a boxed map",
+            })?;
+        Map::backward_from(self, r, dy)
+    }
+}
+
+/// A map `A -> B` whose concrete type is erased. Created by [`Boxed::new`].
+///
+/// ```
+/// use revdiff::{Boxed, Compose, Map, Sin};
+/// // A left-nested chain whose depth is read at run time.
+/// let depth = 5;
+/// let mut f: Boxed<f64, f64> = Boxed::new(Sin);
+/// for _ in 1..depth {
+///     f = Boxed::new(f.then(Sin));
+/// }
+/// let mut expect = 0.5_f64;
+/// for _ in 0..depth {
+///     expect = expect.sin();
+/// }
+/// assert_eq!(f.forward(&0.5).unwrap(), expect);
+/// ```
+pub struct Boxed<A, B> {
+    inner: Box<dyn ErasedMap<A, B>>,
+}
+
+impl<A: Space, B: Space> Boxed<A, B> {
+    /// Erases the type of `map`.
+    pub fn new<F>(map: F) -> Self
+    where
+        F: Map<A, Output = B> + 'static,
+        F::Residual: 'static,
+    {
+        Boxed {
+            inner: Box::new(map),
+        }
+    }
+}
+
+impl<A, B> fmt::Debug for Boxed<A, B> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str("Boxed(..)")
+    }
+}
+
+impl<A, B> Compose for Boxed<A, B> {}
+
+impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
+    type Output = B;
+    type Residual = Box<dyn Any>;
+    fn forward(&self, x: &A) -> Result<B> {
+        self.inner.erased_forward(x)
+    }
+    fn forward_keep(&self, x: &A) -> Result<(B, Box<dyn Any>)> {
+        self.inner.erased_forward_keep(x)
+    }
+    fn backward_from(&self, residual: &Box<dyn Any>, dy: &B) -> Result<A> {
+        self.inner.erased_backward(residual.as_ref(), dy)
+    }
+}
+
+/// What a stage of a [`Chain`] does to shapes.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum StageShape {
+    /// Any input shape; the output has the same shape (elementwise maps).
+    Preserving,
+    /// One input shape, one output shape.
+    Fixed {
+        /// The only input shape accepted.
+        input: Vec<usize>,
+        /// The output shape.
+        output: Vec<usize>,
+    },
+}
+
+struct Stage<T> {
+    name: String,
+    map: Boxed<ArrayD<T>, ArrayD<T>>,
+}
+
+/// A sequence of stages `ArrayD<T> -> ArrayD<T>`, shape-checked as it is
+/// assembled, for models whose structure is known only at run time.
+///
+/// ```
+/// use revdiff::{Chain, Map, Tanh};
+/// use ndarray::{Array1, Array2};
+///
+/// // Layer widths read from a configuration at run time.
+/// let widths = [3, 4, 2];
+/// let mut chain = Chain::<f64>::new(&[widths[0]]);
+/// for pair in widths.windows(2) {
+///     chain.push_affine(Array2::from_elem((pair[1], pair[0]), 0.1), Array1::zeros(pair[1])).unwrap();
+///     chain.push_elementwise("tanh", Tanh).unwrap();
+/// }
+/// assert_eq!(chain.output_shape(), &[2]);
+///
+/// // A stage of the wrong width is refused, naming both shapes and the place.
+/// let err = chain.push_affine(Array2::zeros((5, 3)), Array1::zeros(5)).unwrap_err();
+/// assert_eq!(
+///     err.to_string(),
+///     "stage 5 of the chain (affine (5, 3)) expects input of shape (3,), but stage 4 produces shape (2,)"
+/// );
+/// assert_eq!(chain.len(), 4); // the chain is as it was
+///
+/// let x = ndarray::arr1(&[1.0, 2.0, 3.0]).into_dyn();
+/// let dx = chain.backward(&x, &ndarray::arr1(&[1.0, 0.0]).into_dyn()).unwrap();
+/// assert_eq!(dx.shape(), &[3]);
+/// ```
+pub struct Chain<T> {
+    input_shape: Vec<usize>,
+    output_shape: Vec<usize>,
+    stages: Vec<Stage<T>>,
+}
+
+impl<T> fmt::Debug for Chain<T> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let names: Vec<&str> = self.stages.iter().map(|s| s.name.as_str()).collect();
+        f.debug_struct("Chain")
+            .field("input_shape", &self.input_shape)
+            .field("output_shape", &self.output_shape)
+            .field("stages", &names)
+            .finish()
+    }
+}
+
+impl<T: Real> Chain<T> {
+    /// An empty chain (the identity) on arrays of shape `input_shape`.
+    pub fn new(input_shape: &[usize]) -> Self {
+        Chain {
+            input_shape: input_shape.to_vec(),
+            output_shape: input_shape.to_vec(),
+            stages: Vec::new(),
+        }
+    }
+
+    /// Appends a stage after checking that it accepts the current output
+    /// shape. On refusal the chain is unchanged.
+    pub fn push<F>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
+    where
+        F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
+        F::Residual: 'static,
+    {
+        let output = match &shape {
+            StageShape::Preserving => self.output_shape.clone(),
+            StageShape::Fixed { input, output } => {
+                if *input != self.output_shape {
+                    return Err(Error::ChainShape {
+                        stage: self.stages.len() + 1,
+                        previous: self.stages.len(),
+                        name: name.to_string(),
+                        expected: shape_tuple(input),
+                        found: shape_tuple(&self.output_shape),
+                    });
+                }
+                output.clone()
+            }
+        };
+        self.stages.push(Stage {
+            name: name.to_string(),
+            map: Boxed::new(map),
+        });
+        self.output_shape = output;
+        Ok(())
+    }
+
+    /// Appends an elementwise stage (any map that keeps shapes).
+    pub fn push_elementwise<F>(&mut self, name: &str, map: F) -> Result<()>
+    where
+        F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
+        F::Residual: 'static,
+    {
+        self.push(name, map, StageShape::Preserving)
+    }
+
+    /// Appends the affine stage `x -> W x + b` with fixed `W` of shape
+    /// `(m, n)` and `b` of length `m`, taking vectors of length `n`.
+    pub fn push_affine(&mut self, weights: Array2<T>, bias: Array1<T>) -> Result<()> {
+        let (m, n) = weights.dim();
+        if bias.len() != m {
+            return Err(Error::shape(
+                "affine stage (bias length must equal weight rows)",
+                format!("({m},)"),
+                format!("({},)", bias.len()),
+            ));
+        }
+        let name = format!("affine ({m}, {n})");
+        let shape = StageShape::Fixed {
+            input: vec![n],
+            output: vec![m],
+        };
+        self.push(&name, FixedAffine { weights, bias }, shape)
+    }
+
+    /// Number of stages.
+    pub fn len(&self) -> usize {
+        self.stages.len()
+    }
+
+    /// Whether the chain has no stages.
+    pub fn is_empty(&self) -> bool {
+        self.stages.is_empty()
+    }
+
+    /// The input shape the chain accepts.
+    pub fn input_shape(&self) -> &[usize] {
+        &self.input_shape
+    }
+
+    /// The output shape the chain produces.
+    pub fn output_shape(&self) -> &[usize] {
+        &self.output_shape
+    }
+
+    /// The names of the stages, in order.
+    pub fn stage_names(&self) -> Vec<&str> {
+        self.stages.iter().map(|s| s.name.as_str()).collect()
+    }
+
+    fn check_input(&self, x: &ArrayD<T>) -> Result<()> {
+        if x.shape() == self.input_shape.as_slice() {
+            return Ok(());
+        }
+        let first = self.stages.first();
+        Err(Error::ChainShape {
+            stage: 1,
+            previous: 0,
+            name: first.map_or("output".to_string(), |s| s.name.clone()),
+            expected: shape_tuple(&self.input_shape),
+            found: shape_tuple(x.shape()),
+        })
+    }
+}
+
+impl<T> Compose for Chain<T> {}
+
+impl<T: Real> Map<ArrayD<T>> for Chain<T> {
+    type Output = ArrayD<T>;
+    type Residual = Vec<Box<dyn Any>>;
+    fn forward(&self, x: &ArrayD<T>) -> Result<ArrayD<T>> {
+        self.check_input(x)?;
+        let mut y = x.clone();
+        for stage in &self.stages {
+            y = stage.map.forward(&y)?;
+        }
+        Ok(y)
+    }
+    fn forward_keep(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Residual)> {
+        self.check_input(x)?;
+        let mut y = x.clone();
+        let mut residuals = Vec::with_capacity(self.stages.len());
+        for stage in &self.stages {
+            let (next, r) = stage.map.forward_keep(&y)?;
+            residuals.push(r);
+            y = next;
+        }
+        Ok((y, residuals))
+    }
+    fn backward_from(&self, residuals: &Self::Residual, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        if residuals.len() != self.stages.len() {
+            return Err(Error::ForeignResidual {
+                operation: "backward pass of a chain",
+            });
+        }
+        if dy.shape() != self.output_shape.as_slice() {
+            return Err(Error::shape(
+                "output change of a chain",
+                shape_tuple(&self.output_shape),
+                shape_tuple(dy.shape()),
+            ));
+        }
+        let mut d = dy.clone();
+        for (stage, r) in self.stages.iter().zip(residuals).rev() {
+            d = stage.map.backward_from(r, &d)?;
+        }
+        Ok(d)
+    }
+}
+
+/// `x -> W x + b` on one-dimensional `ArrayD`s, with `W` and `b` fixed.
+struct FixedAffine<T> {
+    weights: Array2<T>,
+    bias: Array1<T>,
+}
+
+impl<T> Compose for FixedAffine<T> {}
+
+fn as_vector<T: Real>(x: &ArrayD<T>) -> Result<Array1<T>> {
+    x.clone()
+        .into_dimensionality::<Ix1>()
+        .map_err(|_| Error::shape("affine stage input", "(n,)", shape_tuple(x.shape())))
+}
+
+impl<T: Real> Map<ArrayD<T>> for FixedAffine<T> {
+    type Output = ArrayD<T>;
+    type Residual = <Affine as Map<((Array2<T>, Array1<T>), Array1<T>)>>::Residual;
+    fn forward_keep(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Residual)> {
+        let input = ((self.weights.clone(), self.bias.clone()), as_vector(x)?);
+        let (y, r) = Affine.forward_keep(&input)?;
+        Ok((
+            y.into_dimensionality::<IxDyn>()
+                .expect("any array is dynamic"),
+            r,
+        ))
+    }
+    fn backward_from(&self, r: &Self::Residual, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        let (_, dx) = Affine.backward_from(r, &as_vector(dy)?)?;
+        Ok(dx.into_dyn())
+    }
+}
