@@ -68,8 +68,12 @@ impl Real for f64 {}
 /// struct Coefficients(Vec<f64>);
 ///
 /// impl Space for Coefficients {
-///     fn zero_like(&self) -> Self {
-///         Coefficients(vec![0.0; self.0.len()])
+///     type Shape = usize;
+///     fn shape(&self) -> usize {
+///         self.0.len()
+///     }
+///     fn zero_of(len: &usize) -> Self {
+///         Coefficients(vec![0.0; *len])
 ///     }
 ///     fn try_add(&self, other: &Self) -> Result<Self> {
 ///         if self.0.len() != other.0.len() {
@@ -87,8 +91,21 @@ impl Real for f64 {}
 /// assert!(p.try_add(&Coefficients(vec![1.0])).is_err());
 /// ```
 pub trait Space: Clone + Debug {
+    /// What a zero needs to know about a value: its array dimensions, the
+    /// shapes of a tuple's parts, nothing for a scalar. Cheap to keep, so
+    /// that a backward pass can make zeros without keeping whole values.
+    type Shape: Clone + Debug;
+
+    /// The shape of `self`.
+    fn shape(&self) -> Self::Shape;
+
+    /// The additive identity of the given shape.
+    fn zero_of(shape: &Self::Shape) -> Self;
+
     /// The additive identity with the same shape as `self`.
-    fn zero_like(&self) -> Self;
+    fn zero_like(&self) -> Self {
+        Self::zero_of(&self.shape())
+    }
 
     /// `self + other`; an error if the shapes differ.
     fn try_add(&self, other: &Self) -> Result<Self>;
@@ -192,7 +209,9 @@ pub trait Pointwise: Euclidean<Self::Elem> {
 macro_rules! real_scalar_space {
     ($($t:ty),*) => {$(
         impl Space for $t {
-            fn zero_like(&self) -> Self {
+            type Shape = ();
+            fn shape(&self) {}
+            fn zero_of(_: &()) -> Self {
                 0.0
             }
             fn try_add(&self, other: &Self) -> Result<Self> {
@@ -271,8 +290,12 @@ pub(crate) fn same_shape<T, D: Dimension>(
 }
 
 impl<T: Real, D: Dimension> Space for Array<T, D> {
-    fn zero_like(&self) -> Self {
-        Array::zeros(self.raw_dim())
+    type Shape = D;
+    fn shape(&self) -> D {
+        self.raw_dim()
+    }
+    fn zero_of(shape: &D) -> Self {
+        Array::zeros(shape.clone())
     }
     fn try_add(&self, other: &Self) -> Result<Self> {
         same_shape("adding arrays", self, other)?;
@@ -346,8 +369,12 @@ impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
 }
 
 impl<S: Space, const N: usize> Space for [S; N] {
-    fn zero_like(&self) -> Self {
-        std::array::from_fn(|i| self[i].zero_like())
+    type Shape = [S::Shape; N];
+    fn shape(&self) -> Self::Shape {
+        std::array::from_fn(|i| self[i].shape())
+    }
+    fn zero_of(shape: &Self::Shape) -> Self {
+        std::array::from_fn(|i| S::zero_of(&shape[i]))
     }
     fn try_add(&self, other: &Self) -> Result<Self> {
         let mut out = self.clone();
@@ -419,7 +446,9 @@ where
 }
 
 impl Space for () {
-    fn zero_like(&self) -> Self {}
+    type Shape = ();
+    fn shape(&self) {}
+    fn zero_of(_: &()) -> Self {}
     fn try_add(&self, _: &Self) -> Result<Self> {
         Ok(())
     }
@@ -448,8 +477,12 @@ impl<R: Real> Euclidean<R> for () {
 macro_rules! tuple_space {
     ($($name:ident $idx:tt),+) => {
         impl<$($name: Space),+> Space for ($($name,)+) {
-            fn zero_like(&self) -> Self {
-                ($(self.$idx.zero_like(),)+)
+            type Shape = ($($name::Shape,)+);
+            fn shape(&self) -> Self::Shape {
+                ($(self.$idx.shape(),)+)
+            }
+            fn zero_of(shape: &Self::Shape) -> Self {
+                ($($name::zero_of(&shape.$idx),)+)
             }
             fn try_add(&self, other: &Self) -> Result<Self> {
                 Ok(($(self.$idx.try_add(&other.$idx)?,)+))

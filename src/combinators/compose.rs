@@ -163,16 +163,20 @@ impl<F, R, A> Compose for Transpose<F, R, A> {}
 
 impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
     type Output = G::Output;
-    type Residual = (F::Residual, G::Residual);
+    /// Boxed, so that the residual of a deeply nested composite (a reverse
+    /// derivative of order three is thousands of maps) lives on the heap,
+    /// not in ever larger stack frames.
+    type Residual = Box<(F::Residual, G::Residual)>;
     fn forward(&self, x: &A) -> Result<G::Output> {
         self.second.forward(&self.first.forward(x)?)
     }
     fn forward_keep(&self, x: &A) -> Result<(G::Output, Self::Residual)> {
         let (y, rf) = self.first.forward_keep(x)?;
         let (z, rg) = self.second.forward_keep(&y)?;
-        Ok((z, (rf, rg)))
+        Ok((z, Box::new((rf, rg))))
     }
-    fn backward_from(&self, (rf, rg): &Self::Residual, dz: &G::Output) -> Result<A> {
+    fn backward_from(&self, residual: &Self::Residual, dz: &G::Output) -> Result<A> {
+        let (rf, rg) = residual.as_ref();
         let dy = self.second.backward_from(rg, dz)?;
         self.first.backward_from(rf, &dy)
     }

@@ -173,15 +173,15 @@ impl<A: Space> Reverse<A> for Id {
 
 impl<A: Space, B: Space> Map<(A, B)> for Fst {
     type Output = A;
-    type Residual = B;
+    type Residual = B::Shape;
     fn forward(&self, x: &(A, B)) -> Result<A> {
         Ok(x.0.clone())
     }
-    fn forward_keep(&self, x: &(A, B)) -> Result<(A, B)> {
-        Ok((x.0.clone(), x.1.zero_like()))
+    fn forward_keep(&self, x: &(A, B)) -> Result<(A, B::Shape)> {
+        Ok((x.0.clone(), x.1.shape()))
     }
-    fn backward_from(&self, zero_b: &B, da: &A) -> Result<(A, B)> {
-        Ok((da.clone(), zero_b.clone()))
+    fn backward_from(&self, shape_b: &B::Shape, da: &A) -> Result<(A, B)> {
+        Ok((da.clone(), B::zero_of(shape_b)))
     }
 }
 
@@ -195,15 +195,15 @@ impl<A: Space, B: Space> Reverse<(A, B)> for Fst {
 
 impl<A: Space, B: Space> Map<(A, B)> for Snd {
     type Output = B;
-    type Residual = A;
+    type Residual = A::Shape;
     fn forward(&self, x: &(A, B)) -> Result<B> {
         Ok(x.1.clone())
     }
-    fn forward_keep(&self, x: &(A, B)) -> Result<(B, A)> {
-        Ok((x.1.clone(), x.0.zero_like()))
+    fn forward_keep(&self, x: &(A, B)) -> Result<(B, A::Shape)> {
+        Ok((x.1.clone(), x.0.shape()))
     }
-    fn backward_from(&self, zero_a: &A, db: &B) -> Result<(A, B)> {
-        Ok((zero_a.clone(), db.clone()))
+    fn backward_from(&self, shape_a: &A::Shape, db: &B) -> Result<(A, B)> {
+        Ok((A::zero_of(shape_a), db.clone()))
     }
 }
 
@@ -253,15 +253,15 @@ impl<A: Space> Reverse<(A, A)> for Add {
 
 impl<A: Space> Map<A> for Discard {
     type Output = ();
-    type Residual = A;
+    type Residual = A::Shape;
     fn forward(&self, _: &A) -> Result<()> {
         Ok(())
     }
-    fn forward_keep(&self, x: &A) -> Result<((), A)> {
-        Ok(((), x.zero_like()))
+    fn forward_keep(&self, x: &A) -> Result<((), A::Shape)> {
+        Ok(((), x.shape()))
     }
-    fn backward_from(&self, zero: &A, _: &()) -> Result<A> {
-        Ok(zero.clone())
+    fn backward_from(&self, shape: &A::Shape, _: &()) -> Result<A> {
+        Ok(A::zero_of(shape))
     }
 }
 
@@ -274,16 +274,15 @@ impl<A: Space> Reverse<A> for Discard {
 
 impl<A: Space> Map<A> for ZeroMap {
     type Output = A;
-    type Residual = A;
+    type Residual = A::Shape;
     fn forward(&self, x: &A) -> Result<A> {
         Ok(x.zero_like())
     }
-    fn forward_keep(&self, x: &A) -> Result<(A, A)> {
-        let zero = x.zero_like();
-        Ok((zero.clone(), zero))
+    fn forward_keep(&self, x: &A) -> Result<(A, A::Shape)> {
+        Ok((x.zero_like(), x.shape()))
     }
-    fn backward_from(&self, zero: &A, _: &A) -> Result<A> {
-        Ok(zero.clone())
+    fn backward_from(&self, shape: &A::Shape, _: &A) -> Result<A> {
+        Ok(A::zero_of(shape))
     }
 }
 
@@ -296,15 +295,15 @@ impl<A: Space> Reverse<A> for ZeroMap {
 
 impl<A: Space, B: Space> Map<A> for Constant<B> {
     type Output = B;
-    type Residual = A;
+    type Residual = A::Shape;
     fn forward(&self, _: &A) -> Result<B> {
         Ok(self.0.clone())
     }
-    fn forward_keep(&self, x: &A) -> Result<(B, A)> {
-        Ok((self.0.clone(), x.zero_like()))
+    fn forward_keep(&self, x: &A) -> Result<(B, A::Shape)> {
+        Ok((self.0.clone(), x.shape()))
     }
-    fn backward_from(&self, zero: &A, _: &B) -> Result<A> {
-        Ok(zero.clone())
+    fn backward_from(&self, shape: &A::Shape, _: &B) -> Result<A> {
+        Ok(A::zero_of(shape))
     }
 }
 

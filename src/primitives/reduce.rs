@@ -5,7 +5,7 @@ use crate::combinators::{Duplicate, Fst, Pair, Snd, Then, ZeroMap};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::primitives::Mul;
-use crate::space::{Real, Space};
+use crate::space::{Real, shape_tuple};
 use ndarray::{Array, Dimension};
 
 /// The sum (or, with `mean`, the mean) of all elements of an array, a linear
@@ -113,16 +113,16 @@ impl Compose for FillLike {}
 
 impl<T: Real, D: Dimension> Map<Array<T, D>> for Total {
     type Output = T;
-    type Residual = Array<T, D>;
+    type Residual = D;
     fn forward(&self, x: &Array<T, D>) -> Result<T> {
         Ok(x.sum() / self.divisor::<T>(x.len())?)
     }
-    fn forward_keep(&self, x: &Array<T, D>) -> Result<(T, Array<T, D>)> {
-        Ok((self.forward(x)?, Array::zeros(x.raw_dim())))
+    fn forward_keep(&self, x: &Array<T, D>) -> Result<(T, D)> {
+        Ok((self.forward(x)?, x.raw_dim()))
     }
-    fn backward_from(&self, zeros: &Array<T, D>, dy: &T) -> Result<Array<T, D>> {
-        let fill = *dy / self.divisor::<T>(zeros.len())?;
-        Ok(Array::from_elem(zeros.raw_dim(), fill))
+    fn backward_from(&self, dim: &D, dy: &T) -> Result<Array<T, D>> {
+        let fill = *dy / self.divisor::<T>(dim.size())?;
+        Ok(Array::from_elem(dim.clone(), fill))
     }
 }
 
@@ -135,7 +135,7 @@ impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Total {
 
 impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
     type Output = Array<T, D>;
-    type Residual = Array<T, D>;
+    type Residual = D;
     fn forward(&self, (x, s): &(Array<T, D>, T)) -> Result<Array<T, D>> {
         let total = Total { mean: self.mean };
         Ok(Array::from_elem(
@@ -143,12 +143,18 @@ impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
             *s / total.divisor::<T>(x.len())?,
         ))
     }
-    fn forward_keep(&self, input: &(Array<T, D>, T)) -> Result<(Array<T, D>, Array<T, D>)> {
-        Ok((self.forward(input)?, input.0.zero_like()))
+    fn forward_keep(&self, input: &(Array<T, D>, T)) -> Result<(Array<T, D>, D)> {
+        Ok((self.forward(input)?, input.0.raw_dim()))
     }
-    fn backward_from(&self, zeros: &Array<T, D>, dy: &Array<T, D>) -> Result<(Array<T, D>, T)> {
-        crate::space::same_shape("reverse of a fill", zeros, dy)?;
-        Ok((zeros.clone(), Total { mean: self.mean }.forward(dy)?))
+    fn backward_from(&self, dim: &D, dy: &Array<T, D>) -> Result<(Array<T, D>, T)> {
+        if dy.raw_dim() != *dim {
+            return Err(Error::shape(
+                "reverse of a fill",
+                shape_tuple(dim.slice()),
+                shape_tuple(dy.shape()),
+            ));
+        }
+        Ok((Array::zeros(dim.clone()), Total { mean: self.mean }.forward(dy)?))
     }
 }
 
