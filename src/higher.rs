@@ -62,7 +62,7 @@ where
 fn basis<R: Real, S: Euclidean<R>>(like: &S, i: usize) -> Result<S> {
     let mut coords = vec![R::zero(); like.dimension()];
     coords[i] = R::one();
-    like.from_coordinates_like(&coords)
+    like.rebuild_from_coordinates(&coords)
 }
 
 /// The Jacobian of `f` at `x` as an `m x n` matrix (`m` output coordinates,

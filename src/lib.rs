@@ -62,3 +62,8 @@ pub use higher::{
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
 pub use space::{Euclidean, Pointwise, Real, Scale, Space};
+
+/// The README's code, compiled and run as doc-tests.
+#[cfg(doctest)]
+#[doc = include_str!("../README.md")]
+struct ReadmeExamples;

@@ -139,7 +139,7 @@ pub trait Scale<S>: Space {
 /// let x = (2.0_f64, array![[1.0, 2.0], [3.0, 4.0]]);
 /// assert_eq!(x.dimension(), 5);
 /// assert_eq!(x.coordinates(), vec![2.0, 1.0, 2.0, 3.0, 4.0]);
-/// let y = x.from_coordinates_like(&[0.0, 1.0, 1.0, 1.0, 1.0]).unwrap();
+/// let y = x.rebuild_from_coordinates(&[0.0, 1.0, 1.0, 1.0, 1.0]).unwrap();
 /// assert_eq!(y, (0.0, array![[1.0, 1.0], [1.0, 1.0]]));
 /// ```
 pub trait Euclidean<R: Real>: Scale<R> {
@@ -164,7 +164,7 @@ pub trait Euclidean<R: Real>: Scale<R> {
     }
 
     /// Builds a value shaped like `self` from exactly `self.dimension()` coordinates.
-    fn from_coordinates_like(&self, coords: &[R]) -> Result<Self> {
+    fn rebuild_from_coordinates(&self, coords: &[R]) -> Result<Self> {
         if coords.len() != self.dimension() {
             return Err(Error::Length {
                 operation: "building a value from coordinates",

@@ -111,7 +111,10 @@ fn discard_has_every_order() {
     // The map to () has no output coordinates; its reverse derivative of each
     // order is the zero map on the input.
     let x = 1.5_f64;
-    assert_eq!(Reverse::<f64>::rev(&discard()).forward(&(x, ())).unwrap(), 0.0);
+    assert_eq!(
+        Reverse::<f64>::rev(&discard()).forward(&(x, ())).unwrap(),
+        0.0
+    );
     let r2 = Reverse::<(f64, ())>::rev(&Reverse::<f64>::rev(&discard()));
     assert_eq!(r2.forward(&((x, ()), 2.0)).unwrap(), (0.0, ()));
 }
@@ -176,7 +179,14 @@ fn left_nested_chain_of_1000_evaluates_each_map_once() {
 fn static_left_nesting_evaluates_each_map_once() {
     let count = Rc::new(Cell::new(0));
     let c = || Counting(count.clone());
-    let f = c().then(c()).then(c()).then(c()).then(c()).then(c()).then(c()).then(c());
+    let f = c()
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c());
     f.backward(&0.2, &1.0).unwrap();
     assert_eq!(count.get(), 8);
 }
@@ -197,13 +207,18 @@ fn run_time_chain_matches_static_composite_and_checks_shapes() {
     let x: V = ndarray::array![0.3, -1.2, 2.0];
     let dy: V = ndarray::array![1.0];
     let xd: ArrayD<f64> = x.clone().into_dyn();
-    assert_eq!(chain.forward(&xd).unwrap(), fixed.forward(&x).unwrap().into_dyn());
+    assert_eq!(
+        chain.forward(&xd).unwrap(),
+        fixed.forward(&x).unwrap().into_dyn()
+    );
     assert_eq!(
         chain.backward(&xd, &dy.clone().into_dyn()).unwrap(),
         fixed.backward(&x, &dy).unwrap().into_dyn()
     );
 
-    let err = chain.forward(&Array1::<f64>::zeros(4).into_dyn()).unwrap_err();
+    let err = chain
+        .forward(&Array1::<f64>::zeros(4).into_dyn())
+        .unwrap_err();
     assert_eq!(
         err,
         Error::ChainShape {
@@ -218,7 +233,11 @@ fn run_time_chain_matches_static_composite_and_checks_shapes() {
         .push_affine(ndarray::Array2::zeros((2, 2)), Array1::zeros(2))
         .unwrap_err();
     assert!(err.to_string().contains("stage 4"), "{err}");
-    assert!(err.to_string().contains("expects input of shape (2,), but stage 3 produces shape (1,)"), "{err}");
+    assert!(
+        err.to_string()
+            .contains("expects input of shape (2,), but stage 3 produces shape (1,)"),
+        "{err}"
+    );
     assert_eq!(chain.len(), 3);
 }
 
@@ -227,7 +246,10 @@ fn spaces_refuse_mismatched_shapes() {
     let a: V = Array1::zeros(2);
     let b: V = Array1::zeros(3);
     let err = a.try_add(&b).unwrap_err();
-    assert_eq!(err.to_string(), "adding arrays: expected shape (2,), got (3,)");
+    assert_eq!(
+        err.to_string(),
+        "adding arrays: expected shape (2,), got (3,)"
+    );
     let mut t = (a.clone(), 1.0_f64);
     assert!(t.try_add_assign(&(b, 2.0)).is_err());
     assert_eq!(t, (a, 1.0), "a refused addition leaves the value unchanged");
@@ -241,8 +263,22 @@ proptest! {
     #[test]
     fn coordinates_round_trip(a in vector(3), s in -1.0..1.0f64, m in proptest::collection::vec(-1.0..1.0f64, 4)) {
         let x = (a, (s, ndarray::Array2::from_shape_vec((2, 2), m).unwrap()));
-        let back = x.from_coordinates_like(&x.coordinates()).unwrap();
+        let back = x.rebuild_from_coordinates(&x.coordinates()).unwrap();
         prop_assert_eq!(back, x.clone());
-        prop_assert!(x.from_coordinates_like(&[0.0; 3]).is_err());
+        prop_assert!(x.rebuild_from_coordinates(&[0.0; 3]).is_err());
+    }
+}
+
+#[test]
+fn single_precision_and_fixed_arrays_work_too() {
+    let f = Mul.then(Tanh);
+    let (da, db) = f.backward(&(0.5_f32, 2.0_f32), &1.0).unwrap();
+    let slope = 1.0 - 1.0_f32.tanh().powi(2);
+    assert!((da - 2.0 * slope).abs() < 1e-6 && (db - 0.5 * slope).abs() < 1e-6);
+    let g = Sin.then(Exp);
+    let x = [0.1_f64, 0.2, 0.3];
+    let d = g.backward(&x, &[1.0; 3]).unwrap();
+    for i in 0..3 {
+        assert!((d[i] - x[i].sin().exp() * x[i].cos()).abs() < 1e-14);
     }
 }

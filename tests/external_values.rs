@@ -42,7 +42,10 @@ fn cookbook_bilinear_form() {
 fn cookbook_trace() {
     let a = a3();
     let trace = id().pair(constant(M::eye(3))).then(Mul).then(Total::sum());
-    let f = constant(a.clone()).pair(id()).then(MatMul::plain()).then(trace);
+    let f = constant(a.clone())
+        .pair(id())
+        .then(MatMul::plain())
+        .then(trace);
     let x = array![[0.3, 1.0, -1.0], [2.0, 0.0, 0.5], [1.0, 1.0, 1.0]];
     assert!(close(f.forward(&x).unwrap(), a.dot(&x).diag().sum(), 1e-14));
     assert_matrix_close(&f.backward(&x, &1.0).unwrap(), &a.t().to_owned());
@@ -85,10 +88,18 @@ fn cookbook_least_squares() {
 // Logistic sigmoid derivative s(1 - s) (common practice, no source).
 #[test]
 fn sigmoid_derivative() {
-    for x in [-6.0, -1.0, 0.0, 0.3, 2.5, 9.0] {
-        let s = 1.0 / (1.0 + (-x as f64).exp());
-        assert!(close(Sigmoid.backward(&x, &1.0).unwrap(), s * (1.0 - s), 1e-14));
-        assert!(close(forward_derivative(&Sigmoid, &x, &1.0).unwrap(), s * (1.0 - s), 1e-14));
+    for x in [-6.0_f64, -1.0, 0.0, 0.3, 2.5, 9.0] {
+        let s = 1.0 / (1.0 + (-x).exp());
+        assert!(close(
+            Sigmoid.backward(&x, &1.0).unwrap(),
+            s * (1.0 - s),
+            1e-14
+        ));
+        assert!(close(
+            forward_derivative(&Sigmoid, &x, &1.0).unwrap(),
+            s * (1.0 - s),
+            1e-14
+        ));
     }
 }
 
@@ -104,7 +115,10 @@ fn softmax_jacobian() {
 
 /// Rosenbrock (1960), f(x, y) = (1 - x)^2 + 100 (y - x^2)^2, from the catalogue.
 fn rosenbrock() -> impl Reverse<(f64, f64), Output = f64> {
-    let first = fst().then(constant(1.0).pair(id())).then(Sub).then(Powi::new(2));
+    let first = fst()
+        .then(constant(1.0).pair(id()))
+        .then(Sub)
+        .then(Powi::new(2));
     let second = snd()
         .pair(fst().then(Powi::new(2)))
         .then(Sub)
@@ -125,14 +139,23 @@ fn rosenbrock_values_gradient_and_hessian() {
     let x = (-1.2, 1.0);
     assert!(close(f.forward(&x).unwrap(), 24.2, 1e-14));
     let (gx, gy) = f.backward(&x, &1.0).unwrap();
-    assert!(close(gx, -215.6, 1e-13) && close(gy, -88.0, 1e-13), "{gx} {gy}");
+    assert!(
+        close(gx, -215.6, 1e-13) && close(gy, -88.0, 1e-13),
+        "{gx} {gy}"
+    );
 
     // Closed-form Hessian [[1200x^2 - 400y + 2, -400x], [-400x, 200]].
     let (a, b) = x;
-    let h = [[1200.0 * a * a - 400.0 * b + 2.0, -400.0 * a], [-400.0 * a, 200.0]];
+    let h = [
+        [1200.0 * a * a - 400.0 * b + 2.0, -400.0 * a],
+        [-400.0 * a, 200.0],
+    ];
     for v in [(1.0, 0.0), (0.0, 1.0), (0.3, -2.0)] {
         let hv = hessian_vector(&f, &x, &v).unwrap();
         let want = (h[0][0] * v.0 + h[0][1] * v.1, h[1][0] * v.0 + h[1][1] * v.1);
-        assert!(close(hv.0, want.0, 1e-12) && close(hv.1, want.1, 1e-12), "{hv:?} vs {want:?}");
+        assert!(
+            close(hv.0, want.0, 1e-12) && close(hv.1, want.1, 1e-12),
+            "{hv:?} vs {want:?}"
+        );
     }
 }

@@ -160,11 +160,17 @@ fn stable_at_large_inputs() {
 fn shape_errors_name_both_shapes() {
     let w = Array2::<f64>::zeros((3, 4));
     let err = MatVec::plain().forward(&(w, Array1::zeros(3))).unwrap_err();
-    assert!(err.to_string().contains("(4,)") && err.to_string().contains("(3,)"), "{err}");
+    assert!(
+        err.to_string().contains("(4,)") && err.to_string().contains("(3,)"),
+        "{err}"
+    );
     let err = Mul
         .forward(&(Array1::<f64>::zeros(2), Array1::zeros(3)))
         .unwrap_err();
-    assert_eq!(err.to_string(), "multiplication: expected shape (2,), got (3,)");
+    assert_eq!(
+        err.to_string(),
+        "multiplication: expected shape (2,), got (3,)"
+    );
     let err = MatMul::plain()
         .forward(&(Array2::<f64>::zeros((2, 3)), Array2::zeros((2, 3))))
         .unwrap_err();

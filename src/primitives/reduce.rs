@@ -154,7 +154,10 @@ impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
                 shape_tuple(dy.shape()),
             ));
         }
-        Ok((Array::zeros(dim.clone()), Total { mean: self.mean }.forward(dy)?))
+        Ok((
+            Array::zeros(dim.clone()),
+            Total { mean: self.mean }.forward(dy)?,
+        ))
     }
 }
 

@@ -4,11 +4,12 @@
 
 use revdiff::{Euclidean, Map, Reverse, forward_derivative};
 
-
 /// A value shaped like `like` with coordinates in [-1, 1], from `seed`
 /// (a 64-bit linear congruential generator; any fixed sequence would do).
 pub fn direction_like<S: Euclidean<f64>>(like: &S, seed: u64) -> S {
-    let mut state = seed.wrapping_mul(6364136223846793005).wrapping_add(1442695040888963407);
+    let mut state = seed
+        .wrapping_mul(6364136223846793005)
+        .wrapping_add(1442695040888963407);
     let coords: Vec<f64> = (0..like.dimension())
         .map(|_| {
             state = state
@@ -17,7 +18,7 @@ pub fn direction_like<S: Euclidean<f64>>(like: &S, seed: u64) -> S {
             ((state >> 11) as f64 / (1u64 << 53) as f64) * 2.0 - 1.0
         })
         .collect();
-    like.from_coordinates_like(&coords).unwrap()
+    like.rebuild_from_coordinates(&coords).unwrap()
 }
 
 /// Largest absolute coordinate, at least 1.
@@ -32,9 +33,18 @@ where
     F: Map<A>,
     F::Output: Euclidean<f64>,
 {
-    let plus = f.forward(&x.try_add(&v.scale(h)).unwrap()).unwrap().coordinates();
-    let minus = f.forward(&x.try_add(&v.scale(-h)).unwrap()).unwrap().coordinates();
-    plus.iter().zip(&minus).map(|(p, m)| (p - m) / (2.0 * h)).collect()
+    let plus = f
+        .forward(&x.try_add(&v.scale(h)).unwrap())
+        .unwrap()
+        .coordinates();
+    let minus = f
+        .forward(&x.try_add(&v.scale(-h)).unwrap())
+        .unwrap()
+        .coordinates();
+    plus.iter()
+        .zip(&minus)
+        .map(|(p, m)| (p - m) / (2.0 * h))
+        .collect()
 }
 
 pub fn dot(a: &[f64], b: &[f64]) -> f64 {
@@ -72,7 +82,11 @@ where
     let v = direction_like(x, seed);
     let w = direction_like(&y, seed ^ 0x9e37);
     let back = f.backward(x, &w).unwrap();
-    assert_eq!(back.shape_string(), x.shape_string(), "{label}: backward shape");
+    assert_eq!(
+        back.shape_string(),
+        x.shape_string(),
+        "{label}: backward shape"
+    );
     let h = 1e-5 * scale_of(x);
     let fd = central_difference(f, x, &v, h);
     assert_close(
@@ -105,11 +119,21 @@ where
     let w = direction_like(&y, seed.wrapping_add(1));
     let r1 = f.rev();
     let p1 = (x.clone(), w);
-    check_first_order(&format!("{label} (order 2)"), &r1, &p1, seed.wrapping_add(2));
+    check_first_order(
+        &format!("{label} (order 2)"),
+        &r1,
+        &p1,
+        seed.wrapping_add(2),
+    );
     let u = direction_like(x, seed.wrapping_add(3));
     let r2 = r1.rev();
     let p2 = (p1, u);
-    check_first_order(&format!("{label} (order 3)"), &r2, &p2, seed.wrapping_add(4));
+    check_first_order(
+        &format!("{label} (order 3)"),
+        &r2,
+        &p2,
+        seed.wrapping_add(4),
+    );
 
     let v = direction_like(x, seed.wrapping_add(5));
     let d = forward_derivative(f, x, &v).unwrap();
