@@ -281,8 +281,11 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     type Residual = Vec<Box<dyn Any>>;
     fn forward(&self, x: &ArrayD<T>) -> Result<ArrayD<T>> {
         self.check_input(x)?;
-        let mut y = x.clone();
-        for stage in &self.stages {
+        let Some((first, rest)) = self.stages.split_first() else {
+            return Ok(x.clone());
+        };
+        let mut y = first.map.forward(x)?;
+        for stage in rest {
             y = stage.map.forward(&y)?;
         }
         Ok(y)

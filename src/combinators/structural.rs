@@ -7,7 +7,7 @@ use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Scale, Space};
 
-macro_rules! compose_and_linear {
+macro_rules! compose_for {
     ($($t:ident),*) => {$( impl Compose for $t {} )*};
 }
 
@@ -146,7 +146,7 @@ pub fn scaling<S>(s: S) -> Scaling<S> {
     Scaling(s)
 }
 
-compose_and_linear!(Id, Fst, Snd, Duplicate, Add, Discard, ZeroMap);
+compose_for!(Id, Fst, Snd, Duplicate, Add, Discard, ZeroMap);
 impl<B> Compose for Constant<B> {}
 impl<S> Compose for Scaling<S> {}
 
