@@ -22,6 +22,7 @@
 //! - [`primitives`]: the catalogue (elementwise, linear algebra, reductions, softmax).
 //! - [`higher`]: forward derivatives, Hessian-vector products, Jacobians.
 //! - [`dynamic`]: type-erased maps and run-time chains.
+//! - [`laws`]: checkers that put any map through the laws of reverse derivatives.
 //!
 //! # Example
 //!
@@ -48,6 +49,7 @@ pub mod combinators;
 pub mod dynamic;
 pub mod error;
 pub mod higher;
+pub mod laws;
 pub mod map;
 pub mod primitives;
 pub mod space;
@@ -59,6 +61,7 @@ pub use higher::{
     forward_derivative, hessian_vector, jacobian, jacobian_by_backward, jacobian_by_forward,
     second_reverse,
 };
+pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
 pub use space::{Euclidean, Pointwise, Real, Scale, Space};

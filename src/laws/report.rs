@@ -1,0 +1,268 @@
+//! What a law check found: which laws held, and for each broken one the
+//! smallest case found, the two sides, the error and the tolerance.
+
+use super::case::{Case, Drawn};
+use super::judge::Breach;
+use super::law::{Law, Slot};
+use std::any::Any;
+use std::fmt;
+
+/// One broken law: the law, the order it was checked at, the case (shrunk
+/// by proptest in a sampled check; the first in enumeration order in an
+/// exhaustive one) and the breach.
+pub struct Violation {
+    /// The law.
+    pub law: Law,
+    /// 1 for the map itself, 2 for the law applied to its reverse
+    /// derivative `R[f]` at the input `(x, w)` (see
+    /// [`Case::lift`](crate::laws::Case::lift)).
+    pub order: u8,
+    /// The values the law was broken at, by name, as the report shows them.
+    pub shown: Vec<(Slot, String)>,
+    /// The two sides, the error and the tolerance.
+    pub breach: Breach,
+    drawn: Option<Box<dyn Any>>,
+}
+
+impl Violation {
+    pub(crate) fn new<A: 'static, B: 'static>(
+        law: Law,
+        order: u8,
+        shown: Vec<(Slot, String)>,
+        breach: Breach,
+        drawn: Drawn<A, B>,
+    ) -> Self {
+        Violation {
+            law,
+            order,
+            shown,
+            breach,
+            drawn: Some(Box::new(drawn)),
+        }
+    }
+
+    pub(crate) fn without_case(law: Law, order: u8, breach: Breach) -> Self {
+        Violation {
+            law,
+            order,
+            shown: Vec::new(),
+            breach,
+            drawn: None,
+        }
+    }
+
+    /// The case the law was broken at, typed: `A` the input space, `B` the
+    /// output space of the checked map. `None` if the types are not those,
+    /// or if the map could not be evaluated at the input at all (then see
+    /// [`input`](Self::input)).
+    pub fn case<A: 'static, B: 'static>(&self) -> Option<&Case<A, B>> {
+        match self.drawn.as_ref()?.downcast_ref::<Drawn<A, B>>()? {
+            Drawn::Case(c) => Some(c),
+            Drawn::Unevaluable { .. } => None,
+        }
+    }
+
+    /// The input the law was broken at, typed as in [`case`](Self::case).
+    pub fn input<A: 'static, B: 'static>(&self) -> Option<&A> {
+        match self.drawn.as_ref()?.downcast_ref::<Drawn<A, B>>()? {
+            Drawn::Case(c) => Some(&c.x),
+            Drawn::Unevaluable { x, .. } => Some(x),
+        }
+    }
+}
+
+impl fmt::Debug for Violation {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.debug_struct("Violation")
+            .field("law", &self.law)
+            .field("order", &self.order)
+            .field("shown", &self.shown)
+            .field("breach", &self.breach)
+            .finish_non_exhaustive()
+    }
+}
+
+impl fmt::Display for Violation {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let at = if self.order == 2 {
+            ", order 2 (applied to R[f] at the input (x, w))"
+        } else {
+            ""
+        };
+        writeln!(f, "BROKEN {}{at}", self.law)?;
+        writeln!(f, "    law          {}", self.law.statement())?;
+        for (slot, value) in &self.shown {
+            let label = format!("{} {}", slot.role(), slot.name());
+            writeln!(f, "    {label:<18} {value}")?;
+        }
+        if !self.breach.expected.is_empty() {
+            writeln!(f, "    expected     {}", self.breach.expected)?;
+            writeln!(f, "    observed     {}", self.breach.observed)?;
+        }
+        if let (Some(e), Some(t)) = (self.breach.error, self.breach.tolerance) {
+            writeln!(f, "    error        {e:.3e}, allowed {t:.3e}")?;
+        }
+        writeln!(f, "    measure      {}", self.breach.measure)
+    }
+}
+
+/// A law that was checked, how often, and whether it held.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Checked {
+    /// The law.
+    pub law: Law,
+    /// The order it was checked at.
+    pub order: u8,
+    /// The cases it held at (up to the first violation, if any).
+    pub cases: u64,
+    /// Whether it held at every case.
+    pub held: bool,
+}
+
+/// The result of a law check: one entry per law and order checked, and a
+/// [`Violation`] for each broken one.
+///
+/// Its `Display` is the report to read; [`assert_clean`](Self::assert_clean)
+/// panics with it, which is what a `#[test]` wants.
+///
+/// ```
+/// use revdiff::laws::{Checker, Law};
+/// use revdiff::Sin;
+///
+/// let report = Checker::new().reverse(&Sin, -3.0..3.0f64);
+/// assert!(report.is_clean());
+/// assert!(report.checked().iter().any(|c| c.law == Law::Symmetric && c.order == 2));
+/// ```
+#[derive(Debug)]
+pub struct LawReport {
+    subject: String,
+    mode: String,
+    checked: Vec<Checked>,
+    violations: Vec<Violation>,
+}
+
+impl LawReport {
+    pub(crate) fn new(subject: String, mode: String) -> Self {
+        LawReport {
+            subject,
+            mode,
+            checked: Vec::new(),
+            violations: Vec::new(),
+        }
+    }
+
+    pub(crate) fn record(&mut self, law: Law, order: u8, cases: u64, violation: Option<Violation>) {
+        self.checked.push(Checked {
+            law,
+            order,
+            cases,
+            held: violation.is_none(),
+        });
+        self.violations.extend(violation);
+    }
+
+    /// Appends another report's findings (for a check made of several).
+    pub fn merge(mut self, other: LawReport) -> Self {
+        self.checked.extend(other.checked);
+        self.violations.extend(other.violations);
+        self
+    }
+
+    /// True if every law held.
+    pub fn is_clean(&self) -> bool {
+        self.violations.is_empty()
+    }
+
+    /// The broken laws.
+    pub fn violations(&self) -> &[Violation] {
+        &self.violations
+    }
+
+    /// The violation of `law` at `order`, if it was broken.
+    pub fn violation(&self, law: Law, order: u8) -> Option<&Violation> {
+        self.violations
+            .iter()
+            .find(|v| v.law == law && v.order == order)
+    }
+
+    /// Every law and order checked.
+    pub fn checked(&self) -> &[Checked] {
+        &self.checked
+    }
+
+    /// What was checked: the map's type, shortened.
+    pub fn subject(&self) -> &str {
+        &self.subject
+    }
+
+    /// Panics with the report if a law was broken.
+    #[track_caller]
+    pub fn assert_clean(&self) {
+        if !self.is_clean() {
+            panic!("{self}");
+        }
+    }
+}
+
+impl fmt::Display for LawReport {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let broken = self.violations.len();
+        writeln!(
+            f,
+            "law check of {} ({}): {} of {} checks broken",
+            self.subject,
+            self.mode,
+            broken,
+            self.checked.len()
+        )?;
+        for v in &self.violations {
+            writeln!(f)?;
+            write!(f, "{v}")?;
+        }
+        let held: Vec<String> = self
+            .checked
+            .iter()
+            .filter(|c| c.held)
+            .map(|c| format!("{} at order {} ({} cases)", c.law, c.order, c.cases))
+            .collect();
+        if !held.is_empty() {
+            writeln!(f)?;
+            writeln!(f, "held: {}", held.join("; "))?;
+        }
+        Ok(())
+    }
+}
+
+/// The type name of `T` without module paths:
+/// `revdiff::combinators::compose::Then<revdiff::primitives::pointwise::Exp, ...>`
+/// becomes `Then<Exp, ...>`.
+pub(crate) fn short_type_name<T: ?Sized>() -> String {
+    let full = std::any::type_name::<T>();
+    let mut out = String::with_capacity(full.len());
+    let mut segment = String::new();
+    for ch in full.chars() {
+        if ch.is_alphanumeric() || ch == '_' || ch == ':' {
+            segment.push(ch);
+        } else {
+            out.push_str(segment.rsplit("::").next().unwrap_or(""));
+            segment.clear();
+            out.push(ch);
+        }
+    }
+    out.push_str(segment.rsplit("::").next().unwrap_or(""));
+    out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::short_type_name;
+
+    #[test]
+    fn type_names_lose_their_paths() {
+        assert_eq!(
+            short_type_name::<crate::Then<crate::Exp, crate::Sin>>(),
+            "Then<Exp, Sin>"
+        );
+        assert_eq!(short_type_name::<(f64, Vec<u8>)>(), "(f64, Vec<u8>)");
+    }
+}

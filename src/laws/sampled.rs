@@ -1,0 +1,533 @@
+//! The sampling checker: laws checked at cases drawn by proptest, each
+//! failure shrunk to the smallest case proptest finds.
+
+use super::case::{Case, CaseSource, Drawn, panic_message};
+use super::judge::{Breach, JudgeIn, Outcome, Tolerance};
+use super::law::{Law, Slot};
+use super::pairs;
+use super::report::{LawReport, Violation, short_type_name};
+use super::single::{map_law_real, reverse_law_real};
+use crate::combinators::{Pair, Sum, Then};
+use crate::error::{Error, Result};
+use crate::map::{Map, Reverse};
+use crate::space::{Euclidean, Real, Space};
+use proptest::strategy::Strategy;
+use proptest::test_runner::{
+    Config, RngAlgorithm, TestCaseError, TestError, TestRng, TestRunner,
+};
+use std::cell::Cell;
+use std::panic::{AssertUnwindSafe, catch_unwind};
+use std::sync::Once;
+
+/// Checks maps against the laws at cases drawn from proptest strategies.
+///
+/// Each law is checked at [`cases`](Self::cases) drawn cases (256 by
+/// default), from a fixed [`seed`](Self::seed) so that a check gives the
+/// same answer on every run; a broken law is shrunk to the smallest case
+/// proptest can find and re-evaluated there for the report. A map that
+/// panics, returns an error or returns NaN breaks a law at that input; the
+/// checker itself does not panic.
+///
+/// Inputs come from any proptest strategy (see [`strategies`](super::strategies)
+/// for ready ones); output changes are shaped like the map's output unless
+/// given with [`with_output_changes`](super::with_output_changes).
+///
+/// # Example
+///
+/// A hand-written primitive `x -> x^2` whose backward pass forgot the 2:
+///
+/// ```
+/// use revdiff::laws::{Checker, Law};
+/// use revdiff::{Compose, Map, Result};
+///
+/// #[derive(Clone, Debug)]
+/// struct Square;
+/// impl Compose for Square {}
+/// impl Map<f64> for Square {
+///     type Output = f64;
+///     type Residual = f64;
+///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///         Ok((x * x, *x))
+///     }
+///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///         Ok(x * dy) // should be 2 x dy
+///     }
+/// }
+///
+/// let report = Checker::new().map(&Square, -3.0..3.0f64);
+/// let broken = report.violation(Law::Derivative, 1).expect("caught");
+/// let case = broken.case::<f64, f64>().unwrap();
+/// assert!(case.x != 0.0); // at x = 0 the wrong slope is right
+/// println!("{report}");
+/// ```
+#[derive(Clone, Debug)]
+pub struct Checker<R = f64> {
+    tolerance: Tolerance<R>,
+    cases: u32,
+    seed: u64,
+}
+
+impl<R: Real> Default for Checker<R> {
+    fn default() -> Self {
+        Checker {
+            tolerance: Tolerance::default(),
+            cases: 256,
+            seed: 0x7265_7664_6966_66,
+        }
+    }
+}
+
+thread_local! {
+    static QUIET: Cell<bool> = const { Cell::new(false) };
+}
+
+/// Runs `check`, turning a panic into a breach. While it runs, panics on
+/// this thread are not printed (the report says what happened); other
+/// threads' panics print as before.
+pub(crate) fn guarded(check: impl FnOnce() -> Outcome) -> Outcome {
+    static HOOK: Once = Once::new();
+    HOOK.call_once(|| {
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            if !QUIET.with(Cell::get) {
+                previous(info);
+            }
+        }));
+    });
+    let was = QUIET.with(|q| q.replace(true));
+    let result = catch_unwind(AssertUnwindSafe(check));
+    QUIET.with(|q| q.set(was));
+    result.unwrap_or_else(|payload| {
+        Err(Breach::failure(format!(
+            "the map panicked: {}",
+            panic_message(&*payload)
+        )))
+    })
+}
+
+/// The values a law uses, as a judge shows them.
+pub(crate) fn show_case<A: Space, B: Space, J: JudgeIn<A> + JudgeIn<B>>(
+    judge: &J,
+    law: Law,
+    c: &Case<A, B>,
+) -> Vec<(Slot, String)> {
+    law.slots()
+        .iter()
+        .map(|&slot| {
+            let shown = match slot {
+                Slot::X => judge.show(&c.x),
+                Slot::V => judge.show(&c.v),
+                Slot::U => judge.show(&c.u),
+                Slot::W => judge.show(&c.w),
+                Slot::W2 => judge.show(&c.w2),
+                Slot::S => c.s.to_string(),
+            };
+            (slot, shown)
+        })
+        .collect()
+}
+
+/// 32 seed bytes from a 64-bit seed and the check's place (splitmix64).
+fn seed_bytes(seed: u64, law: Law, order: u8) -> [u8; 32] {
+    let mut state = seed ^ ((law as u64) << 8 | order as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+    let mut out = [0u8; 32];
+    for chunk in out.chunks_mut(8) {
+        state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+        let mut z = state;
+        z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+        chunk.copy_from_slice(&(z ^ (z >> 31)).to_le_bytes());
+    }
+    out
+}
+
+impl<R: Real> Checker<R> {
+    /// A checker with the default tolerance, 256 cases per law and a fixed
+    /// seed.
+    pub fn new() -> Self {
+        Self::default()
+    }
+
+    /// Checks each law at `n` drawn cases. Zero cases is an
+    /// [`Error::InvalidSetting`]: a check of nothing would pass anything.
+    pub fn cases(mut self, n: u32) -> Result<Self> {
+        if n == 0 {
+            return Err(Error::InvalidSetting {
+                name: "cases",
+                value: n.to_string(),
+                reason: "a law check needs at least one case",
+            });
+        }
+        self.cases = n;
+        Ok(self)
+    }
+
+    /// Draws cases from `seed` (every seed gives a reproducible check).
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = seed;
+        self
+    }
+
+    /// Uses the tolerance policy `tolerance`.
+    pub fn tolerance(mut self, tolerance: Tolerance<R>) -> Self {
+        self.tolerance = tolerance;
+        self
+    }
+
+    /// The tolerance policy in use.
+    pub fn tolerance_policy(&self) -> &Tolerance<R> {
+        &self.tolerance
+    }
+
+    /// Checks the laws of [`Law::FOR_MAPS`] on a map without a reverse map.
+    pub fn map<A, F, C>(&self, f: &F, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Map<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        let checks: Vec<(Law, u8)> = Law::FOR_MAPS.iter().map(|&l| (l, 1)).collect();
+        self.map_checks(f, cases, &checks)
+    }
+
+    /// Checks one law of [`Law::FOR_MAPS`] on a map without a reverse map
+    /// (what each test of [`law_tests!`](crate::law_tests) runs).
+    pub fn map_law<A, F, C>(&self, law: Law, f: &F, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Map<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        self.map_checks(f, cases, &[(law, 1)])
+    }
+
+    fn map_checks<A, F, C>(&self, f: &F, cases: C, checks: &[(Law, u8)]) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Map<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<F>(),
+            checks,
+            &cases.cases(f),
+            |law, _, c| {
+                map_law_real(tol, law, f, c).unwrap_or_else(|| Err(not_for_maps(law)))
+            },
+        )
+    }
+
+    /// Checks every law of [`Law::FOR_REVERSE`] at orders 1 and 2 on a map
+    /// with a reverse map. At order 2 each law is applied to `R[f]` at the
+    /// input `(x, w)` (see [`Case::lift`]), which checks the reverse map's
+    /// own derivative, so a reverse map that gives the right values but the
+    /// wrong second derivative is caught.
+    pub fn reverse<A, F, C>(&self, f: &F, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Reverse<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        let checks: Vec<(Law, u8)> = [1, 2]
+            .into_iter()
+            .flat_map(|order| Law::FOR_REVERSE.iter().map(move |&l| (l, order)))
+            .collect();
+        self.reverse_checks(f, cases, &checks)
+    }
+
+    /// Checks one law of [`Law::FOR_REVERSE`] at `order` (1 or 2).
+    pub fn reverse_law<A, F, C>(&self, law: Law, order: u8, f: &F, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Reverse<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        self.reverse_checks(f, cases, &[(law, order)])
+    }
+
+    fn reverse_checks<A, F, C>(&self, f: &F, cases: C, checks: &[(Law, u8)]) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Reverse<A>,
+        F::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, F::Output>,
+    {
+        let tol = &self.tolerance;
+        let rev = f.rev();
+        self.run(
+            short_type_name::<F>(),
+            checks,
+            &cases.cases(f),
+            |law, order, c| {
+                let outcome = match order {
+                    1 => reverse_law_real(tol, law, f, c),
+                    2 => reverse_law_real(tol, law, &rev, &c.lift()),
+                    _ => return Err(Breach::failure("laws are checked at orders 1 and 2")),
+                };
+                outcome.unwrap_or_else(|| Err(not_for_maps(law)))
+            },
+        )
+    }
+
+    /// Checks that `a` and `b` are the same map: equal values and backward
+    /// passes ([`Law::SameMap`] at order 1).
+    pub fn same_map<A, M, N, C>(&self, a: &M, b: &N, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        M: Map<A>,
+        M::Output: Euclidean<R> + 'static,
+        N: Map<A, Output = M::Output>,
+        C: CaseSource<R, A, M::Output>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<M>(),
+            &[(Law::SameMap, 1)],
+            &cases.cases(a),
+            |_, _, c| pairs::same_map(tol, a, b, c),
+        )
+    }
+
+    /// [`same_map`](Self::same_map), and equal second reverse derivatives
+    /// ([`Law::SameMap`] at order 2), for maps with reverse maps.
+    pub fn same_reverse<A, M, N, C>(&self, a: &M, b: &N, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        M: Reverse<A>,
+        M::Output: Euclidean<R> + 'static,
+        N: Reverse<A, Output = M::Output>,
+        C: CaseSource<R, A, M::Output>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<M>(),
+            &[(Law::SameMap, 1), (Law::SameMap, 2)],
+            &cases.cases(a),
+            |_, order, c| match order {
+                1 => pairs::same_map(tol, a, b, c),
+                _ => pairs::same_second_order(tol, a, b, c),
+            },
+        )
+    }
+
+    /// Checks that `h` (a hand-fused kernel, say) equals `f` then `g`:
+    /// the same values and the chain rule's backward pass.
+    pub fn chain_rule<A, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Map<A>,
+        G: Map<F::Output>,
+        H: Map<A, Output = G::Output>,
+        G::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, G::Output>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::ChainRule, 1)],
+            &cases.cases(h),
+            |_, _, c| pairs::chain_rule(tol, h, f, g, c),
+        )
+    }
+
+    /// [`chain_rule`](Self::chain_rule), and the second reverse derivative
+    /// of `h` against that of the library's composite `f.then(g)`.
+    pub fn chain_rule_reverse<A, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        F: Reverse<A>,
+        G: Reverse<F::Output>,
+        H: Reverse<A, Output = G::Output>,
+        G::Output: Euclidean<R> + 'static,
+        C: CaseSource<R, A, G::Output>,
+        Then<F, G>: Reverse<A, Output = G::Output>,
+    {
+        let composite = f.clone().then(g.clone());
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::ChainRule, 1), (Law::SameMap, 2)],
+            &cases.cases(h),
+            |law, _, c| match law {
+                Law::ChainRule => pairs::chain_rule(tol, h, f, g, c),
+                _ => pairs::same_second_order(tol, h, &composite, c),
+            },
+        )
+    }
+
+    /// Checks that `h` equals the pairing `<f, g>`: the same values, the
+    /// summed backward pass ([`Law::Pairing`]) and the projections
+    /// ([`Law::Projection`]).
+    pub fn pairing<A, B, D, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+        D: Euclidean<R> + 'static,
+        F: Map<A, Output = B>,
+        G: Map<A, Output = D>,
+        H: Map<A, Output = (B, D)>,
+        C: CaseSource<R, A, (B, D)>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::Pairing, 1), (Law::Projection, 1)],
+            &cases.cases(h),
+            |law, _, c| match law {
+                Law::Pairing => pairs::pairing(tol, h, f, g, c),
+                _ => pairs::projection(tol, h, f, g, c),
+            },
+        )
+    }
+
+    /// [`pairing`](Self::pairing), and the second reverse derivative of `h`
+    /// against that of the library's `f.pair(g)`.
+    pub fn pairing_reverse<A, B, D, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+        D: Euclidean<R> + 'static,
+        F: Reverse<A, Output = B>,
+        G: Reverse<A, Output = D>,
+        H: Reverse<A, Output = (B, D)>,
+        C: CaseSource<R, A, (B, D)>,
+        Pair<F, G>: Reverse<A, Output = (B, D)>,
+    {
+        let composite = f.clone().pair(g.clone());
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::Pairing, 1), (Law::Projection, 1), (Law::SameMap, 2)],
+            &cases.cases(h),
+            |law, _, c| match law {
+                Law::Pairing => pairs::pairing(tol, h, f, g, c),
+                Law::Projection => pairs::projection(tol, h, f, g, c),
+                _ => pairs::same_second_order(tol, h, &composite, c),
+            },
+        )
+    }
+
+    /// Checks that `h` equals the sum `f + g`: the same values and the
+    /// summed backward pass.
+    pub fn sum_rule<A, B, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+        F: Map<A, Output = B>,
+        G: Map<A, Output = B>,
+        H: Map<A, Output = B>,
+        C: CaseSource<R, A, B>,
+    {
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::SumRule, 1)],
+            &cases.cases(h),
+            |_, _, c| pairs::sum_rule(tol, h, f, g, c),
+        )
+    }
+
+    /// [`sum_rule`](Self::sum_rule), and the second reverse derivative of
+    /// `h` against that of the library's `f.plus(g)`.
+    pub fn sum_rule_reverse<A, B, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+        F: Reverse<A, Output = B>,
+        G: Reverse<A, Output = B>,
+        H: Reverse<A, Output = B>,
+        C: CaseSource<R, A, B>,
+        Sum<F, G>: Reverse<A, Output = B>,
+    {
+        let composite = f.clone().plus(g.clone());
+        let tol = &self.tolerance;
+        self.run(
+            short_type_name::<H>(),
+            &[(Law::SumRule, 1), (Law::SameMap, 2)],
+            &cases.cases(h),
+            |law, _, c| match law {
+                Law::SumRule => pairs::sum_rule(tol, h, f, g, c),
+                _ => pairs::same_second_order(tol, h, &composite, c),
+            },
+        )
+    }
+
+    /// Runs each check over the strategy, shrinking failures, and collects
+    /// the report.
+    fn run<A, B, S>(
+        &self,
+        subject: String,
+        checks: &[(Law, u8)],
+        strategy: &S,
+        eval: impl Fn(Law, u8, &Case<A, B>) -> Outcome,
+    ) -> LawReport
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+        S: Strategy<Value = Drawn<A, B>>,
+    {
+        let mut report = LawReport::new(
+            subject,
+            format!("{} drawn cases per law, seed {:#x}", self.cases, self.seed),
+        );
+        for &(law, order) in checks {
+            let judged = |d: &Drawn<A, B>| -> Outcome {
+                match d {
+                    Drawn::Case(c) => guarded(|| eval(law, order, c)),
+                    Drawn::Unevaluable { reason, .. } => Err(Breach::failure(reason.clone())),
+                }
+            };
+            let config = Config {
+                cases: self.cases,
+                failure_persistence: None,
+                ..Config::default()
+            };
+            let rng = TestRng::from_seed(RngAlgorithm::ChaCha, &seed_bytes(self.seed, law, order));
+            let mut runner = TestRunner::new_with_rng(config, rng);
+            let result = runner.run(strategy, |d| {
+                judged(&d).map_err(|b| TestCaseError::fail(b.summary()))
+            });
+            let violation = match result {
+                Ok(()) => None,
+                Err(TestError::Fail(_, drawn)) => {
+                    let breach = judged(&drawn).err().unwrap_or_else(|| {
+                        Breach::failure("broken while shrinking, but holds when re-run: the map is not deterministic")
+                    });
+                    Some(self.violation(law, order, breach, drawn))
+                }
+                Err(TestError::Abort(why)) => Some(Violation::without_case(
+                    law,
+                    order,
+                    Breach::failure(format!("the case generator gave up: {why}")),
+                )),
+            };
+            let cases = if violation.is_none() { u64::from(self.cases) } else { 0 };
+            report.record(law, order, cases, violation);
+        }
+        report
+    }
+
+    fn violation<A, B>(&self, law: Law, order: u8, breach: Breach, drawn: Drawn<A, B>) -> Violation
+    where
+        A: Euclidean<R> + 'static,
+        B: Euclidean<R> + 'static,
+    {
+        let shown = match &drawn {
+            Drawn::Case(c) => show_case(&self.tolerance, law, c),
+            Drawn::Unevaluable { x, .. } => vec![(Slot::X, self.tolerance.show(x))],
+        };
+        Violation::new(law, order, shown, breach, drawn)
+    }
+}
+
+fn not_for_maps(law: Law) -> Breach {
+    Breach::failure(format!(
+        "{law} is not a law of one map; use the pair checks for it"
+    ))
+}
