@@ -3,7 +3,9 @@
 use crate::map::Map;
 use crate::space::{Euclidean, Real, Space};
 use proptest::prelude::*;
+use std::cell::Cell;
 use std::panic::{AssertUnwindSafe, catch_unwind};
+use std::sync::Once;
 
 /// The values one check of a law is made at: an input, two input changes,
 /// two output changes and a real scalar. Each law uses some of them (see
@@ -120,15 +122,10 @@ fn coordinate() -> impl Strategy<Value = f64> + Clone {
 }
 
 /// A strategy of values shaped like `template` with coordinates in
-/// `[-1, 1]`, shrinking towards coordinates 0, 1 and -1.
-pub fn changes_like<R: Real, S: Euclidean<R>>(template: S) -> impl Strategy<Value = S> + Clone {
-    let n = template.dimension();
-    proptest::collection::vec(coordinate(), n).prop_map(move |c| {
-        let coords: Vec<R> = c.into_iter().map(|v| R::from(v).unwrap_or_else(R::nan)).collect();
-        template
-            .rebuild_from_coordinates(&coords)
-            .unwrap_or_else(|_| template.clone())
-    })
+/// `[-1, 1]`: the changes the checkers draw. Up to 32 coordinates shrink one
+/// by one towards 0, 1 and -1; larger values come from a drawn seed.
+pub fn changes_like<R: Real, S: Euclidean<R>>(template: S) -> impl Strategy<Value = S> {
+    coordinates(template.dimension()).prop_map(move |c| shaped(&template, &c))
 }
 
 /// Evaluates `f` at `x`, turning errors and panics into a reason.
@@ -136,11 +133,37 @@ pub(crate) fn evaluate<A: Space, F: Map<A>>(
     f: &F,
     x: &A,
 ) -> std::result::Result<F::Output, String> {
-    match catch_unwind(AssertUnwindSafe(|| f.forward(x))) {
+    match quietly(|| f.forward(x)) {
         Ok(Ok(y)) => Ok(y),
         Ok(Err(e)) => Err(format!("the forward pass returned an error: {e}")),
-        Err(payload) => Err(format!("the forward pass panicked: {}", panic_message(&*payload))),
+        Err(payload) => Err(format!(
+            "the forward pass panicked: {}",
+            panic_message(&*payload)
+        )),
     }
+}
+
+thread_local! {
+    static QUIET: Cell<bool> = const { Cell::new(false) };
+}
+
+/// Runs `run`, catching a panic. While it runs, panics on this thread are
+/// not printed (the report says what happened); other threads' panics print
+/// as before.
+pub(crate) fn quietly<T>(run: impl FnOnce() -> T) -> std::thread::Result<T> {
+    static HOOK: Once = Once::new();
+    HOOK.call_once(|| {
+        let previous = std::panic::take_hook();
+        std::panic::set_hook(Box::new(move |info| {
+            if !QUIET.with(Cell::get) {
+                previous(info);
+            }
+        }));
+    });
+    let was = QUIET.with(|q| q.replace(true));
+    let result = catch_unwind(AssertUnwindSafe(run));
+    QUIET.with(|q| q.set(was));
+    result
 }
 
 /// The message of a caught panic.
@@ -158,6 +181,87 @@ fn scalar() -> std::ops::Range<f64> {
     -4.0..4.0
 }
 
+/// A value shaped like `template` from drawn coordinates, reused cyclically
+/// if the template has more coordinates than were drawn.
+fn shaped<R: Real, S: Euclidean<R>>(template: &S, drawn: &[f64]) -> S {
+    let n = template.dimension();
+    if drawn.is_empty() {
+        return template.zero_like();
+    }
+    let coords: Vec<R> = (0..n)
+        .map(|i| R::from(drawn[i % drawn.len()]).unwrap_or_else(R::nan))
+        .collect();
+    template
+        .rebuild_from_coordinates(&coords)
+        .unwrap_or_else(|_| template.zero_like())
+}
+
+/// How many change coordinates to draw: the largest input and output
+/// dimensions among a few inputs drawn from a fixed seed. Drawing the
+/// coordinates independently of the input (rather than from it, with a
+/// dependent strategy) lets proptest shrink inputs and changes separately,
+/// and quickly; inputs of other dimensions reuse the coordinates cyclically.
+fn probe_dimensions<R, A, F, SX>(inputs: &SX, f: &F) -> (usize, usize)
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Map<A>,
+    F::Output: Euclidean<R>,
+    SX: Strategy<Value = A>,
+{
+    use proptest::strategy::ValueTree;
+    use proptest::test_runner::TestRunner;
+    const PROBES: usize = 8;
+    let mut runner = TestRunner::deterministic();
+    let (mut nx, mut ny) = (1, 1);
+    for _ in 0..PROBES {
+        if let Ok(tree) = inputs.new_tree(&mut runner) {
+            let x = tree.current();
+            nx = nx.max(x.dimension());
+            if let Ok(y) = evaluate(f, &x) {
+                ny = ny.max(y.dimension());
+            }
+        }
+    }
+    (nx, ny)
+}
+
+/// Up to this many coordinates, each is drawn and shrunk on its own; above
+/// it, all are made from one drawn seed.
+pub(crate) const SHRINK_EACH_UP_TO: usize = 32;
+
+/// `n` change coordinates. Small changes shrink coordinate by coordinate
+/// towards 0, 1 and -1, which makes a readable counterexample; large ones
+/// are made from a drawn seed (proptest's per-coordinate trees cost about a
+/// microsecond per coordinate, which dominates a check of a 10,000-element
+/// map, and a shrunk 10,000-element change is not readable anyway).
+fn coordinates(n: usize) -> BoxedStrategy<Vec<f64>> {
+    if n <= SHRINK_EACH_UP_TO {
+        proptest::collection::vec(coordinate(), n).boxed()
+    } else {
+        any::<u64>()
+            .prop_map(move |seed| seeded_uniform(seed, n, -1.0, 1.0))
+            .boxed()
+    }
+}
+
+/// `n` numbers uniform in `[lo, hi)` from `seed` (splitmix64; any fixed
+/// generator would do).
+pub(crate) fn seeded_uniform(seed: u64, n: usize, lo: f64, hi: f64) -> Vec<f64> {
+    let mut state = seed;
+    (0..n)
+        .map(|_| {
+            state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+            let mut z = state;
+            z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+            z ^= z >> 31;
+            let unit = (z >> 11) as f64 / (1u64 << 53) as f64;
+            lo + (hi - lo) * unit
+        })
+        .collect()
+}
+
 impl<R, A, B, SX> CaseSource<R, A, B> for SX
 where
     R: Real,
@@ -173,45 +277,26 @@ where
         A: 'a,
         B: 'a,
     {
-        self.prop_flat_map(move |x| {
-            let y = evaluate(f, &x);
-            let template = y.as_ref().ok().cloned();
-            let n = template.as_ref().map_or(0, |t| t.dimension());
-            let w = proptest::collection::vec(coordinate(), n);
-            (
-                Just((x.clone(), y.err())),
-                changes_like(x.clone()),
-                changes_like(x),
-                w.clone(),
-                w,
-                scalar(),
-                Just(template),
-            )
-        })
-        .prop_map(|((x, failure), v, u, w, w2, s, template)| {
-            match (template, failure) {
-                (Some(t), _) => {
-                    let shape = |c: Vec<f64>| {
-                        let coords: Vec<R> =
-                            c.into_iter().map(|v| R::from(v).unwrap_or_else(R::nan)).collect();
-                        t.rebuild_from_coordinates(&coords)
-                            .unwrap_or_else(|_| t.clone())
-                    };
-                    Drawn::Case(Case {
-                        x,
-                        v,
-                        u,
-                        w: shape(w),
-                        w2: shape(w2),
-                        s,
-                    })
-                }
-                (None, failure) => Drawn::Unevaluable {
+        let (nx, ny) = probe_dimensions(self, f);
+        (
+            self,
+            coordinates(nx),
+            coordinates(nx),
+            coordinates(ny),
+            coordinates(ny),
+            scalar(),
+        )
+            .prop_map(move |(x, v, u, w, w2, s)| match evaluate(f, &x) {
+                Ok(y) => Drawn::Case(Case {
+                    v: shaped(&x, &v),
+                    u: shaped(&x, &u),
+                    w: shaped(&y, &w),
+                    w2: shaped(&y, &w2),
                     x,
-                    reason: failure.unwrap_or_default(),
-                },
-            }
-        })
+                    s,
+                }),
+                Err(reason) => Drawn::Unevaluable { x, reason },
+            })
     }
 }
 
@@ -231,15 +316,28 @@ where
         A: 'a,
         B: 'a,
     {
-        let inputs = (&self.inputs)
-            .prop_flat_map(|x| (Just(x.clone()), changes_like(x.clone()), changes_like(x)));
+        use proptest::strategy::ValueTree;
+        let mut runner = proptest::test_runner::TestRunner::deterministic();
+        let nx = (0..8)
+            .filter_map(|_| self.inputs.new_tree(&mut runner).ok())
+            .map(|t| t.current().dimension())
+            .fold(1, usize::max);
         (
-            inputs,
+            &self.inputs,
+            coordinates(nx),
+            coordinates(nx),
             proptest::array::uniform2(&self.output_changes),
             scalar(),
         )
-            .prop_map(|((x, v, u), [w, w2], s)| {
-                Drawn::Case(Case { x, v, u, w, w2, s })
+            .prop_map(|(x, v, u, [w, w2], s)| {
+                Drawn::Case(Case {
+                    v: shaped(&x, &v),
+                    u: shaped(&x, &u),
+                    x,
+                    w,
+                    w2,
+                    s,
+                })
             })
     }
 }

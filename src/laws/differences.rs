@@ -57,7 +57,11 @@ pub(crate) fn derivative_at_zero<R: Real>(
     // smooth enough for extrapolation (x |x| at 0).
     let wide = extrapolate(&phi, h)?;
     let narrow = extrapolate(&phi, h / (two * two))?;
-    let best = if narrow.error <= wide.error { narrow } else { wide };
+    let best = if narrow.error <= wide.error {
+        narrow
+    } else {
+        wide
+    };
     let error = best.error.max((wide.value - narrow.value).abs());
     if error.is_finite() && best.value.is_finite() {
         Ok(Estimate {
@@ -75,9 +79,12 @@ fn extrapolate<R: Real>(
     mut h: R,
 ) -> std::result::Result<Estimate<R>, String> {
     let two = R::one() + R::one();
+    // The largest |phi| seen: rounding in phi is relative to it.
+    let largest = std::cell::Cell::new(R::zero());
     let central = |h: R| -> std::result::Result<R, String> {
         let up = phi(h).map_err(|e| e.to_string())?;
         let down = phi(-h).map_err(|e| e.to_string())?;
+        largest.set(largest.get().max(up.abs()).max(down.abs()));
         Ok((up - down) / (two * h))
     };
     let shrink = R::from(SHRINK).unwrap_or(two);
@@ -113,6 +120,10 @@ fn extrapolate<R: Real>(
         }
         previous = current;
     }
+    // A floor for the error: rounding of phi, divided by the smallest step,
+    // which the tableau's own estimate can miss when every entry is tiny.
+    let rounding = R::from(16.0).unwrap_or(two) * R::epsilon() * largest.get() / h;
+    best.error = best.error.max(rounding);
     Ok(best)
 }
 

@@ -339,7 +339,7 @@ impl<K: ExactScalar> Exhaustive<K> {
         A: ExactPairing<K> + 'static,
         B: ExactPairing<K> + 'static,
     {
-        let shown: Vec<(Slot, String)> = show_case(&self.judge, law, &case)
+        let shown: Vec<(Slot, String)> = show_case(&self.judge, law, order, &case)
             .into_iter()
             .filter(|(slot, _)| *slot != Slot::S)
             .collect();

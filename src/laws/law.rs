@@ -174,7 +174,9 @@ impl Law {
             Law::Pairing => {
                 "h(x) = (f(x), g(x)) and R[h](x, (w.0, w.1)) = R[f](x, w.0) + R[g](x, w.1)"
             }
-            Law::Projection => "R[h](x, (w.0, 0)) = R[f](x, w.0) and R[h](x, (0, w.1)) = R[g](x, w.1)",
+            Law::Projection => {
+                "R[h](x, (w.0, 0)) = R[f](x, w.0) and R[h](x, (0, w.1)) = R[g](x, w.1)"
+            }
             Law::SumRule => "h(x) = f(x) + g(x) and R[h](x, w) = R[f](x, w) + R[g](x, w)",
             Law::SameMap => "a(x) = b(x) and R[a](x, w) = R[b](x, w)",
         }

@@ -35,11 +35,21 @@ where
     let at = (c.x.clone(), c.w.clone());
     let ra = a.rev().backward(&at, &c.u)?;
     let rb = b.rev().backward(&at, &c.u)?;
-    j.same(("R[R[b]]((x, w), u)", &rb), ("R[R[a]]((x, w), u)", &ra), &[])
+    j.same(
+        ("R[R[b]]((x, w), u)", &rb),
+        ("R[R[a]]((x, w), u)", &ra),
+        &[],
+    )
 }
 
 /// `h = f then g`: values and the chain rule.
-pub(crate) fn chain_rule<A, F, G, H, J>(j: &J, h: &H, f: &F, g: &G, c: &Case<A, H::Output>) -> Outcome
+pub(crate) fn chain_rule<A, F, G, H, J>(
+    j: &J,
+    h: &H,
+    f: &F,
+    g: &G,
+    c: &Case<A, H::Output>,
+) -> Outcome
 where
     A: Space,
     F: Map<A>,
@@ -137,7 +147,11 @@ where
 {
     let (yh, kh) = h.forward_keep(&c.x)?;
     let (yf, yg) = (f.forward(&c.x)?, g.forward(&c.x)?);
-    j.same(("f(x) + g(x)", &yf.try_add(&yg)?), ("h(x)", &yh), &[&yf, &yg])?;
+    j.same(
+        ("f(x) + g(x)", &yf.try_add(&yg)?),
+        ("h(x)", &yh),
+        &[&yf, &yg],
+    )?;
     let bf = f.backward(&c.x, &c.w)?;
     let bg = g.backward(&c.x, &c.w)?;
     let observed = h.backward_from(&kh, &c.w)?;

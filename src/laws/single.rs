@@ -116,7 +116,11 @@ fn zero_change<A: Space, F: Map<A>, J: JudgeIn<A>>(
     let (_, keep) = f.forward_keep(&c.x)?;
     let typical = f.backward_from(&keep, &c.w)?;
     let at_zero = f.backward_from(&keep, &c.w.zero_like())?;
-    j.same(("0", &c.x.zero_like()), ("R[f](x, 0)", &at_zero), &[&typical])
+    j.same(
+        ("0", &c.x.zero_like()),
+        ("R[f](x, 0)", &at_zero),
+        &[&typical],
+    )
 }
 
 fn shapes_finite<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
@@ -160,8 +164,14 @@ where
     let (hv, _) = g.backward_from(&keep, &c.v)?;
     let (hu, _) = g.backward_from(&keep, &c.u)?;
     j.same_scalar(
-        ("<v, H u> by the second reverse derivative", &j.inner(&c.v, &hu)?),
-        ("<u, H v> by the second reverse derivative", &j.inner(&c.u, &hv)?),
+        (
+            "<v, H u> by the second reverse derivative",
+            &j.inner(&c.v, &hu)?,
+        ),
+        (
+            "<u, H v> by the second reverse derivative",
+            &j.inner(&c.u, &hv)?,
+        ),
     )
 }
 
@@ -215,21 +225,28 @@ where
     )
 }
 
-/// The first step of central differences along `v` at `x`: a tenth of the
-/// scale of `x` (at least 1), in units of the largest coordinate of `v`.
+/// The first step of central differences along `v` at `x`: small enough
+/// that no nonzero coordinate of `x` moves by more than a tenth of its size
+/// (so a pole or a domain edge at 0 is not crossed), and no coordinate moves
+/// by more than a tenth of the scale of `x` (its largest coordinate, at
+/// least 1). Coordinates that are exactly 0 are bounded by the scale.
 fn first_step<R: Real, A: Euclidean<R>>(x: &A, v: &A) -> R {
-    let largest = |s: &A| {
-        s.coordinates()
-            .iter()
-            .fold(R::zero(), |m, c| m.max(c.abs()))
-    };
+    let (xs, vs) = (x.coordinates(), v.coordinates());
+    let scale = xs.iter().fold(R::one(), |m, c| m.max(c.abs()));
     let tenth = R::from(0.1).unwrap_or_else(R::one);
-    let reach = tenth * largest(x).max(R::one());
-    let v_size = largest(v);
-    if v_size > R::zero() {
-        reach / v_size
+    let step = xs
+        .iter()
+        .zip(&vs)
+        .filter(|(_, vi)| **vi != R::zero())
+        .map(|(xi, vi)| {
+            let size = if *xi != R::zero() { xi.abs() } else { scale };
+            tenth * size / vi.abs()
+        })
+        .fold(R::infinity(), |m, h| m.min(h));
+    if step.is_finite() {
+        step
     } else {
-        reach
+        tenth * scale
     }
 }
 
@@ -290,7 +307,10 @@ where
         magnitude: hv.value.abs(),
     };
     tol.against_estimate(
-        ("<v, H u> by central differences of the backward pass", hu.value),
+        (
+            "<v, H u> by central differences of the backward pass",
+            hu.value,
+        ),
         hu.error + hv.error,
         (
             "<u, H v> by central differences of the backward pass",

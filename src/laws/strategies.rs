@@ -15,12 +15,26 @@
 //! Checker::new().reverse(&revdiff::Ln, log_uniform(1e-6, 1.0)).assert_clean();
 //! ```
 
+use super::case::{SHRINK_EACH_UP_TO, seeded_uniform};
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
 
+/// `n` entries uniform in `[lo, hi)`: shrinking entry by entry up to 32
+/// entries, from a drawn seed above (per-entry shrinking of large arrays
+/// costs far more than it tells).
+fn entries(n: usize, lo: f64, hi: f64) -> BoxedStrategy<Vec<f64>> {
+    if n <= SHRINK_EACH_UP_TO {
+        proptest::collection::vec(lo..hi, n).boxed()
+    } else {
+        any::<u64>()
+            .prop_map(move |seed| seeded_uniform(seed, n, lo, hi))
+            .boxed()
+    }
+}
+
 /// Vectors of length `len` with entries uniform in `[lo, hi)`.
 pub fn vectors(len: usize, lo: f64, hi: f64) -> impl Strategy<Value = Array1<f64>> + Clone {
-    proptest::collection::vec(lo..hi, len).prop_map(Array1::from)
+    entries(len, lo, hi).prop_map(Array1::from)
 }
 
 /// `rows x cols` matrices with entries uniform in `[lo, hi)`.
@@ -30,7 +44,7 @@ pub fn matrices(
     lo: f64,
     hi: f64,
 ) -> impl Strategy<Value = Array2<f64>> + Clone {
-    proptest::collection::vec(lo..hi, rows * cols).prop_map(move |v| {
+    entries(rows * cols, lo, hi).prop_map(move |v| {
         Array2::from_shape_vec((rows, cols), v).expect("the length is rows * cols")
     })
 }
@@ -48,6 +62,10 @@ pub fn log_uniform(lo: f64, hi: f64) -> impl Strategy<Value = f64> + Clone {
 }
 
 /// Vectors of length `len` with entries log-uniform in `[lo, hi)`.
-pub fn positive_vectors(len: usize, lo: f64, hi: f64) -> impl Strategy<Value = Array1<f64>> + Clone {
-    proptest::collection::vec(log_uniform(lo, hi), len).prop_map(Array1::from)
+pub fn positive_vectors(
+    len: usize,
+    lo: f64,
+    hi: f64,
+) -> impl Strategy<Value = Array1<f64>> + Clone {
+    entries(len, lo.ln(), hi.ln()).prop_map(|v| Array1::from(v).mapv(f64::exp))
 }
