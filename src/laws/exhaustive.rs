@@ -313,13 +313,13 @@ impl<K: ExactScalar> Exhaustive<K> {
     {
         let mut report = LawReport::new(subject, "every case of a finite domain".to_string());
         for &(law, order) in checks {
-            let slots = law.slots();
+            let slots = law.slots_at(order);
             let sizes: Vec<usize> = slots.iter().map(|&s| domain.size(s)).collect();
             let mut index = vec![0usize; slots.len()];
             let mut checked = 0u64;
             let mut violation = None;
             loop {
-                let case = domain.case(slots, &index);
+                let case = domain.case(&slots, &index);
                 if let Err(breach) = super::sampled::guarded(|| eval(law, order, &case)) {
                     violation = Some(self.violation(law, order, breach, case));
                     break;

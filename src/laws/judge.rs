@@ -199,11 +199,11 @@ impl<R: Real> Tolerance<R> {
         verdict(
             error,
             allowed,
-            || format!("{} = {}", expected.0, expected.1),
-            || format!("{} = {}", observed.0, observed.1.value),
+            || format!("{} = {}", expected.0, number(expected.1)),
+            || format!("{} = {}", observed.0, number(observed.1.value)),
             format!(
-                "|expected - observed| against {} x scale + the estimate's own error {:e} \
-                 (scale {:e}, the larger of |expected| and the sum of |terms| of the inner product)",
+                "|expected - observed| against {:.1e} x scale + the estimate's own error {:.1e} \
+                 (scale {:.3e}: the larger of |expected| and the sum of |terms| of the inner product)",
                 to_f64(self.estimated),
                 to_f64(estimate_error),
                 to_f64(scale)
@@ -231,6 +231,17 @@ fn checked_allowance<R: Real>(name: &'static str, value: R) -> Result<R> {
             value: value.to_string(),
             reason: "a tolerance must be finite and not negative",
         })
+    }
+}
+
+/// A number as a report shows it: plainly between 1e-4 and 1e6, else in
+/// scientific notation.
+pub(crate) fn number<R: Real>(r: R) -> String {
+    let v = to_f64(r);
+    if v == 0.0 || (1e-4..1e6).contains(&v.abs()) || !v.is_finite() {
+        r.to_string()
+    } else {
+        format!("{v:e}")
     }
 }
 
@@ -296,10 +307,10 @@ impl<R: Real> Judge for Tolerance<R> {
         verdict(
             (e.value - o.value).abs(),
             allowed,
-            || format!("{} = {}", expected.0, e.value),
-            || format!("{} = {}", observed.0, o.value),
+            || format!("{} = {}", expected.0, number(e.value)),
+            || format!("{} = {}", observed.0, number(o.value)),
             format!(
-                "|expected - observed| against {} x scale (scale {:e}, the sum of |terms| of the inner products)",
+                "|expected - observed| against {:.1e} x scale (scale {:.3e}: the sum of |terms| of the inner products)",
                 to_f64(self.exact),
                 to_f64(scale)
             ),
@@ -335,7 +346,7 @@ impl<R: Real, S: Euclidean<R>> JudgeIn<S> for Tolerance<R> {
             || format!("{} = {}", expected.0, self.show(expected.1)),
             || format!("{} = {}", observed.0, self.show(observed.1)),
             format!(
-                "|expected - observed| (Euclidean norm) against {} x scale (scale {:e}, the largest norm of the values compared and their parts)",
+                "|expected - observed| (Euclidean norm) against {:.1e} x scale (scale {:.3e}: the largest norm of the values compared and their parts)",
                 to_f64(self.exact),
                 to_f64(scale)
             ),
@@ -360,10 +371,10 @@ pub(crate) fn show_coordinates<R: Real, S: Euclidean<R>>(value: &S) -> String {
     let coords = value.coordinates();
     let shape = value.shape_string();
     if shape == "scalar" && coords.len() == 1 {
-        return coords[0].to_string();
+        return number(coords[0]);
     }
     const SHOWN: usize = 12;
-    let mut parts: Vec<String> = coords.iter().take(SHOWN).map(|c| c.to_string()).collect();
+    let mut parts: Vec<String> = coords.iter().take(SHOWN).map(|c| number(*c)).collect();
     if coords.len() > SHOWN {
         parts.push(format!("... ({} more)", coords.len() - SHOWN));
     }

@@ -195,8 +195,37 @@ impl Law {
             Law::LinearInChange => &[X, U, W, W2],
             Law::ReverseAgrees | Law::ShapesFinite => &[X, W],
             Law::ChainRule | Law::Pairing | Law::Projection | Law::SumRule => &[X, W],
-            Law::SameMap => &[X, W, U],
+            Law::SameMap => &[X, W],
         }
+    }
+
+    /// The drawn values the law quantifies over at `order`. At order 2 a
+    /// single-map law is evaluated at the lifted case (see
+    /// [`Case::lift`](crate::laws::Case::lift)), so it ranges over the values
+    /// the lifted slots are made of; [`Law::SameMap`] at order 2 compares
+    /// second reverse derivatives, which also need `u`.
+    pub fn slots_at(self, order: u8) -> Vec<Slot> {
+        use Slot::*;
+        let mut out: Vec<Slot> = Vec::new();
+        for &slot in self.slots() {
+            let made_of: &[Slot] = match (order, self, slot) {
+                (1, _, _) => &[slot],
+                (_, Law::SameMap, _) => &[slot, U],
+                (_, _, X) => &[X, W],
+                (_, _, V) => &[V, W2],
+                (_, _, U) => &[U, W],
+                (_, _, W) => &[U],
+                (_, _, W2) => &[V],
+                (_, _, S) => &[S],
+            };
+            for s in made_of {
+                if !out.contains(s) {
+                    out.push(*s);
+                }
+            }
+        }
+        out.sort_by_key(|s| *s as u8);
+        out
     }
 }
 

@@ -219,15 +219,13 @@ impl fmt::Display for LawReport {
             writeln!(f)?;
             write!(f, "{v}")?;
         }
-        let held: Vec<String> = self
-            .checked
-            .iter()
-            .filter(|c| c.held)
-            .map(|c| format!("{} at order {} ({} cases)", c.law, c.order, c.cases))
-            .collect();
+        let held: Vec<&Checked> = self.checked.iter().filter(|c| c.held).collect();
         if !held.is_empty() {
             writeln!(f)?;
-            writeln!(f, "held: {}", held.join("; "))?;
+            writeln!(f, "held:")?;
+            for c in held {
+                writeln!(f, "    {}, order {}, {} cases", c.law, c.order, c.cases)?;
+            }
         }
         Ok(())
     }

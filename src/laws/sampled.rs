@@ -92,24 +92,7 @@ pub(crate) fn show_case<A: Space, B: Space, J: JudgeIn<A> + JudgeIn<B>>(
     order: u8,
     c: &Case<A, B>,
 ) -> Vec<(Slot, String)> {
-    let mut slots: Vec<Slot> = Vec::new();
-    for &slot in law.slots() {
-        let made_of: &[Slot] = match (order, slot) {
-            (1, _) => &[slot],
-            (_, Slot::X) => &[Slot::X, Slot::W],
-            (_, Slot::V) => &[Slot::V, Slot::W2],
-            (_, Slot::U) => &[Slot::U, Slot::W],
-            (_, Slot::W) => &[Slot::U],
-            (_, Slot::W2) => &[Slot::V],
-            (_, Slot::S) => &[Slot::S],
-        };
-        for s in made_of {
-            if !slots.contains(s) {
-                slots.push(*s);
-            }
-        }
-    }
-    slots.sort_by_key(|s| *s as u8);
+    let slots = law.slots_at(order);
     slots
         .into_iter()
         .map(|slot| {
