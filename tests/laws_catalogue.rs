@@ -179,3 +179,84 @@ fn zero_cases_is_an_invalid_setting() {
         "{err}"
     );
 }
+
+/// A space of one bit, with XOR as addition, defined here the way a Boolean
+/// extension would: the exhaustive checker takes it with no change.
+#[derive(Clone, Copy, Debug, PartialEq)]
+struct Bit(bool);
+
+impl Space for Bit {
+    type Shape = ();
+    fn shape(&self) {}
+    fn zero_of(_: &()) -> Self {
+        Bit(false)
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        Ok(Bit(self.0 ^ other.0))
+    }
+    fn shape_string(&self) -> String {
+        "bit".to_string()
+    }
+}
+
+impl laws::ExactScalar for Bit {
+    fn zero() -> Self {
+        Bit(false)
+    }
+    fn plus(&self, other: &Self) -> Self {
+        Bit(self.0 ^ other.0)
+    }
+}
+
+impl laws::ExactPairing<Bit> for Bit {
+    fn pair_exactly(&self, other: &Self) -> Result<Bit> {
+        Ok(Bit(self.0 & other.0))
+    }
+}
+
+/// The AND gate `(a, b) -> a b` over Z2, whose reverse derivative is
+/// `(b dy, a dy)`; `wrong` forgets the change.
+#[derive(Clone, Debug)]
+struct And {
+    wrong: bool,
+}
+impl Compose for And {}
+impl Map<(Bit, Bit)> for And {
+    type Output = Bit;
+    type Residual = (Bit, Bit);
+    fn forward_keep(&self, x: &(Bit, Bit)) -> Result<(Bit, (Bit, Bit))> {
+        Ok((Bit(x.0.0 & x.1.0), *x))
+    }
+    fn backward_from(&self, x: &(Bit, Bit), dy: &Bit) -> Result<(Bit, Bit)> {
+        if self.wrong {
+            Ok((x.1, x.0))
+        } else {
+            Ok((Bit(x.1.0 & dy.0), Bit(x.0.0 & dy.0)))
+        }
+    }
+}
+
+#[test]
+fn a_space_of_bits_plugs_into_the_exhaustive_checker() {
+    let bits = [Bit(false), Bit(true)];
+    let pairs: Vec<(Bit, Bit)> = bits
+        .iter()
+        .flat_map(|a| bits.iter().map(move |b| (*a, *b)))
+        .collect();
+    let domain = FiniteDomain::new(pairs.clone(), pairs, bits.to_vec()).unwrap();
+    let exhaustive = Exhaustive::<Bit>::new();
+    exhaustive
+        .map(&And { wrong: false }, &domain)
+        .assert_clean();
+    exhaustive
+        .same_map(&And { wrong: false }, &And { wrong: false }, &domain)
+        .assert_clean();
+    // Forgetting the change breaks the zero-change law at the first input
+    // with a set bit.
+    let report = exhaustive.map(&And { wrong: true }, &domain);
+    let v = report
+        .violation(laws::Law::ZeroChange, 1)
+        .unwrap_or_else(|| panic!("{report}"));
+    let c = v.case::<(Bit, Bit), Bit>().unwrap();
+    assert!(c.x.0.0 || c.x.1.0, "{report}");
+}
