@@ -83,7 +83,7 @@ pub enum Error {
     },
 }
 
-/// Shorthand for results whose error is [`Error`].
+/// Shorthand for results whose error is [`enum@Error`].
 pub type Result<T> = std::result::Result<T, Error>;
 
 impl Error {

@@ -209,21 +209,22 @@ where
     F::Output: Euclidean<R>,
     SX: Strategy<Value = A>,
 {
+    probe_inputs(inputs).iter().fold((1, 1), |(nx, ny), x| {
+        let ny_here = evaluate(f, x).map_or(0, |y| y.dimension());
+        (nx.max(x.dimension()), ny.max(ny_here))
+    })
+}
+
+/// A few inputs drawn from a fixed seed, to size the drawn changes.
+fn probe_inputs<SX: Strategy>(inputs: &SX) -> Vec<SX::Value> {
     use proptest::strategy::ValueTree;
     use proptest::test_runner::TestRunner;
     const PROBES: usize = 8;
     let mut runner = TestRunner::deterministic();
-    let (mut nx, mut ny) = (1, 1);
-    for _ in 0..PROBES {
-        if let Ok(tree) = inputs.new_tree(&mut runner) {
-            let x = tree.current();
-            nx = nx.max(x.dimension());
-            if let Ok(y) = evaluate(f, &x) {
-                ny = ny.max(y.dimension());
-            }
-        }
-    }
-    (nx, ny)
+    (0..PROBES)
+        .filter_map(|_| inputs.new_tree(&mut runner).ok())
+        .map(|tree| tree.current())
+        .collect()
 }
 
 /// Up to this many coordinates, each is drawn and shrunk on its own; above
@@ -316,11 +317,9 @@ where
         A: 'a,
         B: 'a,
     {
-        use proptest::strategy::ValueTree;
-        let mut runner = proptest::test_runner::TestRunner::deterministic();
-        let nx = (0..8)
-            .filter_map(|_| self.inputs.new_tree(&mut runner).ok())
-            .map(|t| t.current().dimension())
+        let nx = probe_inputs(&self.inputs)
+            .iter()
+            .map(|x| x.dimension())
             .fold(1, usize::max);
         (
             &self.inputs,
