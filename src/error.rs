@@ -81,6 +81,30 @@ pub enum Error {
         /// The operation that needed elements.
         operation: &'static str,
     },
+    /// Inputs and targets of a dataset had different numbers of rows.
+    #[error("dataset: {inputs} input rows but {targets} target rows")]
+    Rows {
+        /// Rows of the inputs.
+        inputs: usize,
+        /// Rows of the targets.
+        targets: usize,
+    },
+    /// Training met a non-finite loss, gradient or parameter.
+    #[error("training step {step} (epoch {epoch}): the {quantity} is not finite")]
+    Diverged {
+        /// The step, counting from 1, whose update was refused.
+        step: usize,
+        /// The epoch it belonged to, counting from 1.
+        epoch: usize,
+        /// What was not finite: `loss`, `gradient` or `updated parameters`.
+        quantity: &'static str,
+    },
+    /// A linear system had no unique solution.
+    #[error("{operation}: the matrix is singular or not positive definite")]
+    Singular {
+        /// The operation that solved the system.
+        operation: &'static str,
+    },
 }
 
 /// Shorthand for results whose error is [`enum@Error`].

@@ -23,6 +23,7 @@
 //! - [`higher`]: forward derivatives, Hessian-vector products, Jacobians.
 //! - [`dynamic`]: type-erased maps and run-time chains.
 //! - [`laws`]: checkers that put any map through the laws of reverse derivatives.
+//! - [`learning`]: parametrised maps, losses, optimisers, training and least squares.
 //!
 //! # Example
 //!
@@ -50,6 +51,7 @@ pub mod dynamic;
 pub mod error;
 pub mod higher;
 pub mod laws;
+pub mod learning;
 pub mod map;
 pub mod primitives;
 pub mod space;
@@ -62,6 +64,7 @@ pub use higher::{
     second_reverse,
 };
 pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
+pub use learning::*;
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
 pub use space::{Euclidean, Pointwise, Real, Scale, Space};

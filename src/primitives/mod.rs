@@ -3,7 +3,7 @@
 //! catalogue and combinators, so every order exists.
 
 mod linalg;
-mod pointwise;
+pub(crate) mod pointwise;
 mod reduce;
 mod softmax;
 
@@ -12,8 +12,8 @@ pub use linalg::{
     OuterRev, affine_composite,
 };
 pub use pointwise::{
-    Abs, Cos, Div, DivRev, Exp, Heaviside, Ln, Mul, MulRev, Neg, Powf, Powi, Relu, SechSquared,
-    Sigmoid, Signum, Sin, SlopeTimes, Softplus, Sqrt, Sub, Tanh,
+    Abs, Clamp, Cos, Div, DivRev, Exp, Heaviside, InsideBand, Ln, Mul, MulRev, Neg, Powf, Powi,
+    Relu, SechSquared, Sigmoid, Signum, Sin, SlopeTimes, Softplus, Sqrt, Sub, Tanh,
 };
 pub use reduce::{Dot, FillLike, FillLikeRev, SquaredNorm, Total, dot, squared_norm};
 pub use softmax::{LogSoftmax, LogSoftmaxRev, LogSumExp, LogSumExpRev, Softmax, SoftmaxRev};

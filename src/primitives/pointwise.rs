@@ -33,6 +33,8 @@ impl Compose for Abs {}
 impl Compose for Signum {}
 impl<T> Compose for Powi<T> {}
 impl<T> Compose for Powf<T> {}
+impl<T> Compose for Clamp<T> {}
+impl<T> Compose for InsideBand<T> {}
 
 /// A scalar function with its derivative, applied element by element.
 trait Elementwise<T: Real> {
@@ -46,6 +48,21 @@ trait Elementwise<T: Real> {
 
 fn real<T: Real>(v: f64) -> T {
     T::from(v).expect("every real type holds small constants")
+}
+
+/// The logistic function `1 / (1 + e^-x)`, without overflow for either sign.
+pub(crate) fn logistic<T: Real>(x: T) -> T {
+    if x >= T::zero() {
+        T::one() / (T::one() + (-x).exp())
+    } else {
+        let e = x.exp();
+        e / (T::one() + e)
+    }
+}
+
+/// `ln(1 + e^x)` as `max(x, 0) + ln(1 + e^-|x|)`: no overflow, no lost digits.
+pub(crate) fn softplus<T: Real>(x: T) -> T {
+    x.max(T::zero()) + (-x.abs()).exp().ln_1p()
 }
 
 /// `(x, dy) -> slope(x) * dy`, where `S` is the map computing `slope`.
@@ -336,12 +353,7 @@ pub struct Sigmoid;
 impl<T: Real> Elementwise<T> for Sigmoid {
     const NAME: &'static str = "sigmoid";
     fn value(&self, x: T) -> T {
-        if x >= T::zero() {
-            T::one() / (T::one() + (-x).exp())
-        } else {
-            let e = x.exp();
-            e / (T::one() + e)
-        }
+        logistic(x)
     }
     fn slope(&self, x: T) -> T {
         self.value(x) * self.value(-x)
@@ -365,13 +377,86 @@ pub struct Softplus;
 impl<T: Real> Elementwise<T> for Softplus {
     const NAME: &'static str = "softplus";
     fn value(&self, x: T) -> T {
-        x.max(T::zero()) + (-x.abs()).exp().ln_1p()
+        softplus(x)
     }
     fn slope(&self, x: T) -> T {
         Sigmoid.value(x)
     }
 }
 elementwise!([E: Pointwise] Softplus, slope map Sigmoid = |_s| Sigmoid);
+
+/// Clamping to a band, `x -> max(-limit, min(x, limit))`. Reverse
+/// derivative: `dy` inside the band (`|x| < limit`), `0` outside and on its
+/// edges. It is the slope of the Huber loss.
+///
+/// ```
+/// use revdiff::{Clamp, Map};
+/// let c = Clamp::new(1.0_f64);
+/// assert_eq!(c.forward(&-3.0).unwrap(), -1.0);
+/// assert_eq!(c.backward(&0.5, &2.0).unwrap(), 2.0);
+/// assert_eq!(c.backward(&3.0, &2.0).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Clamp<T> {
+    /// Half the width of the band.
+    pub limit: T,
+}
+
+impl<T: Real> Clamp<T> {
+    /// Clamping to `[-limit, limit]`.
+    pub fn new(limit: T) -> Self {
+        Clamp { limit }
+    }
+}
+
+impl<T: Real> Elementwise<T> for Clamp<T> {
+    const NAME: &'static str = "clamp";
+    fn value(&self, x: T) -> T {
+        x.max(-self.limit).min(self.limit)
+    }
+    fn slope(&self, x: T) -> T {
+        InsideBand::new(self.limit).value(x)
+    }
+}
+elementwise!([T: Real, E: Pointwise<Elem = T>] Clamp<T>,
+    slope map InsideBand<T> = |s| InsideBand::new(s.limit));
+
+/// The indicator of a band: 1 where `|x| < limit`, 0 elsewhere; the slope of
+/// [`Clamp`]. Its derivative is taken to be 0 everywhere.
+///
+/// ```
+/// use revdiff::{InsideBand, Map};
+/// let band = InsideBand::new(1.0_f64);
+/// assert_eq!(band.forward(&0.5).unwrap(), 1.0);
+/// assert_eq!(band.forward(&-1.0).unwrap(), 0.0);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct InsideBand<T> {
+    /// Half the width of the band.
+    pub limit: T,
+}
+
+impl<T: Real> InsideBand<T> {
+    /// The indicator of `(-limit, limit)`.
+    pub fn new(limit: T) -> Self {
+        InsideBand { limit }
+    }
+}
+
+impl<T: Real> Elementwise<T> for InsideBand<T> {
+    const NAME: &'static str = "band indicator";
+    fn value(&self, x: T) -> T {
+        if x.abs() < self.limit {
+            T::one()
+        } else {
+            T::zero()
+        }
+    }
+    fn slope(&self, _: T) -> T {
+        T::zero()
+    }
+}
+elementwise!([T: Real, E: Pointwise<Elem = T>] InsideBand<T>, slope map ZeroMap = |_s| ZeroMap);
 
 /// `x -> max(x, 0)`. Reverse derivative: `dy` where `x > 0`, else `0`; at
 /// `x = 0` the derivative is taken to be 0.

@@ -1,0 +1,544 @@
+//! Nonlinear least squares: Gauss-Newton and Levenberg-Marquardt for
+//! residual maps `r: P -> R^m`, with the Jacobian from the library's own
+//! derivatives.
+//!
+//! A residual map is anything implementing [`Residuals`]: a whole map of the
+//! library ([`residual_map`]; its Jacobian by `m` backward passes or `n`
+//! forward passes, whichever is fewer), or a model fitted to data points
+//! ([`CurveResiduals`]; one backward pass per point).
+
+use crate::error::{Error, Result};
+use crate::higher::jacobian;
+use crate::map::{Map, Reverse};
+use crate::space::{Euclidean, Real};
+use ndarray::{Array1, Array2, Axis};
+
+/// A map `P -> R^m` whose value and Jacobian a fitter can ask for.
+pub trait Residuals<P> {
+    /// The real type of the residuals.
+    type Real: Real;
+
+    /// The residual vector at `p`.
+    fn residuals(&self, p: &P) -> Result<Array1<Self::Real>>;
+
+    /// The residual vector and the `m x n` Jacobian at `p` (`n` parameter
+    /// coordinates, in [`Euclidean`] order).
+    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<Self::Real>, Array2<Self::Real>)>;
+}
+
+/// A map of the library `P -> Array1<R>` as residuals. Created by
+/// [`residual_map`].
+#[derive(Clone, Debug, PartialEq)]
+pub struct ResidualMap<F> {
+    map: F,
+}
+
+/// Uses a map `P -> Array1<R>` as a residual map; its Jacobian comes from
+/// [`jacobian`](crate::jacobian): `m` backward passes when the residuals
+/// are no more than the parameters, `n` forward derivatives otherwise.
+///
+/// ```
+/// use revdiff::{residual_map, Residuals, Compose, Map, Sub, fst, snd, constant};
+/// use ndarray::array;
+/// // r(a) = a - (1, 2) as a map of arrays.
+/// let r = residual_map(constant(array![1.0, 2.0]).pair(revdiff::id()).then(Sub).then(revdiff::Neg));
+/// let (value, j) = r.residuals_and_jacobian(&array![3.0, 3.0]).unwrap();
+/// assert_eq!(value, array![2.0, 1.0]);
+/// assert_eq!(j, array![[1.0, 0.0], [0.0, 1.0]]);
+/// ```
+pub fn residual_map<F>(map: F) -> ResidualMap<F> {
+    ResidualMap { map }
+}
+
+impl<R, P, F> Residuals<P> for ResidualMap<F>
+where
+    R: Real,
+    P: Euclidean<R>,
+    F: Reverse<P, Output = Array1<R>>,
+{
+    type Real = R;
+    fn residuals(&self, p: &P) -> Result<Array1<R>> {
+        self.map.forward(p)
+    }
+    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<R>, Array2<R>)> {
+        Ok((self.map.forward(p)?, jacobian(&self.map, p)?))
+    }
+}
+
+/// The residuals `model(p, x_i) - y_i` of a scalar model over data points
+/// `(x_i, y_i)`. The Jacobian takes one backward pass per point (a point's
+/// residual has one coordinate, so that is the cheaper route).
+///
+/// ```
+/// use revdiff::{CurveResiduals, Mul, Residuals};
+/// use ndarray::array;
+/// // y = p x through the points (1, 2) and (2, 3).
+/// let r = CurveResiduals::new(Mul, vec![1.0, 2.0], vec![2.0, 3.0]).unwrap();
+/// let (value, j) = r.residuals_and_jacobian(&1.0).unwrap();
+/// assert_eq!(value, array![-1.0, -1.0]);
+/// assert_eq!(j, array![[1.0], [2.0]]);
+/// assert!(CurveResiduals::new(Mul, vec![1.0], vec![2.0, 3.0]).is_err());
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct CurveResiduals<M, A, R> {
+    model: M,
+    inputs: Vec<A>,
+    targets: Vec<R>,
+}
+
+impl<M, A, R: Real> CurveResiduals<M, A, R> {
+    /// Residuals of `model` at the points `(inputs[i], targets[i])`. Refuses
+    /// no points, different counts and non-finite targets.
+    pub fn new(model: M, inputs: Vec<A>, targets: Vec<R>) -> Result<Self> {
+        if inputs.len() != targets.len() {
+            return Err(Error::Rows {
+                inputs: inputs.len(),
+                targets: targets.len(),
+            });
+        }
+        if inputs.is_empty() {
+            return Err(Error::Empty {
+                operation: "curve residuals",
+            });
+        }
+        if let Some(i) = targets.iter().position(|t| !t.is_finite()) {
+            return Err(Error::NonFinite {
+                operation: "curve residuals",
+                detail: format!("{} at target {i}", targets[i]),
+            });
+        }
+        Ok(CurveResiduals {
+            model,
+            inputs,
+            targets,
+        })
+    }
+}
+
+impl<R, P, A, M> Residuals<P> for CurveResiduals<M, A, R>
+where
+    R: Real,
+    P: Euclidean<R>,
+    A: Euclidean<R>,
+    M: Map<(P, A), Output = R>,
+{
+    type Real = R;
+    fn residuals(&self, p: &P) -> Result<Array1<R>> {
+        self.inputs
+            .iter()
+            .zip(&self.targets)
+            .map(|(x, y)| Ok(self.model.forward(&(p.clone(), x.clone()))? - *y))
+            .collect::<Result<Vec<R>>>()
+            .map(Array1::from)
+    }
+    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<R>, Array2<R>)> {
+        let n = p.dimension();
+        let m = self.inputs.len();
+        let mut r = Array1::zeros(m);
+        let mut j = Array2::zeros((m, n));
+        for (i, (x, y)) in self.inputs.iter().zip(&self.targets).enumerate() {
+            let (value, kept) = self.model.forward_keep(&(p.clone(), x.clone()))?;
+            r[i] = value - *y;
+            let row = self.model.backward_from(&kept, &R::one())?.0.coordinates();
+            j.row_mut(i).assign(&Array1::from(row));
+        }
+        Ok((r, j))
+    }
+}
+
+/// Why a fit stopped.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[non_exhaustive]
+pub enum Stop {
+    /// The step was small against the parameters.
+    Step,
+    /// The residuals were (nearly) orthogonal to every Jacobian column.
+    Gradient,
+    /// An accepted step reduced the residual sum of squares by a tiny fraction.
+    Reduction,
+    /// The residuals were exactly zero.
+    ExactFit,
+    /// Levenberg-Marquardt could not find a reducing step however strongly
+    /// damped: the parameters are at a minimum to working precision.
+    DampingLimit,
+    /// The iteration limit came first: not converged.
+    IterationLimit,
+}
+
+impl Stop {
+    /// Whether this is one of the convergence tests (not the iteration limit).
+    pub fn converged(&self) -> bool {
+        !matches!(self, Stop::IterationLimit)
+    }
+}
+
+/// The result of a least-squares fit.
+#[derive(Clone, Debug, PartialEq)]
+pub struct FitReport<P, R> {
+    /// The fitted parameters.
+    pub parameters: P,
+    /// Iterations (Jacobian evaluations after the first) made.
+    pub iterations: usize,
+    /// Residual evaluations made, counting those of rejected steps.
+    pub evaluations: usize,
+    /// The residual sum of squares at the fitted parameters.
+    pub residual_sum_of_squares: R,
+    /// Residuals less parameters, `m - n`.
+    pub degrees_of_freedom: usize,
+    /// Standard errors of the parameters, the roots of the diagonal of
+    /// `s^2 (J'J)^-1` with `s^2 = RSS / (m - n)`, shaped like the parameters;
+    /// `None` when `m <= n` or `J'J` is singular.
+    pub standard_errors: Option<P>,
+    /// Why the fit stopped.
+    pub stop: Stop,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+enum Method {
+    GaussNewton,
+    LevenbergMarquardt,
+}
+
+/// Settings of a least-squares fit, checked at construction.
+///
+/// Levenberg-Marquardt (Marquardt, 1963) solves
+/// `(J'J + lambda diag(J'J)) d = -J'r` and accepts `p + d` only if it lowers
+/// the residual sum of squares, dividing `lambda` by 10 after an accepted
+/// step and multiplying it by 10 after a refused one. Gauss-Newton takes the
+/// undamped step every time. Both stop when the step is small against the
+/// parameters (`step_tolerance`), when every Jacobian column is nearly
+/// orthogonal to the residuals (`gradient_tolerance`, on the cosine) or when
+/// a step lowers the sum of squares by less than `reduction_tolerance` of it.
+///
+/// # Example
+///
+/// Fitting `y = b1 (1 - exp(-b2 x))` to points made from `b = (2, 0.5)`:
+///
+/// ```
+/// use revdiff::{constant, fst, snd, Compose, CurveResiduals, Exp, Id, LeastSquares, Mul, Neg, Sub};
+///
+/// // ((b1, b2), x) -> b1 (1 - exp(-b2 x)), from catalogue pieces.
+/// let one_minus = constant(1.0_f64).pair(Id).then(Sub);
+/// let model = fst().then(fst())
+///     .pair(fst().then(snd()).pair(snd()).then(Mul).then(Neg).then(Exp).then(one_minus))
+///     .then(Mul);
+/// let xs: Vec<f64> = (1..=8).map(f64::from).collect();
+/// let ys = xs.iter().map(|x| 2.0 * (1.0 - (-0.5 * x).exp())).collect();
+/// let residuals = CurveResiduals::new(model, xs, ys).unwrap();
+///
+/// let report = LeastSquares::levenberg_marquardt().fit(&residuals, (1.0, 1.0)).unwrap();
+/// assert!(report.stop.converged());
+/// assert!((report.parameters.0 - 2.0).abs() < 1e-9 && (report.parameters.1 - 0.5).abs() < 1e-9);
+/// assert!(report.residual_sum_of_squares < 1e-20);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct LeastSquares {
+    method: Method,
+    max_iterations: usize,
+    initial_damping: f64,
+    step_tolerance: f64,
+    gradient_tolerance: f64,
+    reduction_tolerance: f64,
+}
+
+/// Damping beyond which no step is worth trying.
+const MAX_DAMPING: f64 = 1e16;
+
+impl LeastSquares {
+    /// Levenberg-Marquardt with initial damping `1e-3`, at most 200
+    /// iterations, and tolerances `1e-12` (step), `1e-12` (gradient) and
+    /// `1e-15` (reduction).
+    pub fn levenberg_marquardt() -> Self {
+        LeastSquares {
+            method: Method::LevenbergMarquardt,
+            max_iterations: 200,
+            initial_damping: 1e-3,
+            step_tolerance: 1e-12,
+            gradient_tolerance: 1e-12,
+            reduction_tolerance: 1e-15,
+        }
+    }
+
+    /// Gauss-Newton, with the same limits and tolerances. It converges fast
+    /// from close starts and may diverge from far ones.
+    pub fn gauss_newton() -> Self {
+        LeastSquares {
+            method: Method::GaussNewton,
+            ..Self::levenberg_marquardt()
+        }
+    }
+
+    /// Sets the iteration limit (at least 1).
+    pub fn max_iterations(mut self, n: usize) -> Result<Self> {
+        if n == 0 {
+            return Err(Error::InvalidSetting {
+                name: "max iterations",
+                value: "0".to_string(),
+                reason: "must be at least 1",
+            });
+        }
+        self.max_iterations = n;
+        Ok(self)
+    }
+
+    /// Sets the starting damping `lambda` of Levenberg-Marquardt (positive).
+    pub fn initial_damping(mut self, lambda: f64) -> Result<Self> {
+        crate::learning::schedule::positive("initial damping", lambda)?;
+        self.initial_damping = lambda;
+        Ok(self)
+    }
+
+    /// Sets the three convergence tolerances (each non-negative and finite;
+    /// zero switches a test off).
+    pub fn tolerances(mut self, step: f64, gradient: f64, reduction: f64) -> Result<Self> {
+        for (name, v) in [
+            ("step tolerance", step),
+            ("gradient tolerance", gradient),
+            ("reduction tolerance", reduction),
+        ] {
+            if !(v >= 0.0 && v.is_finite()) {
+                return Err(Error::InvalidSetting {
+                    name,
+                    value: v.to_string(),
+                    reason: "must be non-negative and finite",
+                });
+            }
+        }
+        self.step_tolerance = step;
+        self.gradient_tolerance = gradient;
+        self.reduction_tolerance = reduction;
+        Ok(self)
+    }
+
+    /// Fits the parameters, starting from `start`.
+    ///
+    /// Errors: non-finite residuals or Jacobian at the start
+    /// ([`Error::NonFinite`]), a Jacobian not shaped `m x n`
+    /// ([`Error::ShapeMismatch`]), a singular Gauss-Newton system or a
+    /// non-finite Gauss-Newton step ([`Error::Singular`],
+    /// [`Error::NonFinite`]). Levenberg-Marquardt treats a trial point with
+    /// non-finite residuals as a refused step. Reaching the iteration limit
+    /// is not an error: the report says [`Stop::IterationLimit`].
+    pub fn fit<P, R, F>(&self, residuals: &F, start: P) -> Result<FitReport<P, R>>
+    where
+        R: Real,
+        F: Residuals<P, Real = R>,
+        P: Euclidean<R>,
+    {
+        let real = |v: f64| R::from(v).expect("settings fit every real type");
+        let mut p = start.coordinates();
+        let n = p.len();
+        let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
+        check_finite("residuals at the start", &r)?;
+        check_finite("Jacobian at the start", &j)?;
+        if j.dim() != (r.len(), n) {
+            return Err(Error::shape(
+                "least squares (Jacobian against residuals and parameters)",
+                format!("({}, {n})", r.len()),
+                format!("{:?}", j.dim()),
+            ));
+        }
+        let mut rss = r.dot(&r);
+        let mut lambda = real(self.initial_damping);
+        let mut evaluations = 1;
+        let mut iterations = 0;
+        let stop = loop {
+            if rss == R::zero() {
+                break Stop::ExactFit;
+            }
+            let jtj = j.t().dot(&j);
+            let g = j.t().dot(&r);
+            if self.gradient_small(&jtj, &g, rss) {
+                break Stop::Gradient;
+            }
+            if iterations == self.max_iterations {
+                break Stop::IterationLimit;
+            }
+            iterations += 1;
+            let current = Array1::from(p.clone());
+            // Try damped steps until one lowers the sum of squares.
+            let accepted = loop {
+                let mut a = jtj.clone();
+                if self.method == Method::LevenbergMarquardt {
+                    for k in 0..n {
+                        a[[k, k]] = a[[k, k]] + lambda * jtj[[k, k]];
+                    }
+                }
+                let step = match solve_symmetric(&a, &g.mapv(|v| -v)) {
+                    Ok(d) => d,
+                    Err(e) if self.method == Method::GaussNewton => return Err(e),
+                    Err(_) => {
+                        lambda = lambda * real(10.0);
+                        if lambda > real(MAX_DAMPING) {
+                            break None;
+                        }
+                        continue;
+                    }
+                };
+                let trial = &current + &step;
+                let trial_p =
+                    start.rebuild_from_coordinates(trial.as_slice().expect("contiguous"))?;
+                let trial_r = residuals.residuals(&trial_p);
+                evaluations += 1;
+                let trial_rss = match &trial_r {
+                    Ok(tr) if tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
+                    _ => R::infinity(),
+                };
+                if self.method == Method::GaussNewton {
+                    if !trial_rss.is_finite() {
+                        return Err(Error::NonFinite {
+                            operation: "Gauss-Newton",
+                            detail: format!("residuals after iteration {iterations}"),
+                        });
+                    }
+                    break Some((trial, step, trial_rss));
+                }
+                if trial_rss < rss {
+                    lambda = lambda / real(10.0);
+                    break Some((trial, step, trial_rss));
+                }
+                lambda = lambda * real(10.0);
+                if lambda > real(MAX_DAMPING) {
+                    break None;
+                }
+            };
+            let Some((trial, step, trial_rss)) = accepted else {
+                break Stop::DampingLimit;
+            };
+            let step_norm = step.dot(&step).sqrt();
+            let size = current.dot(&current).sqrt();
+            let reduction = rss - trial_rss;
+            p = trial.to_vec();
+            let new_p = start.rebuild_from_coordinates(&p)?;
+            (r, j) = residuals.residuals_and_jacobian(&new_p)?;
+            evaluations += 1;
+            check_finite("Jacobian", &j)?;
+            let old_rss = rss;
+            rss = r.dot(&r);
+            let step_tol = real(self.step_tolerance);
+            if step_norm <= step_tol * (size + step_tol) {
+                break Stop::Step;
+            }
+            if reduction >= R::zero() && reduction <= real(self.reduction_tolerance) * old_rss {
+                break Stop::Reduction;
+            }
+        };
+        let parameters = start.rebuild_from_coordinates(&p)?;
+        let m = r.len();
+        let standard_errors = if m > n {
+            let s2 = rss / R::from(m - n).expect("counts fit every real type");
+            inverse_symmetric(&j.t().dot(&j))
+                .ok()
+                .map(|inv| {
+                    inv.diag()
+                        .iter()
+                        .map(|v| (s2 * *v).sqrt())
+                        .collect::<Vec<_>>()
+                })
+                .and_then(|se| parameters.rebuild_from_coordinates(&se).ok())
+        } else {
+            None
+        };
+        Ok(FitReport {
+            parameters,
+            iterations,
+            evaluations,
+            residual_sum_of_squares: rss,
+            degrees_of_freedom: m.saturating_sub(n),
+            standard_errors,
+            stop,
+        })
+    }
+
+    /// The gradient test: the largest cosine between the residual vector and
+    /// a Jacobian column, `|J_k' r| / (|J_k| |r|)`.
+    fn gradient_small<R: Real>(&self, jtj: &Array2<R>, g: &Array1<R>, rss: R) -> bool {
+        let tol = R::from(self.gradient_tolerance).expect("settings fit every real type");
+        g.iter().enumerate().all(|(k, gk)| {
+            let scale = (jtj[[k, k]] * rss).sqrt();
+            scale == R::zero() || gk.abs() <= tol * scale
+        })
+    }
+}
+
+fn check_finite<R: Real, D: ndarray::Dimension>(
+    what: &'static str,
+    a: &ndarray::Array<R, D>,
+) -> Result<()> {
+    match a.iter().position(|v| !v.is_finite()) {
+        None => Ok(()),
+        Some(i) => Err(Error::NonFinite {
+            operation: "least squares",
+            detail: format!("in the {what}, at flat index {i}"),
+        }),
+    }
+}
+
+/// The Cholesky factor `L` of `D A D`, `D = diag(A)^-1/2`, which puts every
+/// diagonal at 1 so that badly scaled parameters lose no digits.
+fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Result<(Array2<R>, Array1<R>)> {
+    let n = a.nrows();
+    let singular = Error::Singular {
+        operation: "least squares normal equations",
+    };
+    let mut d = Array1::zeros(n);
+    for k in 0..n {
+        let v = a[[k, k]];
+        if !(v > R::zero() && v.is_finite()) {
+            return Err(singular);
+        }
+        d[k] = R::one() / v.sqrt();
+    }
+    let mut l = Array2::zeros((n, n));
+    for i in 0..n {
+        for k in 0..=i {
+            let mut sum = a[[i, k]] * d[i] * d[k];
+            for q in 0..k {
+                sum = sum - l[[i, q]] * l[[k, q]];
+            }
+            if i == k {
+                if !(sum > R::zero()) {
+                    return Err(singular);
+                }
+                l[[i, i]] = sum.sqrt();
+            } else {
+                l[[i, k]] = sum / l[[k, k]];
+            }
+        }
+    }
+    Ok((l, d))
+}
+
+/// Solves `A x = b` for symmetric positive definite `A`.
+fn solve_symmetric<R: Real>(a: &Array2<R>, b: &Array1<R>) -> Result<Array1<R>> {
+    let (l, d) = scaled_cholesky(a)?;
+    let n = b.len();
+    // (D A D) y = D b, x = D y.
+    let mut y = b * &d;
+    for i in 0..n {
+        for q in 0..i {
+            y[i] = y[i] - l[[i, q]] * y[q];
+        }
+        y[i] = y[i] / l[[i, i]];
+    }
+    for i in (0..n).rev() {
+        for q in i + 1..n {
+            y[i] = y[i] - l[[q, i]] * y[q];
+        }
+        y[i] = y[i] / l[[i, i]];
+    }
+    Ok(y * &d)
+}
+
+/// The inverse of a symmetric positive definite matrix, column by column.
+fn inverse_symmetric<R: Real>(a: &Array2<R>) -> Result<Array2<R>> {
+    let n = a.nrows();
+    let mut inv = Array2::zeros((n, n));
+    for k in 0..n {
+        let mut e = Array1::zeros(n);
+        e[k] = R::one();
+        inv.index_axis_mut(Axis(1), k)
+            .assign(&solve_symmetric(a, &e)?);
+    }
+    Ok(inv)
+}

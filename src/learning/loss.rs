@@ -1,0 +1,367 @@
+//! Losses: maps `(prediction, target) -> scalar` over arrays of one shape.
+//!
+//! Each loss is a map of the library with its reverse derivative, so it
+//! composes with a model like any other map and goes through the law
+//! checkers; its reverse derivative as a map is that of an equal composite of
+//! catalogue pieces, so every order exists. Losses sum over all elements
+//! (except [`MeanSquaredError`], which averages); a training loop averages
+//! over the examples of a batch.
+//!
+//! Different shapes of prediction and target are an
+//! [`Error::ShapeMismatch`](crate::Error::ShapeMismatch), never a broadcast.
+//!
+//! ```
+//! use revdiff::{Compose, LogitCrossEntropy, Map};
+//! use ndarray::array;
+//!
+//! // Logits for three classes; the target is class 2, one-hot.
+//! let (z, t) = (array![1.0, 2.0, 4.0], array![0.0, 0.0, 1.0]);
+//! let loss = LogitCrossEntropy.forward(&(z.clone(), t.clone())).unwrap();
+//! let expected = (1.0_f64.exp() + 2.0_f64.exp() + 4.0_f64.exp()).ln() - 4.0;
+//! assert!((loss - expected).abs() < 1e-12);
+//! // The change for the logits is softmax(z) - t.
+//! let (dz, _) = LogitCrossEntropy.backward(&(z, t), &1.0).unwrap();
+//! assert!(dz[2] < 0.0 && dz[0] > 0.0);
+//! ```
+
+use crate::combinators::{Duplicate, Fst, Id, Pair, Scaling, Snd, Then};
+use crate::error::{Error, Result};
+use crate::map::{Compose, Map, Reverse};
+use crate::primitives::pointwise::{logistic, softplus};
+use crate::primitives::{Clamp, Dot, LogSumExp, Mul, Powi, Softplus, Sub, Total, dot};
+use crate::space::{Real, same_shape};
+use ndarray::{Array, Dimension, Zip};
+
+/// A prediction and its target, arrays of the same shape.
+type Pairs<T, D> = (Array<T, D>, Array<T, D>);
+
+/// `(y, t) -> c sum_i (y_i - t_i)^2`, with `c = 1` ([`SquaredError::new`])
+/// or `c = 1/2` ([`SquaredError::halved`], whose gradient is `y - t`).
+///
+/// Reverse derivative: `(2c (y - t) dl, -2c (y - t) dl)`.
+///
+/// ```
+/// use revdiff::{Map, SquaredError};
+/// use ndarray::array;
+/// let input = (array![1.0, 2.0], array![0.0, 4.0]);
+/// assert_eq!(SquaredError::new().forward(&input).unwrap(), 5.0);
+/// let (dy, dt) = SquaredError::halved().backward(&input, &1.0).unwrap();
+/// assert_eq!((dy, dt), (array![1.0, -2.0], array![-1.0, 2.0]));
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct SquaredError {
+    half: bool,
+}
+
+impl SquaredError {
+    /// `sum (y - t)^2`.
+    pub fn new() -> Self {
+        SquaredError { half: false }
+    }
+    /// `sum (y - t)^2 / 2`.
+    pub fn halved() -> Self {
+        SquaredError { half: true }
+    }
+    fn factor<T: Real>(&self) -> T {
+        if self.half { real(0.5) } else { T::one() }
+    }
+}
+
+impl Default for SquaredError {
+    fn default() -> Self {
+        SquaredError::new()
+    }
+}
+
+/// `(y, t) -> mean_i (y_i - t_i)^2`. An empty pair of arrays is an
+/// [`Error::Empty`].
+///
+/// Reverse derivative: `(2 (y - t) dl / n, -2 (y - t) dl / n)`.
+///
+/// ```
+/// use revdiff::{Map, MeanSquaredError};
+/// use ndarray::array;
+/// let input = (array![1.0, 2.0], array![0.0, 4.0]);
+/// assert_eq!(MeanSquaredError.forward(&input).unwrap(), 2.5);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct MeanSquaredError;
+
+/// Cross-entropy of the softmax of logits `z` against a target distribution
+/// `t`: `(z, t) -> -sum_i t_i log softmax(z)_i`, computed as
+/// `sum(t) logsumexp(z) - <t, z>`, finite for logits of any size.
+///
+/// Reverse derivative: `((sum(t) softmax(z) - t) dl, (logsumexp(z) - z) dl)`.
+/// An empty pair of arrays is an [`Error::Empty`]. See the
+/// [module example](self).
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct LogitCrossEntropy;
+
+/// Binary cross-entropy of the logistic of logits `z` against targets `t`
+/// in `[0, 1]`: `(z, t) -> sum_i softplus(z_i) - t_i z_i`, which equals
+/// `-sum_i t_i ln sigmoid(z_i) + (1 - t_i) ln(1 - sigmoid(z_i))` and stays
+/// finite for logits of any size.
+///
+/// Reverse derivative: `((sigmoid(z) - t) dl, -z dl)`.
+///
+/// ```
+/// use revdiff::{LogitBinaryCrossEntropy, Map};
+/// use ndarray::array;
+/// let l = LogitBinaryCrossEntropy.forward(&(array![800.0, -800.0], array![1.0, 0.0])).unwrap();
+/// assert_eq!(l, 0.0);
+/// let l = LogitBinaryCrossEntropy.forward(&(array![0.0], array![1.0])).unwrap();
+/// assert!((l - 2.0_f64.ln()).abs() < 1e-15);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct LogitBinaryCrossEntropy;
+
+/// The Huber loss with threshold `delta`: with `r = y - t`,
+/// `sum_i h(r_i)`, `h(r) = r^2 / 2` for `|r| <= delta` and
+/// `delta (|r| - delta / 2)` beyond; quadratic near zero, linear far out.
+///
+/// Reverse derivative: `(clamp(r, -delta, delta) dl, -clamp(r, -delta, delta) dl)`.
+///
+/// ```
+/// use revdiff::{Huber, Map};
+/// use ndarray::array;
+/// let huber = Huber::new(1.0_f64).unwrap();
+/// let input = (array![0.5, 3.0], array![0.0, 0.0]);
+/// assert_eq!(huber.forward(&input).unwrap(), 0.125 + 2.5);
+/// assert_eq!(huber.backward(&input, &1.0).unwrap().0, array![0.5, 1.0]);
+/// assert!(Huber::new(0.0).is_err());
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Huber<T> {
+    delta: T,
+}
+
+impl<T: Real> Huber<T> {
+    /// The Huber loss with threshold `delta`, which must be positive and finite.
+    pub fn new(delta: T) -> Result<Self> {
+        if !(delta > T::zero() && delta.is_finite()) {
+            return Err(Error::InvalidSetting {
+                name: "huber delta",
+                value: delta.to_string(),
+                reason: "must be positive and finite",
+            });
+        }
+        Ok(Huber { delta })
+    }
+
+    /// The threshold between the quadratic and the linear part.
+    pub fn delta(&self) -> T {
+        self.delta
+    }
+}
+
+impl Compose for SquaredError {}
+impl Compose for MeanSquaredError {}
+impl Compose for LogitCrossEntropy {}
+impl Compose for LogitBinaryCrossEntropy {}
+impl<T> Compose for Huber<T> {}
+
+fn real<T: Real>(v: f64) -> T {
+    T::from(v).expect("every real type holds small constants")
+}
+
+/// Checks shapes and non-emptiness, and returns `y - t`.
+fn difference<T: Real, D: Dimension>(
+    operation: &'static str,
+    (y, t): &Pairs<T, D>,
+) -> Result<Array<T, D>> {
+    same_shape(operation, y, t)?;
+    Ok(y - t)
+}
+
+fn nonempty<T, D: Dimension>(operation: &'static str, y: &Array<T, D>) -> Result<()> {
+    if y.is_empty() {
+        Err(Error::Empty { operation })
+    } else {
+        Ok(())
+    }
+}
+
+/// The change `(s r dl, -s r dl)` shared by the squared errors and Huber,
+/// where `r` is the kept slope array.
+fn opposite_pair<T: Real, D: Dimension>(slope: &Array<T, D>, dl: T) -> Pairs<T, D> {
+    let d = slope * dl;
+    let neg = d.mapv(|v| -v);
+    (d, neg)
+}
+
+/// `(y, t) -> c |y - t|^2` as a composite.
+pub type SquaredErrorComposite<T> = Then<Then<Sub, Then<Duplicate, Dot>>, Scaling<T>>;
+/// `(y, t) -> mean (y - t)^2` as a composite.
+pub type MeanSquaredErrorComposite = Then<Then<Then<Sub, Duplicate>, Mul>, Total>;
+/// `(z, t) -> sum(t) logsumexp(z) - <z, t>` as a composite.
+pub type LogitCrossEntropyComposite =
+    Then<Pair<Then<Pair<Then<Snd, Total>, Then<Fst, LogSumExp>>, Mul>, Dot>, Sub>;
+/// `(z, t) -> sum softplus(z) - <z, t>` as a composite.
+pub type LogitBinaryCrossEntropyComposite = Then<Pair<Then<Then<Fst, Softplus>, Total>, Dot>, Sub>;
+/// `(y, t) -> sum clamp(r) r - clamp(r)^2 / 2` with `r = y - t`, as a
+/// composite; it equals the Huber loss and has the clamp as its slope.
+pub type HuberComposite<T> =
+    Then<Then<Sub, Then<Pair<Then<Pair<Clamp<T>, Id>, Mul>, Then<Clamp<T>, Powi<T>>>, Sub>>, Total>;
+
+impl SquaredError {
+    /// The equal composite of catalogue pieces.
+    pub fn composite<T: Real>(&self) -> SquaredErrorComposite<T> {
+        Sub.then(Duplicate.then(dot())).then(Scaling(self.factor()))
+    }
+}
+
+impl MeanSquaredError {
+    /// The equal composite of catalogue pieces.
+    pub fn composite(&self) -> MeanSquaredErrorComposite {
+        Sub.then(Duplicate).then(Mul).then(Total::mean())
+    }
+}
+
+impl LogitCrossEntropy {
+    /// The equal composite of catalogue pieces.
+    pub fn composite(&self) -> LogitCrossEntropyComposite {
+        Snd.then(Total::sum())
+            .pair(Fst.then(LogSumExp))
+            .then(Mul)
+            .pair(dot())
+            .then(Sub)
+    }
+}
+
+impl LogitBinaryCrossEntropy {
+    /// The equal composite of catalogue pieces.
+    pub fn composite(&self) -> LogitBinaryCrossEntropyComposite {
+        Fst.then(Softplus).then(Total::sum()).pair(dot()).then(Sub)
+    }
+}
+
+impl<T: Real> Huber<T> {
+    /// The equal composite of catalogue pieces.
+    pub fn composite(&self) -> HuberComposite<T> {
+        let clamp = Clamp::new(self.delta);
+        let inner = clamp
+            .pair(Id)
+            .then(Mul)
+            .pair(clamp.then(Powi::scaled(real(0.5), 2)));
+        Sub.then(inner.then(Sub)).then(Total::sum())
+    }
+}
+
+impl<T: Real, D: Dimension> Map<Pairs<T, D>> for SquaredError {
+    type Output = T;
+    type Residual = Array<T, D>;
+    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+        let r = difference("squared error", input)?;
+        let value = r.fold(T::zero(), |acc, &v| acc + v * v) * self.factor::<T>();
+        Ok((value, r * (real::<T>(2.0) * self.factor::<T>())))
+    }
+    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+        Ok(opposite_pair(slope, *dl))
+    }
+}
+
+impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
+    type Output = T;
+    type Residual = Array<T, D>;
+    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+        let r = difference("mean squared error", input)?;
+        nonempty("mean squared error", &r)?;
+        let n: T = real(r.len() as f64);
+        let value = r.fold(T::zero(), |acc, &v| acc + v * v) / n;
+        Ok((value, r * (real::<T>(2.0) / n)))
+    }
+    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+        Ok(opposite_pair(slope, *dl))
+    }
+}
+
+impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
+    type Output = T;
+    /// `(sum(t) softmax(z) - t, logsumexp(z) - z)`: the change per unit `dl`.
+    type Residual = Pairs<T, D>;
+    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
+        let (z, t) = input;
+        same_shape("cross-entropy on logits", z, t)?;
+        nonempty("cross-entropy on logits", z)?;
+        let m = z.fold(T::neg_infinity(), |m, &v| m.max(v));
+        let e = z.mapv(|v| (v - m).exp());
+        let total = e.sum();
+        let lse = m + total.ln();
+        let mass = t.sum();
+        let value = mass * lse
+            - Zip::from(z)
+                .and(t)
+                .fold(T::zero(), |acc, &a, &b| acc + a * b);
+        let dz = Zip::from(&e)
+            .and(t)
+            .map_collect(|&ei, &ti| mass * ei / total - ti);
+        let dt = z.mapv(|v| lse - v);
+        Ok((value, (dz, dt)))
+    }
+    fn backward_from(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+        Ok((dz * *dl, dt * *dl))
+    }
+}
+
+impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
+    type Output = T;
+    /// `(sigmoid(z) - t, -z)`: the change per unit `dl`.
+    type Residual = Pairs<T, D>;
+    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
+        let (z, t) = input;
+        same_shape("binary cross-entropy on logits", z, t)?;
+        let value = Zip::from(z)
+            .and(t)
+            .fold(T::zero(), |acc, &zi, &ti| acc + softplus(zi) - ti * zi);
+        let dz = Zip::from(z)
+            .and(t)
+            .map_collect(|&zi, &ti| logistic(zi) - ti);
+        Ok((value, (dz, z.mapv(|v| -v))))
+    }
+    fn backward_from(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+        Ok((dz * *dl, dt * *dl))
+    }
+}
+
+impl<T: Real, D: Dimension> Map<Pairs<T, D>> for Huber<T> {
+    type Output = T;
+    /// The clamped difference.
+    type Residual = Array<T, D>;
+    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+        let r = difference("huber loss", input)?;
+        let d = self.delta;
+        let half: T = real(0.5);
+        let value = r.fold(T::zero(), |acc, &v| {
+            acc + if v.abs() <= d {
+                half * v * v
+            } else {
+                d * (v.abs() - half * d)
+            }
+        });
+        Ok((value, r.mapv(|v| v.max(-d).min(d))))
+    }
+    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+        Ok(opposite_pair(slope, *dl))
+    }
+}
+
+macro_rules! reverse_through_composite {
+    ($ty:ty, $composite:ty, [$($gen:tt)*]) => {
+        impl<$($gen)*> Reverse<Pairs<T, D>> for $ty {
+            type Rev = <$composite as Reverse<Pairs<T, D>>>::Rev;
+            fn rev(&self) -> Self::Rev {
+                Reverse::<Pairs<T, D>>::rev(&self.composite())
+            }
+        }
+    };
+}
+
+reverse_through_composite!(SquaredError, SquaredErrorComposite<T>, [T: Real, D: Dimension]);
+reverse_through_composite!(MeanSquaredError, MeanSquaredErrorComposite, [T: Real, D: Dimension]);
+reverse_through_composite!(LogitCrossEntropy, LogitCrossEntropyComposite, [T: Real, D: Dimension]);
+reverse_through_composite!(
+    LogitBinaryCrossEntropy,
+    LogitBinaryCrossEntropyComposite,
+    [T: Real, D: Dimension]
+);
+reverse_through_composite!(Huber<T>, HuberComposite<T>, [T: Real, D: Dimension]);

@@ -1,0 +1,350 @@
+//! Parametrised maps `P x A -> B` and the ways of building them from one
+//! another.
+//!
+//! A parametrised map is any map whose input is a pair `(parameters, input)`:
+//! its reverse derivative returns a change for the parameters and a change
+//! for the input at once. [`Affine`](crate::Affine) (parameters `(W, b)`) and
+//! [`Mul`](crate::Mul) (a scalar parameter times the input) are parametrised
+//! maps as they stand; a map with no parameters becomes one with
+//! [`parameter_free`], and any parametrised map post-composes with an
+//! ordinary map by [`Compose::then`](crate::Compose::then).
+//!
+//! The methods of [`Parametrised`] build the rest: stacking (the parameter of
+//! the result is the pair of both parameters), reparametrisation, sharing and
+//! freezing. Each is one small struct with a direct forward and backward pass;
+//! its reverse derivative as a map is that of an equal composite of the
+//! catalogue's combinators, so every order exists.
+
+use crate::combinators::{Constant, Cross, Duplicate, Fst, Id, Pair, Snd, Then};
+use crate::error::Result;
+use crate::map::{Compose, Map, Reverse};
+use crate::space::Space;
+
+/// The methods that build parametrised maps, provided for every map.
+///
+/// # Example
+///
+/// A two-stage model `x -> tanh(W2 tanh(W1 x + b1) + b2)` whose parameter is
+/// the pair of both stages' parameters, and its gradient:
+///
+/// ```
+/// use revdiff::{Affine, Compose, Map, Parametrised, Tanh};
+/// use ndarray::array;
+///
+/// let model = Affine.then(Tanh).followed_by(Affine.then(Tanh));
+/// let first = (array![[0.5, -0.2], [0.1, 0.3]], array![0.0, 0.1]);
+/// let second = (array![[1.0, -1.0]], array![0.2]);
+/// let params = (first, second);
+/// let x = array![1.0, 2.0];
+///
+/// let y = model.forward(&(params.clone(), x.clone())).unwrap();
+/// assert_eq!(y.len(), 1);
+/// // One backward pass: a change for every parameter and for the input.
+/// let ((d_first, d_second), dx) = model.backward(&(params, x), &array![1.0]).unwrap();
+/// assert_eq!(d_first.0.dim(), (2, 2));
+/// assert_eq!(d_second.1.len(), 1);
+/// assert_eq!(dx.len(), 2);
+/// ```
+pub trait Parametrised: Compose {
+    /// Feeds the output of `self: P x A -> B` into `g: Q x B -> C`: the map
+    /// `((p, q), a) -> g(q, self(p, a))`, parametrised by the pair. See
+    /// [`Stacked`].
+    fn followed_by<G>(self, g: G) -> Stacked<Self, G>
+    where
+        Self: Sized,
+    {
+        Stacked {
+            first: self,
+            second: g,
+        }
+    }
+
+    /// Pre-composes `r: Q -> P` on the parameter: `(q, a) -> self(r(q), a)`,
+    /// whose parameter change is `R[r](q, dp)`. See [`Reparametrised`].
+    fn reparametrised<R>(self, r: R) -> Reparametrised<Self, R>
+    where
+        Self: Sized,
+    {
+        Reparametrised {
+            map: self,
+            through: r,
+        }
+    }
+
+    /// Uses one parameter in both slots of a map parametrised by `(P, P)`:
+    /// `(p, a) -> self((p, p), a)`. The gradient is the sum of both slots'
+    /// gradients (the reverse derivative of the copy).
+    ///
+    /// ```
+    /// use revdiff::{Compose, Map, Mul, Parametrised};
+    /// // (w, x) -> w (w x) = w^2 x, from two uses of one weight.
+    /// let twice = Mul.followed_by(Mul).shared();
+    /// let (dw, dx) = twice.backward(&(3.0_f64, 2.0), &1.0).unwrap();
+    /// assert_eq!(twice.forward(&(3.0, 2.0)).unwrap(), 18.0);
+    /// assert_eq!((dw, dx), (12.0, 9.0)); // 2 w x and w^2
+    /// ```
+    fn shared(self) -> Reparametrised<Self, Duplicate>
+    where
+        Self: Sized,
+    {
+        self.reparametrised(Duplicate)
+    }
+
+    /// Holds the first part of a pair parameter `(P, Q)` at `p`: the result
+    /// is parametrised by `Q` alone, so an optimiser never sees or moves `p`.
+    ///
+    /// ```
+    /// use revdiff::{Affine, Map, Parametrised};
+    /// use ndarray::array;
+    /// // An affine map that learns its bias only.
+    /// let shift_only = Affine.freeze_first(array![[2.0]]);
+    /// let (db, dx) = shift_only.backward(&(array![1.0], array![3.0]), &array![1.0]).unwrap();
+    /// assert_eq!(db, array![1.0]);
+    /// assert_eq!(dx, array![2.0]);
+    /// ```
+    fn freeze_first<P>(self, p: P) -> Reparametrised<Self, Pair<Constant<P>, Id>>
+    where
+        Self: Sized,
+    {
+        self.reparametrised(Pair::new(Constant(p), Id))
+    }
+
+    /// Holds the second part of a pair parameter `(P, Q)` at `q`: the result
+    /// is parametrised by `P` alone.
+    ///
+    /// ```
+    /// use revdiff::{Affine, Map, Parametrised};
+    /// use ndarray::array;
+    /// // An affine map with a fixed bias, learning its weights only.
+    /// let fixed_bias = Affine.freeze_second(array![0.5]);
+    /// let y = fixed_bias.forward(&(array![[2.0]], array![3.0])).unwrap();
+    /// assert_eq!(y, array![6.5]);
+    /// ```
+    fn freeze_second<Q>(self, q: Q) -> Reparametrised<Self, Pair<Id, Constant<Q>>>
+    where
+        Self: Sized,
+    {
+        self.reparametrised(Pair::new(Id, Constant(q)))
+    }
+
+    /// Fixes all parameters: the ordinary map `a -> self(p, a)`, for
+    /// predictions and for checking the input side alone. See [`Bound`].
+    fn with_parameters<P>(self, p: P) -> Bound<Self, P>
+    where
+        Self: Sized,
+    {
+        Bound {
+            map: self,
+            parameters: p,
+        }
+    }
+}
+
+impl<T: Compose> Parametrised for T {}
+
+/// A map with no parameters as a parametrised map with parameter `()`:
+/// `((), a) -> f(a)`.
+///
+/// ```
+/// use revdiff::{parameter_free, Affine, Map, Parametrised, Tanh};
+/// use ndarray::array;
+/// let model = Affine.followed_by(parameter_free(Tanh));
+/// let params = ((array![[1.0]], array![0.0]), ());
+/// let y = model.forward(&(params, array![0.5])).unwrap();
+/// assert!((y[0] - 0.5_f64.tanh()).abs() < 1e-15);
+/// ```
+pub fn parameter_free<F>(f: F) -> Then<Snd, F> {
+    Snd.then(f)
+}
+
+/// `first` then `second`, parametrised by the pair of their parameters.
+/// Created by [`Parametrised::followed_by`]; see there for an example.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Stacked<F, G> {
+    /// The map applied first, `P x A -> B`.
+    pub first: F,
+    /// The map applied second, `Q x B -> C`.
+    pub second: G,
+}
+
+/// A parametrised map whose parameter comes through a map `Q -> P`.
+/// Created by [`Parametrised::reparametrised`], [`Parametrised::shared`],
+/// [`Parametrised::freeze_first`] and [`Parametrised::freeze_second`].
+///
+/// ```
+/// use revdiff::{Compose, Exp, Map, Mul, Parametrised};
+/// // A positive scale learnt through its logarithm: (s, x) -> e^s x.
+/// let model = Mul.reparametrised(Exp);
+/// let (ds, dx) = model.backward(&(0.0_f64, 3.0), &1.0).unwrap();
+/// assert_eq!((ds, dx), (3.0, 1.0));
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Reparametrised<F, R> {
+    /// The parametrised map.
+    pub map: F,
+    /// The map from the new parameter to the old one.
+    pub through: R,
+}
+
+/// A parametrised map with its parameters fixed, `a -> f(p, a)`. Created by
+/// [`Parametrised::with_parameters`].
+///
+/// ```
+/// use revdiff::{Map, Mul, Parametrised};
+/// let triple = Mul.with_parameters(3.0_f64);
+/// assert_eq!(triple.forward(&2.0).unwrap(), 6.0);
+/// assert_eq!(triple.backward(&2.0, &1.0).unwrap(), 3.0);
+/// ```
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Bound<F, P> {
+    /// The parametrised map.
+    pub map: F,
+    /// The fixed parameters.
+    pub parameters: P,
+}
+
+impl<F, G> Compose for Stacked<F, G> {}
+impl<F, R> Compose for Reparametrised<F, R> {}
+impl<F, P> Compose for Bound<F, P> {}
+
+/// `((p, q), a) -> second(q, first(p, a))` written with combinators.
+pub type StackedComposite<F, G> = Then<Pair<Then<Fst, Snd>, Then<Pair<Then<Fst, Fst>, Snd>, F>>, G>;
+
+/// `(q, a) -> map(through(q), a)` written with combinators.
+pub type ReparametrisedComposite<F, R> = Then<Cross<R, Id>, F>;
+
+/// `a -> map(p, a)` written with combinators.
+pub type BoundComposite<F, P> = Then<Pair<Constant<P>, Id>, F>;
+
+impl<F: Clone, G: Clone> Stacked<F, G> {
+    /// The equal composite of catalogue combinators.
+    pub fn composite(&self) -> StackedComposite<F, G> {
+        let first = Then::new(Fst.then(Fst).pair(Snd), self.first.clone());
+        Then::new(Fst.then(Snd).pair(first), self.second.clone())
+    }
+}
+
+impl<F: Clone, R: Clone> Reparametrised<F, R> {
+    /// The equal composite of catalogue combinators.
+    pub fn composite(&self) -> ReparametrisedComposite<F, R> {
+        Then::new(Cross::new(self.through.clone(), Id), self.map.clone())
+    }
+}
+
+impl<F: Clone, P: Clone> Bound<F, P> {
+    /// The equal composite of catalogue combinators.
+    pub fn composite(&self) -> BoundComposite<F, P> {
+        Then::new(Constant(self.parameters.clone()).pair(Id), self.map.clone())
+    }
+}
+
+impl<P, Q, A, F, G> Map<((P, Q), A)> for Stacked<F, G>
+where
+    P: Space,
+    Q: Space,
+    A: Space,
+    F: Map<(P, A)>,
+    G: Map<(Q, F::Output)>,
+{
+    type Output = G::Output;
+    type Residual = (F::Residual, G::Residual);
+    fn forward(&self, ((p, q), a): &((P, Q), A)) -> Result<G::Output> {
+        let b = self.first.forward(&(p.clone(), a.clone()))?;
+        self.second.forward(&(q.clone(), b))
+    }
+    fn forward_keep(&self, ((p, q), a): &((P, Q), A)) -> Result<(G::Output, Self::Residual)> {
+        let (b, rf) = self.first.forward_keep(&(p.clone(), a.clone()))?;
+        let (c, rg) = self.second.forward_keep(&(q.clone(), b))?;
+        Ok((c, (rf, rg)))
+    }
+    fn backward_from(&self, (rf, rg): &Self::Residual, dc: &G::Output) -> Result<((P, Q), A)> {
+        let (dq, db) = self.second.backward_from(rg, dc)?;
+        let (dp, da) = self.first.backward_from(rf, &db)?;
+        Ok(((dp, dq), da))
+    }
+}
+
+impl<P, Q, A, F, G> Reverse<((P, Q), A)> for Stacked<F, G>
+where
+    P: Space,
+    Q: Space,
+    A: Space,
+    F: Reverse<(P, A)>,
+    G: Reverse<(Q, F::Output)>,
+    StackedComposite<F, G>: Reverse<((P, Q), A), Output = G::Output>,
+{
+    type Rev = <StackedComposite<F, G> as Reverse<((P, Q), A)>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        self.composite().rev()
+    }
+}
+
+impl<Q, A, F, R> Map<(Q, A)> for Reparametrised<F, R>
+where
+    Q: Space,
+    A: Space,
+    R: Map<Q>,
+    F: Map<(R::Output, A)>,
+{
+    type Output = F::Output;
+    type Residual = (R::Residual, F::Residual);
+    fn forward(&self, (q, a): &(Q, A)) -> Result<F::Output> {
+        let p = self.through.forward(q)?;
+        self.map.forward(&(p, a.clone()))
+    }
+    fn forward_keep(&self, (q, a): &(Q, A)) -> Result<(F::Output, Self::Residual)> {
+        let (p, rr) = self.through.forward_keep(q)?;
+        let (y, rf) = self.map.forward_keep(&(p, a.clone()))?;
+        Ok((y, (rr, rf)))
+    }
+    fn backward_from(&self, (rr, rf): &Self::Residual, dy: &F::Output) -> Result<(Q, A)> {
+        let (dp, da) = self.map.backward_from(rf, dy)?;
+        Ok((self.through.backward_from(rr, &dp)?, da))
+    }
+}
+
+impl<Q, A, F, R> Reverse<(Q, A)> for Reparametrised<F, R>
+where
+    Q: Space,
+    A: Space,
+    R: Reverse<Q>,
+    F: Reverse<(R::Output, A)>,
+    ReparametrisedComposite<F, R>: Reverse<(Q, A), Output = F::Output>,
+{
+    type Rev = <ReparametrisedComposite<F, R> as Reverse<(Q, A)>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        self.composite().rev()
+    }
+}
+
+impl<P, A, F> Map<A> for Bound<F, P>
+where
+    P: Space,
+    A: Space,
+    F: Map<(P, A)>,
+{
+    type Output = F::Output;
+    type Residual = F::Residual;
+    fn forward(&self, a: &A) -> Result<F::Output> {
+        self.map.forward(&(self.parameters.clone(), a.clone()))
+    }
+    fn forward_keep(&self, a: &A) -> Result<(F::Output, F::Residual)> {
+        self.map.forward_keep(&(self.parameters.clone(), a.clone()))
+    }
+    fn backward_from(&self, residual: &F::Residual, dy: &F::Output) -> Result<A> {
+        Ok(self.map.backward_from(residual, dy)?.1)
+    }
+}
+
+impl<P, A, F> Reverse<A> for Bound<F, P>
+where
+    P: Space,
+    A: Space,
+    F: Reverse<(P, A)>,
+    BoundComposite<F, P>: Reverse<A, Output = F::Output>,
+{
+    type Rev = <BoundComposite<F, P> as Reverse<A>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        self.composite().rev()
+    }
+}

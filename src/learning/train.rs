@@ -1,0 +1,467 @@
+//! The minibatch training loop: a parametrised model, a loss, an optimiser
+//! and an in-memory dataset of ndarray rows.
+
+use crate::error::{Error, Result};
+use crate::learning::optimise::Optimiser;
+use crate::map::Map;
+use crate::space::{Euclidean, Real, Space};
+use ndarray::{Array1, Array2, Axis};
+use rand::SeedableRng;
+use rand::rngs::StdRng;
+use rand::seq::SliceRandom;
+use std::fmt;
+
+/// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
+///
+/// ```
+/// use revdiff::Dataset;
+/// use ndarray::array;
+/// let data = Dataset::new(array![[1.0], [2.0]], array![[2.0], [4.0]]).unwrap();
+/// assert_eq!(data.len(), 2);
+/// assert!(Dataset::new(array![[1.0], [2.0]], array![[2.0]]).is_err());
+/// assert!(Dataset::new(array![[f64::NAN]], array![[2.0]]).is_err());
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub struct Dataset<T> {
+    inputs: Array2<T>,
+    targets: Array2<T>,
+}
+
+impl<T: Real> Dataset<T> {
+    /// A dataset from input rows and target rows. Refuses no rows
+    /// ([`Error::Empty`]), different row counts ([`Error::Rows`]) and
+    /// non-finite values ([`Error::NonFinite`], naming the row).
+    pub fn new(inputs: Array2<T>, targets: Array2<T>) -> Result<Self> {
+        if inputs.nrows() != targets.nrows() {
+            return Err(Error::Rows {
+                inputs: inputs.nrows(),
+                targets: targets.nrows(),
+            });
+        }
+        if inputs.nrows() == 0 {
+            return Err(Error::Empty {
+                operation: "dataset",
+            });
+        }
+        for (name, values) in [("input", &inputs), ("target", &targets)] {
+            if let Some((row, _)) = values
+                .axis_iter(Axis(0))
+                .enumerate()
+                .find(|(_, r)| r.iter().any(|v| !v.is_finite()))
+            {
+                return Err(Error::NonFinite {
+                    operation: "dataset",
+                    detail: format!("in {name} row {row}"),
+                });
+            }
+        }
+        Ok(Dataset { inputs, targets })
+    }
+
+    /// Number of examples (at least 1).
+    pub fn len(&self) -> usize {
+        self.inputs.nrows()
+    }
+
+    /// Always false: a dataset has at least one example.
+    pub fn is_empty(&self) -> bool {
+        false
+    }
+
+    /// The input rows.
+    pub fn inputs(&self) -> &Array2<T> {
+        &self.inputs
+    }
+
+    /// The target rows.
+    pub fn targets(&self) -> &Array2<T> {
+        &self.targets
+    }
+
+    /// Example `i` as (input, target).
+    pub fn example(&self, i: usize) -> (Array1<T>, Array1<T>) {
+        (
+            self.inputs.row(i).to_owned(),
+            self.targets.row(i).to_owned(),
+        )
+    }
+
+    fn select(&self, rows: &[usize]) -> Self {
+        Dataset {
+            inputs: self.inputs.select(Axis(0), rows),
+            targets: self.targets.select(Axis(0), rows),
+        }
+    }
+}
+
+/// What the observer is told after every step.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Progress<T> {
+    /// Steps (parameter updates) taken so far, counting this one.
+    pub step: usize,
+    /// The epoch of this step, counting from 1.
+    pub epoch: usize,
+    /// Mean loss over this step's batch, at the parameters before the update.
+    pub loss: T,
+    /// Whether this step ended its epoch.
+    pub epoch_finished: bool,
+    /// At the end of an epoch with early stopping: the mean loss over the
+    /// validation rows, after the update.
+    pub validation_loss: Option<T>,
+}
+
+/// A finished training run.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Trained<P, T> {
+    /// The parameters: the last ones, or with early stopping those with the
+    /// lowest validation loss.
+    pub parameters: P,
+    /// Parameter updates made.
+    pub steps: usize,
+    /// Epochs run.
+    pub epochs: usize,
+    /// Whether early stopping ended the run before the last epoch.
+    pub stopped_early: bool,
+    /// Mean training loss of each epoch, over its examples.
+    pub epoch_losses: Vec<T>,
+    /// Validation loss after each epoch (empty without early stopping).
+    pub validation_losses: Vec<T>,
+}
+
+/// A training run that could not go on; no work is lost: `parameters` are the
+/// last good ones (those before the refused update).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Interrupted<P> {
+    /// What went wrong; a non-finite loss, gradient or update is
+    /// [`Error::Diverged`] naming the step.
+    pub error: Error,
+    /// The step that failed, counting from 1 (0: before the first step).
+    pub step: usize,
+    /// The last good parameters.
+    pub parameters: P,
+}
+
+impl<P> fmt::Display for Interrupted<P> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "training stopped at step {}: {}", self.step, self.error)
+    }
+}
+
+impl<P: fmt::Debug> std::error::Error for Interrupted<P> {
+    fn source(&self) -> Option<&(dyn std::error::Error + 'static)> {
+        Some(&self.error)
+    }
+}
+
+/// The settings of a training run, checked at construction.
+///
+/// # Example
+///
+/// Fitting `y = 2x + 1` with an affine model, mean squared error and Adam:
+///
+/// ```
+/// use revdiff::{Adam, Affine, Dataset, MeanSquaredError, Training};
+/// use ndarray::{array, Array2};
+///
+/// let x = Array2::from_shape_fn((20, 1), |(i, _)| i as f64 / 10.0);
+/// let y = x.mapv(|v| 2.0 * v + 1.0);
+/// let data = Dataset::new(x, y).unwrap();
+/// let start = (array![[0.0]], array![0.0]);
+/// let mut adam = Adam::new(0.05).unwrap();
+/// let mut losses = Vec::new();
+/// let run = Training::new(300, 5)
+///     .unwrap()
+///     .run(&Affine, &MeanSquaredError, &mut adam, start, &data, |p| losses.push(p.loss))
+///     .unwrap();
+/// let (w, b) = &run.parameters;
+/// assert!((w[[0, 0]] - 2.0).abs() < 1e-2 && (b[0] - 1.0).abs() < 1e-2);
+/// assert_eq!(run.steps, 300 * 4);
+/// assert_eq!(losses.len(), run.steps);
+///
+/// assert!(Training::new(10, 0).is_err()); // a batch size of zero
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Training {
+    epochs: usize,
+    batch_size: usize,
+    seed: u64,
+    early_stopping: Option<EarlyStopping>,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+struct EarlyStopping {
+    fraction: f64,
+    patience: usize,
+}
+
+impl Training {
+    /// `epochs` passes over the data in batches of `batch_size` rows (the
+    /// last batch of an epoch may be smaller); both must be at least 1. Rows
+    /// are shuffled every epoch by a generator seeded with 0 by default.
+    pub fn new(epochs: usize, batch_size: usize) -> Result<Self> {
+        for (name, value) in [("epochs", epochs), ("batch size", batch_size)] {
+            if value == 0 {
+                return Err(Error::InvalidSetting {
+                    name,
+                    value: "0".to_string(),
+                    reason: "must be at least 1",
+                });
+            }
+        }
+        Ok(Training {
+            epochs,
+            batch_size,
+            seed: 0,
+            early_stopping: None,
+        })
+    }
+
+    /// Seeds the shuffling (and the validation split); the same seed gives
+    /// the same run.
+    pub fn seed(mut self, seed: u64) -> Self {
+        self.seed = seed;
+        self
+    }
+
+    /// Holds out `fraction` (in `(0, 1)`) of the rows, chosen by the seeded
+    /// generator, and stops when the validation loss has not improved for
+    /// `patience` (at least 1) epochs, returning the best parameters seen.
+    pub fn early_stopping(mut self, fraction: f64, patience: usize) -> Result<Self> {
+        if !(fraction > 0.0 && fraction < 1.0) {
+            return Err(Error::InvalidSetting {
+                name: "validation fraction",
+                value: fraction.to_string(),
+                reason: "must be in (0, 1)",
+            });
+        }
+        if patience == 0 {
+            return Err(Error::InvalidSetting {
+                name: "patience",
+                value: "0".to_string(),
+                reason: "must be at least 1",
+            });
+        }
+        self.early_stopping = Some(EarlyStopping { fraction, patience });
+        Ok(self)
+    }
+
+    /// Trains `model: P x R^n -> B` on `data` under `loss: B x R^k -> T`,
+    /// starting from `start`; `observer` is called after every step.
+    ///
+    /// Each step averages the loss and the parameter gradient over a batch
+    /// (one forward and one backward pass per row) and hands the gradient to
+    /// the optimiser. A non-finite loss, gradient or updated parameter stops
+    /// the run with [`Error::Diverged`]; any error comes back as
+    /// [`Interrupted`] holding the last good parameters.
+    pub fn run<T, P, B, M, L, O>(
+        &self,
+        model: &M,
+        loss: &L,
+        optimiser: &mut O,
+        start: P,
+        data: &Dataset<T>,
+        mut observer: impl FnMut(&Progress<T>),
+    ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
+    where
+        T: Real,
+        P: Euclidean<T>,
+        B: Space,
+        M: Map<(P, Array1<T>), Output = B>,
+        L: Map<(B, Array1<T>), Output = T>,
+        O: Optimiser<T>,
+    {
+        let mut rng = StdRng::seed_from_u64(self.seed);
+        let (train, validation) = match self.split(data, &mut rng) {
+            Ok(parts) => parts,
+            Err(error) => {
+                return Err(Interrupted {
+                    error,
+                    step: 0,
+                    parameters: start,
+                });
+            }
+        };
+        if let Some(error) = (!start.all_finite()).then(|| Error::NonFinite {
+            operation: "training",
+            detail: "in the starting parameters".to_string(),
+        }) {
+            return Err(Interrupted {
+                error,
+                step: 0,
+                parameters: start,
+            });
+        }
+
+        let mut params = start;
+        let mut order: Vec<usize> = (0..train.len()).collect();
+        let mut step = 0;
+        let mut epoch_losses = Vec::with_capacity(self.epochs);
+        let mut validation_losses = Vec::new();
+        let mut best: Option<(T, P)> = None;
+        let mut since_best = 0;
+        let mut stopped_early = false;
+
+        for epoch in 1..=self.epochs {
+            order.shuffle(&mut rng);
+            let batches = order.len().div_ceil(self.batch_size);
+            let mut epoch_total = T::zero();
+            for (b, rows) in order.chunks(self.batch_size).enumerate() {
+                step += 1;
+                let fail = |error: Error, parameters: P| Interrupted {
+                    error,
+                    step,
+                    parameters,
+                };
+                let (batch_loss, gradient) =
+                    match batch_gradient(model, loss, &params, &train, rows) {
+                        Ok(lg) => lg,
+                        Err(e) => return Err(fail(e, params)),
+                    };
+                let diverged = |quantity| Error::Diverged {
+                    step,
+                    epoch,
+                    quantity,
+                };
+                if !batch_loss.is_finite() {
+                    return Err(fail(diverged("loss"), params));
+                }
+                if !gradient.all_finite() {
+                    return Err(fail(diverged("gradient"), params));
+                }
+                let updated = match optimiser.update(&params, &gradient) {
+                    Ok(p) => p,
+                    Err(e) => return Err(fail(e, params)),
+                };
+                if !updated.all_finite() {
+                    return Err(fail(diverged("updated parameters"), params));
+                }
+                params = updated;
+                epoch_total = epoch_total + batch_loss * count::<T>(rows.len());
+
+                let epoch_finished = b + 1 == batches;
+                let mut validation_loss = None;
+                if let (true, Some(valid)) = (epoch_finished, &validation) {
+                    match mean_loss(model, loss, &params, valid) {
+                        Ok(v) if v.is_finite() => validation_loss = Some(v),
+                        Ok(_) => return Err(fail(diverged("validation loss"), params)),
+                        Err(e) => return Err(fail(e, params)),
+                    }
+                }
+                observer(&Progress {
+                    step,
+                    epoch,
+                    loss: batch_loss,
+                    epoch_finished,
+                    validation_loss,
+                });
+                if let Some(v) = validation_loss {
+                    validation_losses.push(v);
+                    if best.as_ref().is_none_or(|(b, _)| v < *b) {
+                        best = Some((v, params.clone()));
+                        since_best = 0;
+                    } else {
+                        since_best += 1;
+                    }
+                }
+            }
+            epoch_losses.push(epoch_total / count::<T>(order.len()));
+            let patience = self.early_stopping.map_or(usize::MAX, |e| e.patience);
+            if since_best >= patience && epoch < self.epochs {
+                stopped_early = true;
+                break;
+            }
+        }
+
+        let epochs = epoch_losses.len();
+        Ok(Trained {
+            parameters: best.map_or(params, |(_, p)| p),
+            steps: step,
+            epochs,
+            stopped_early,
+            epoch_losses,
+            validation_losses,
+        })
+    }
+
+    /// The training rows and, with early stopping, the validation rows.
+    fn split<T: Real>(
+        &self,
+        data: &Dataset<T>,
+        rng: &mut StdRng,
+    ) -> Result<(Dataset<T>, Option<Dataset<T>>)> {
+        let Some(stopping) = self.early_stopping else {
+            return Ok((data.clone(), None));
+        };
+        let n = data.len();
+        let held = (stopping.fraction * n as f64).round() as usize;
+        if held == 0 || held == n {
+            return Err(Error::InvalidSetting {
+                name: "validation fraction",
+                value: stopping.fraction.to_string(),
+                reason: "leaves no validation rows or no training rows for this dataset",
+            });
+        }
+        let mut rows: Vec<usize> = (0..n).collect();
+        rows.shuffle(rng);
+        let (valid, train) = rows.split_at(held);
+        Ok((data.select(train), Some(data.select(valid))))
+    }
+}
+
+fn count<T: Real>(n: usize) -> T {
+    T::from(n).expect("row counts fit every real type")
+}
+
+/// Mean loss and mean parameter gradient over the given rows.
+fn batch_gradient<T, P, B, M, L>(
+    model: &M,
+    loss: &L,
+    params: &P,
+    data: &Dataset<T>,
+    rows: &[usize],
+) -> Result<(T, P)>
+where
+    T: Real,
+    P: Euclidean<T>,
+    B: Space,
+    M: Map<(P, Array1<T>), Output = B>,
+    L: Map<(B, Array1<T>), Output = T>,
+{
+    let mut total = T::zero();
+    let mut gradient: Option<P> = None;
+    for &i in rows {
+        let (x, t) = data.example(i);
+        let (y, kept_model) = model.forward_keep(&(params.clone(), x))?;
+        let (l, kept_loss) = loss.forward_keep(&(y, t))?;
+        let (dy, _) = loss.backward_from(&kept_loss, &T::one())?;
+        let (dp, _) = model.backward_from(&kept_model, &dy)?;
+        total = total + l;
+        match gradient.as_mut() {
+            Some(g) => g.try_add_assign(&dp)?,
+            None => gradient = Some(dp),
+        }
+    }
+    let n = count::<T>(rows.len());
+    let gradient = gradient.ok_or(Error::Empty {
+        operation: "training batch",
+    })?;
+    Ok((total / n, gradient.scale(T::one() / n)))
+}
+
+/// Mean loss over all rows of `data`, forward passes only.
+fn mean_loss<T, P, B, M, L>(model: &M, loss: &L, params: &P, data: &Dataset<T>) -> Result<T>
+where
+    T: Real,
+    P: Space,
+    B: Space,
+    M: Map<(P, Array1<T>), Output = B>,
+    L: Map<(B, Array1<T>), Output = T>,
+{
+    let mut total = T::zero();
+    for i in 0..data.len() {
+        let (x, t) = data.example(i);
+        let y = model.forward(&(params.clone(), x))?;
+        total = total + loss.forward(&(y, t))?;
+    }
+    Ok(total / count::<T>(data.len()))
+}
