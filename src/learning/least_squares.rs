@@ -356,12 +356,21 @@ impl LeastSquares {
             }
             iterations += 1;
             let current = Array1::from(p.clone());
+            // Marquardt's scaling damps each parameter by its own curvature;
+            // a floor keeps a parameter the residuals ignore from making the
+            // damped system singular (its step is then zero).
+            let largest = jtj.diag().iter().fold(R::zero(), |m, v| m.max(*v));
+            let floor = if largest > R::zero() {
+                largest * real(1e-12)
+            } else {
+                R::one()
+            };
             // Try damped steps until one lowers the sum of squares.
             let accepted = loop {
                 let mut a = jtj.clone();
                 if self.method == Method::LevenbergMarquardt {
                     for k in 0..n {
-                        a[[k, k]] = a[[k, k]] + lambda * jtj[[k, k]];
+                        a[[k, k]] = a[[k, k]] + lambda * jtj[[k, k]].max(floor);
                     }
                 }
                 let step = match solve_symmetric(&a, &g.mapv(|v| -v)) {
