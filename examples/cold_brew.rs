@@ -76,6 +76,9 @@ impl Map<RiseInput> for Rise {
     }
 }
 
+/// `((ln h, ln n), (c as 1 x 1, c0 as length 1))`.
+type Params = ((f64, f64), (Array2<f64>, Array1<f64>));
+
 /// The true curve the invented samples are drawn from.
 const TRUE_H: f64 = 3.0;
 const TRUE_N: f64 = 2.2;
@@ -118,7 +121,6 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
 
     // 2. The model: rise through log-parameters, then c * rise + c0.
     let model = Rise.reparametrised(Exp.cross(Exp)).followed_by(Affine);
-    type Params = ((f64, f64), (Array2<f64>, Array1<f64>));
     let start: Params = ((0.0, 0.0), (array![[1.0]], array![0.0]));
 
     let (times, strengths) = invented_samples();
@@ -197,7 +199,7 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
     Ok(())
 }
 
-fn describe(((log_h, log_n), (w, b)): &((f64, f64), (Array2<f64>, Array1<f64>))) -> String {
+fn describe(((log_h, log_n), (w, b)): &Params) -> String {
     format!(
         "h = {:.4} h, n = {:.4}, c = {:.4} g/L, c0 = {:.4} g/L",
         log_h.exp(),

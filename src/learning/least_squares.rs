@@ -4,14 +4,19 @@
 //!
 //! A residual map is anything implementing [`Residuals`]: a whole map of the
 //! library ([`residual_map`]; its Jacobian by `m` backward passes or `n`
-//! forward passes, whichever is fewer), or a model fitted to data points
+//! forward passes, whichever is cheaper), or a model fitted to data points
 //! ([`CurveResiduals`]; one backward pass per point).
 
 use crate::error::{Error, Result};
-use crate::higher::jacobian;
+use crate::higher::{jacobian_by_backward, jacobian_by_forward};
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real};
 use ndarray::{Array1, Array2, Axis};
+use std::sync::OnceLock;
+use std::time::Instant;
+
+/// A residual vector and the Jacobian of the residuals at the same point.
+pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
 
 /// A map `P -> R^m` whose value and Jacobian a fitter can ask for.
 pub trait Residuals<P> {
@@ -23,31 +28,75 @@ pub trait Residuals<P> {
 
     /// The residual vector and the `m x n` Jacobian at `p` (`n` parameter
     /// coordinates, in [`Euclidean`] order).
-    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<Self::Real>, Array2<Self::Real>)>;
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<Self::Real>>;
+}
+
+/// How [`ResidualMap`] takes its Jacobian.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum JacobianRoute {
+    /// One backward pass per residual ([`jacobian_by_backward`]).
+    Backward,
+    /// One forward derivative per parameter ([`jacobian_by_forward`]), each
+    /// read off the second reverse derivative.
+    Forward,
+    /// Whichever is cheaper. With no more residuals than parameters that is
+    /// the backward route (fewer passes, and a forward derivative costs at
+    /// least a backward pass). Otherwise the first Jacobian is taken both
+    /// ways and timed, and the faster route is kept from then on: a forward
+    /// derivative of a composite costs several times a backward pass (40
+    /// times for `p -> tanh(A p) - b` in `benches/learning.rs`), so fewer
+    /// passes is not always less work. Both routes are exact; they differ
+    /// only by rounding.
+    Cheaper,
 }
 
 /// A map of the library `P -> Array1<R>` as residuals. Created by
 /// [`residual_map`].
-#[derive(Clone, Debug, PartialEq)]
+#[derive(Clone, Debug)]
 pub struct ResidualMap<F> {
     map: F,
+    route: JacobianRoute,
+    chosen: OnceLock<JacobianRoute>,
 }
 
-/// Uses a map `P -> Array1<R>` as a residual map; its Jacobian comes from
-/// [`jacobian`](crate::jacobian): `m` backward passes when the residuals
-/// are no more than the parameters, `n` forward derivatives otherwise.
+/// Uses a map `P -> Array1<R>` as a residual map, its Jacobian by the
+/// cheaper route ([`JacobianRoute::Cheaper`]); see [`ResidualMap::route`].
 ///
 /// ```
-/// use revdiff::{residual_map, Residuals, Compose, Map, Sub, fst, snd, constant};
+/// use revdiff::{constant, id, residual_map, Compose, Neg, Residuals, Sub};
 /// use ndarray::array;
 /// // r(a) = a - (1, 2) as a map of arrays.
-/// let r = residual_map(constant(array![1.0, 2.0]).pair(revdiff::id()).then(Sub).then(revdiff::Neg));
+/// let r = residual_map(constant(array![1.0, 2.0]).pair(id()).then(Sub).then(Neg));
 /// let (value, j) = r.residuals_and_jacobian(&array![3.0, 3.0]).unwrap();
 /// assert_eq!(value, array![2.0, 1.0]);
 /// assert_eq!(j, array![[1.0, 0.0], [0.0, 1.0]]);
 /// ```
 pub fn residual_map<F>(map: F) -> ResidualMap<F> {
-    ResidualMap { map }
+    ResidualMap {
+        map,
+        route: JacobianRoute::Cheaper,
+        chosen: OnceLock::new(),
+    }
+}
+
+impl<F> ResidualMap<F> {
+    /// Fixes the route of the Jacobian.
+    pub fn route(self, route: JacobianRoute) -> Self {
+        ResidualMap {
+            map: self.map,
+            route,
+            chosen: OnceLock::new(),
+        }
+    }
+
+    /// The route taken: the one set, or for [`JacobianRoute::Cheaper`] the
+    /// one chosen at the first Jacobian (`None` before it).
+    pub fn route_taken(&self) -> Option<JacobianRoute> {
+        match self.route {
+            JacobianRoute::Cheaper => self.chosen.get().copied(),
+            fixed => Some(fixed),
+        }
+    }
 }
 
 impl<R, P, F> Residuals<P> for ResidualMap<F>
@@ -60,8 +109,39 @@ where
     fn residuals(&self, p: &P) -> Result<Array1<R>> {
         self.map.forward(p)
     }
-    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<R>, Array2<R>)> {
-        Ok((self.map.forward(p)?, jacobian(&self.map, p)?))
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<R>> {
+        let r = self.map.forward(p)?;
+        let route = match (self.route, self.chosen.get()) {
+            (JacobianRoute::Cheaper, Some(chosen)) => *chosen,
+            (JacobianRoute::Cheaper, None) if r.len() <= p.dimension() => {
+                *self.chosen.get_or_init(|| JacobianRoute::Backward)
+            }
+            (JacobianRoute::Cheaper, None) => {
+                let clock = Instant::now();
+                let backward = jacobian_by_backward(&self.map, p)?;
+                let backward_time = clock.elapsed();
+                let clock = Instant::now();
+                let forward = jacobian_by_forward(&self.map, p)?;
+                let faster = if clock.elapsed() < backward_time {
+                    JacobianRoute::Forward
+                } else {
+                    JacobianRoute::Backward
+                };
+                let chosen = *self.chosen.get_or_init(|| faster);
+                let j = if chosen == JacobianRoute::Forward {
+                    forward
+                } else {
+                    backward
+                };
+                return Ok((r, j));
+            }
+            (fixed, _) => fixed,
+        };
+        let j = match route {
+            JacobianRoute::Forward => jacobian_by_forward(&self.map, p)?,
+            _ => jacobian_by_backward(&self.map, p)?,
+        };
+        Ok((r, j))
     }
 }
 
@@ -131,7 +211,7 @@ where
             .collect::<Result<Vec<R>>>()
             .map(Array1::from)
     }
-    fn residuals_and_jacobian(&self, p: &P) -> Result<(Array1<R>, Array2<R>)> {
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<R>> {
         let n = p.dimension();
         let m = self.inputs.len();
         let mut r = Array1::zeros(m);
@@ -506,7 +586,7 @@ fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Result<(Array2<R>, Array1<R>)> {
                 sum = sum - l[[i, q]] * l[[k, q]];
             }
             if i == k {
-                if !(sum > R::zero()) {
+                if sum.is_nan() || sum <= R::zero() {
                     return Err(singular);
                 }
                 l[[i, i]] = sum.sqrt();

@@ -17,7 +17,8 @@ pub mod schedule;
 pub mod train;
 
 pub use least_squares::{
-    CurveResiduals, FitReport, LeastSquares, ResidualMap, Residuals, Stop, residual_map,
+    CurveResiduals, FitReport, JacobianRoute, LeastSquares, ResidualMap, Residuals, Stop,
+    ValueAndJacobian, residual_map,
 };
 pub use loss::{Huber, LogitBinaryCrossEntropy, LogitCrossEntropy, MeanSquaredError, SquaredError};
 pub use optimise::{Adagrad, Adam, GradientDescent, Momentum, Nesterov, Optimiser, RmsProp};
