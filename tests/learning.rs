@@ -1038,3 +1038,42 @@ fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_says_
         .unwrap_err();
     assert!(matches!(err, Error::Singular { .. }), "{err}");
 }
+
+#[test]
+fn training_works_in_f32_and_with_parameter_free_pieces() {
+    let x = Array2::from_shape_fn((16, 1), |(i, _)| i as f32 / 16.0);
+    let y = x.mapv(|v| (3.0 * v - 1.0).tanh());
+    let data = Dataset::new(x, y).unwrap();
+    // x -> tanh(w x + b), the tanh as a parameter-free stage.
+    let model = Affine.followed_by(parameter_free(Tanh));
+    let start = ((Array2::<f32>::zeros((1, 1)), Array1::<f32>::zeros(1)), ());
+    let mut adam = Adam::new(0.05_f32).unwrap();
+    let run = Training::new(300, 4)
+        .unwrap()
+        .run(&model, &MeanSquaredError, &mut adam, start, &data, |_| {})
+        .unwrap();
+    let ((w, b), ()) = &run.parameters;
+    assert!(
+        (w[[0, 0]] - 3.0).abs() < 0.05 && (b[0] + 1.0).abs() < 0.05,
+        "{w} {b}"
+    );
+}
+
+#[test]
+fn losses_act_on_arrays_of_any_dimension() {
+    let y = array![[1.0, 2.0], [3.0, 4.0]];
+    let t = array![[1.0, 0.0], [0.0, 4.0]];
+    assert_eq!(
+        MeanSquaredError.forward(&(y.clone(), t.clone())).unwrap(),
+        (4.0 + 9.0) / 4.0
+    );
+    let (dy, dt) = SquaredError::new()
+        .backward(&(y.clone(), t.clone()), &1.0)
+        .unwrap();
+    assert_eq!(dy, array![[0.0, 4.0], [6.0, 0.0]]);
+    assert_eq!(dt, -&dy);
+    assert!(matches!(
+        MeanSquaredError.forward(&(y, array![[1.0, 2.0]])),
+        Err(Error::ShapeMismatch { .. })
+    ));
+}

@@ -19,6 +19,37 @@ use std::time::Instant;
 pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
 
 /// A map `P -> R^m` whose value and Jacobian a fitter can ask for.
+///
+/// [`ResidualMap`] and [`CurveResiduals`] implement it from the library's
+/// derivatives; implement it yourself when you have residuals in another
+/// form.
+///
+/// # Example
+///
+/// Rosenbrock's function as residuals `(10 (b - a^2), 1 - a)`, with a
+/// Jacobian written by hand, minimised from the classic start `(-1.2, 1)`:
+///
+/// ```
+/// use revdiff::{LeastSquares, Residuals, Result, ValueAndJacobian};
+/// use ndarray::{array, Array1};
+///
+/// struct Valley;
+///
+/// impl Residuals<(f64, f64)> for Valley {
+///     type Real = f64;
+///     fn residuals(&self, &(a, b): &(f64, f64)) -> Result<Array1<f64>> {
+///         Ok(array![10.0 * (b - a * a), 1.0 - a])
+///     }
+///     fn residuals_and_jacobian(&self, p: &(f64, f64)) -> Result<ValueAndJacobian<f64>> {
+///         let a = p.0;
+///         Ok((self.residuals(p)?, array![[-20.0 * a, 10.0], [-1.0, 0.0]]))
+///     }
+/// }
+///
+/// let report = LeastSquares::levenberg_marquardt().fit(&Valley, (-1.2, 1.0)).unwrap();
+/// assert!(report.stop.converged());
+/// assert!((report.parameters.0 - 1.0).abs() < 1e-9 && (report.parameters.1 - 1.0).abs() < 1e-9);
+/// ```
 pub trait Residuals<P> {
     /// The real type of the residuals.
     type Real: Real;

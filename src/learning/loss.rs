@@ -8,7 +8,7 @@
 //! over the examples of a batch.
 //!
 //! Different shapes of prediction and target are an
-//! [`Error::ShapeMismatch`](crate::Error::ShapeMismatch), never a broadcast.
+//! [`Error::ShapeMismatch`], never a broadcast.
 //!
 //! ```
 //! use revdiff::{Compose, LogitCrossEntropy, Map};

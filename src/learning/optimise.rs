@@ -144,6 +144,32 @@ macro_rules! with_schedule {
     };
 }
 
+macro_rules! with_epsilon_and_schedule {
+    () => {
+        /// Sets the term added to the root in the denominator (positive).
+        pub fn with_epsilon(mut self, epsilon: R) -> Result<Self> {
+            positive("epsilon", epsilon)?;
+            self.epsilon = epsilon;
+            Ok(self)
+        }
+        with_schedule!();
+    };
+}
+
+/// Per coordinate: `s <- next(s, g)`, then `p <- p - rate g / (sqrt(s) + eps)`.
+fn root_scaled_step<R: Real>(
+    params: &mut [R],
+    gradient: &[R],
+    squares: &mut [R],
+    (rate, epsilon): (R, R),
+    next: impl Fn(R, R) -> R,
+) {
+    for ((p, g), s) in params.iter_mut().zip(gradient).zip(squares.iter_mut()) {
+        *s = next(*s, *g);
+        *p = *p - rate * *g / (s.sqrt() + epsilon);
+    }
+}
+
 /// Plain gradient descent: `p <- p - lr g`.
 ///
 /// ```
@@ -193,35 +219,7 @@ impl<R: Real> Optimiser<R> for GradientDescent<R> {
 /// ```
 #[derive(Clone, Debug, PartialEq)]
 pub struct Momentum<R> {
-    schedule: Schedule<R>,
-    momentum: R,
-    state: State<R, 1>,
-}
-
-impl<R: Real> Momentum<R> {
-    /// Momentum `mu` in `[0, 1)` with a constant learning rate.
-    pub fn new(learning_rate: R, momentum: R) -> Result<Self> {
-        fraction("momentum", momentum)?;
-        Ok(Momentum {
-            schedule: Schedule::constant(learning_rate)?,
-            momentum,
-            state: State::new(),
-        })
-    }
-    with_schedule!();
-}
-
-impl<R: Real> Optimiser<R> for Momentum<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-        let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
-        let [v] = &mut self.state.vectors;
-        for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
-            *v = self.momentum * *v + *g;
-            *p = *p - rate * *v;
-        }
-        Ok(())
-    }
-    bookkeeping!();
+    velocity: Velocity<R>,
 }
 
 /// Nesterov's accelerated gradient (Nesterov, 1983), in the form that needs
@@ -236,36 +234,73 @@ impl<R: Real> Optimiser<R> for Momentum<R> {
 /// ```
 #[derive(Clone, Debug, PartialEq)]
 pub struct Nesterov<R> {
+    velocity: Velocity<R>,
+}
+
+/// The state and settings the two momentum rules share.
+#[derive(Clone, Debug, PartialEq)]
+struct Velocity<R> {
     schedule: Schedule<R>,
     momentum: R,
     state: State<R, 1>,
 }
 
-impl<R: Real> Nesterov<R> {
-    /// Momentum `mu` in `[0, 1)` with a constant learning rate.
-    pub fn new(learning_rate: R, momentum: R) -> Result<Self> {
+impl<R: Real> Velocity<R> {
+    fn new(learning_rate: R, momentum: R) -> Result<Self> {
         fraction("momentum", momentum)?;
-        Ok(Nesterov {
+        Ok(Velocity {
             schedule: Schedule::constant(learning_rate)?,
             momentum,
             state: State::new(),
         })
     }
-    with_schedule!();
-}
 
-impl<R: Real> Optimiser<R> for Nesterov<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
+    /// `v <- mu v + g`, then a step along `v` or, looking ahead, along `g + mu v`.
+    fn step(&mut self, params: &mut [R], gradient: &[R], look_ahead: bool) -> Result<()> {
         let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
+        let mu = self.momentum;
         let [v] = &mut self.state.vectors;
         for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
-            *v = self.momentum * *v + *g;
-            *p = *p - rate * (*g + self.momentum * *v);
+            *v = mu * *v + *g;
+            let direction = if look_ahead { *g + mu * *v } else { *v };
+            *p = *p - rate * direction;
         }
         Ok(())
     }
-    bookkeeping!();
 }
+
+macro_rules! momentum_rule {
+    ($ty:ident, $look_ahead:expr) => {
+        impl<R: Real> $ty<R> {
+            /// Momentum `mu` in `[0, 1)` with a constant learning rate.
+            pub fn new(learning_rate: R, momentum: R) -> Result<Self> {
+                Ok($ty {
+                    velocity: Velocity::new(learning_rate, momentum)?,
+                })
+            }
+            /// Replaces the learning rate by a schedule.
+            pub fn with_schedule(mut self, schedule: Schedule<R>) -> Self {
+                self.velocity.schedule = schedule;
+                self
+            }
+        }
+
+        impl<R: Real> Optimiser<R> for $ty<R> {
+            fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
+                self.velocity.step(params, gradient, $look_ahead)
+            }
+            fn steps_taken(&self) -> usize {
+                self.velocity.state.steps
+            }
+            fn reset(&mut self) {
+                self.velocity.state = State::new();
+            }
+        }
+    };
+}
+
+momentum_rule!(Momentum, false);
+momentum_rule!(Nesterov, true);
 
 /// Adagrad (Duchi, Hazan and Singer, 2011): `s <- s + g^2`,
 /// `p <- p - lr g / (sqrt(s) + eps)`; each coordinate's step shrinks with
@@ -294,23 +329,14 @@ impl<R: Real> Adagrad<R> {
             state: State::new(),
         })
     }
-    /// Sets the term added to the root in the denominator (positive).
-    pub fn with_epsilon(mut self, epsilon: R) -> Result<Self> {
-        positive("epsilon", epsilon)?;
-        self.epsilon = epsilon;
-        Ok(self)
-    }
-    with_schedule!();
+    with_epsilon_and_schedule!();
 }
 
 impl<R: Real> Optimiser<R> for Adagrad<R> {
     fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
         let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
         let [s] = &mut self.state.vectors;
-        for ((p, g), s) in params.iter_mut().zip(gradient).zip(s.iter_mut()) {
-            *s = *s + *g * *g;
-            *p = *p - rate * *g / (s.sqrt() + self.epsilon);
-        }
+        root_scaled_step(params, gradient, s, (rate, self.epsilon), |s, g| s + g * g);
         Ok(())
     }
     bookkeeping!();
@@ -350,13 +376,7 @@ impl<R: Real> RmsProp<R> {
         self.decay = decay;
         Ok(self)
     }
-    /// Sets the term added to the root in the denominator (positive).
-    pub fn with_epsilon(mut self, epsilon: R) -> Result<Self> {
-        positive("epsilon", epsilon)?;
-        self.epsilon = epsilon;
-        Ok(self)
-    }
-    with_schedule!();
+    with_epsilon_and_schedule!();
 }
 
 impl<R: Real> Optimiser<R> for RmsProp<R> {
@@ -364,10 +384,9 @@ impl<R: Real> Optimiser<R> for RmsProp<R> {
         let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
         let [s] = &mut self.state.vectors;
         let keep = self.decay;
-        for ((p, g), s) in params.iter_mut().zip(gradient).zip(s.iter_mut()) {
-            *s = keep * *s + (R::one() - keep) * *g * *g;
-            *p = *p - rate * *g / (s.sqrt() + self.epsilon);
-        }
+        root_scaled_step(params, gradient, s, (rate, self.epsilon), |s, g| {
+            keep * s + (R::one() - keep) * g * g
+        });
         Ok(())
     }
     bookkeeping!();
@@ -415,13 +434,7 @@ impl<R: Real> Adam<R> {
         self.beta2 = beta2;
         Ok(self)
     }
-    /// Sets the term added to the root in the denominator (positive).
-    pub fn with_epsilon(mut self, epsilon: R) -> Result<Self> {
-        positive("epsilon", epsilon)?;
-        self.epsilon = epsilon;
-        Ok(self)
-    }
-    with_schedule!();
+    with_epsilon_and_schedule!();
 }
 
 impl<R: Real> Optimiser<R> for Adam<R> {

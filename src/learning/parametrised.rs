@@ -7,7 +7,7 @@
 //! [`Mul`](crate::Mul) (a scalar parameter times the input) are parametrised
 //! maps as they stand; a map with no parameters becomes one with
 //! [`parameter_free`], and any parametrised map post-composes with an
-//! ordinary map by [`Compose::then`](crate::Compose::then).
+//! ordinary map by [`Compose::then`].
 //!
 //! The methods of [`Parametrised`] build the rest: stacking (the parameter of
 //! the result is the pair of both parameters), reparametrisation, sharing and
