@@ -1,4 +1,4 @@
-//! Main demonstration: a hand-written primitive composed with catalogue
+//! Derivatives demonstration: a hand-written primitive composed with catalogue
 //! pieces into a small model, and every derivative the library reads off it.
 //!
 //! Scenario (invented): a timber kiln has three probes (air temperature,
