@@ -9,6 +9,7 @@ use ndarray::{Array1, Array2, Axis};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
+use std::borrow::Cow;
 use std::fmt;
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
@@ -384,13 +385,9 @@ impl Training {
     }
 
     /// The training rows and, with early stopping, the validation rows.
-    fn split<T: Real>(
-        &self,
-        data: &Dataset<T>,
-        rng: &mut StdRng,
-    ) -> Result<(Dataset<T>, Option<Dataset<T>>)> {
+    fn split<'d, T: Real>(&self, data: &'d Dataset<T>, rng: &mut StdRng) -> Result<Split<'d, T>> {
         let Some(stopping) = self.early_stopping else {
-            return Ok((data.clone(), None));
+            return Ok((Cow::Borrowed(data), None));
         };
         let n = data.len();
         let held = (stopping.fraction * n as f64).round() as usize;
@@ -404,9 +401,12 @@ impl Training {
         let mut rows: Vec<usize> = (0..n).collect();
         rows.shuffle(rng);
         let (valid, train) = rows.split_at(held);
-        Ok((data.select(train), Some(data.select(valid))))
+        Ok((Cow::Owned(data.select(train)), Some(data.select(valid))))
     }
 }
+
+/// The training rows (borrowed when nothing is held out) and the validation rows.
+type Split<'d, T> = (Cow<'d, Dataset<T>>, Option<Dataset<T>>);
 
 fn count<T: Real>(n: usize) -> T {
     T::from(n).expect("row counts fit every real type")
