@@ -99,12 +99,6 @@ pub enum Error {
         /// What was not finite: `loss`, `gradient` or `updated parameters`.
         quantity: &'static str,
     },
-    /// A linear system had no unique solution.
-    #[error("{operation}: the matrix is singular or not positive definite")]
-    Singular {
-        /// The operation that solved the system.
-        operation: &'static str,
-    },
 }
 
 /// Shorthand for results whose error is [`enum@Error`].

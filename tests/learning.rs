@@ -773,6 +773,23 @@ fn a_non_finite_gradient_stops_the_run_at_the_first_step_with_the_start() {
         }
     );
     assert_eq!(err.parameters, array![0.0]);
+
+    // Starting parameters that are not finite are refused before any step.
+    let err = Training::new(1, 1)
+        .unwrap()
+        .run(
+            &model,
+            &SquaredError::new(),
+            &mut Adam::new(0.1).unwrap(),
+            array![f64::NAN],
+            &data,
+            |_| {},
+        )
+        .unwrap_err();
+    assert!(
+        matches!(err.error, Error::NonFinite { .. }) && err.step == 0,
+        "{err}"
+    );
 }
 
 #[test]
@@ -1023,7 +1040,7 @@ fn least_squares_refuses_bad_settings_and_bad_starts() {
 }
 
 #[test]
-fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_says_singular() {
+fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_stops_as_singular() {
     // ((a, c), x) -> a x: c does nothing.
     let model = fst().then(fst()).pair(snd()).then(Mul);
     let residuals = CurveResiduals::new(model, vec![1.0, 2.0, 3.0], vec![2.0, 4.1, 5.9]).unwrap();
@@ -1033,10 +1050,13 @@ fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_says_
     assert!(report.stop.converged());
     assert_eq!(report.parameters.1, 5.0);
     assert!(report.standard_errors.is_none());
-    let err = LeastSquares::gauss_newton()
+    // Gauss-Newton cannot solve for c: it stops, says why, keeps the start.
+    let gn = LeastSquares::gauss_newton()
         .fit(&residuals, (1.0, 5.0))
-        .unwrap_err();
-    assert!(matches!(err, Error::Singular { .. }), "{err}");
+        .unwrap();
+    assert_eq!(gn.stop, Stop::Singular);
+    assert!(!gn.stop.converged());
+    assert_eq!((gn.parameters, gn.iterations), ((1.0, 5.0), 1));
 }
 
 #[test]
@@ -1076,4 +1096,21 @@ fn losses_act_on_arrays_of_any_dimension() {
         MeanSquaredError.forward(&(y, array![[1.0, 2.0]])),
         Err(Error::ShapeMismatch { .. })
     ));
+}
+
+#[test]
+fn a_gauss_newton_step_to_non_finite_residuals_stops_with_the_parameters_before_it() {
+    // r(p) = ln(p x) - y with y far below: the full step sends p below zero,
+    // where ln is NaN. Levenberg-Marquardt refuses such a step and goes on.
+    let model = fst().then(Ln).pair(snd().then(Ln)).then(Add);
+    let residuals = CurveResiduals::new(model, vec![1.0, 1.0], vec![-5.0, -5.0]).unwrap();
+    let gn = LeastSquares::gauss_newton().fit(&residuals, 1.0).unwrap();
+    assert_eq!(gn.stop, Stop::NonFiniteStep);
+    assert!(!gn.stop.converged());
+    assert_eq!(gn.parameters, 1.0);
+    let lm = LeastSquares::levenberg_marquardt()
+        .fit(&residuals, 1.0)
+        .unwrap();
+    assert!(lm.stop.converged(), "{:?}", lm.stop);
+    assert_close("ln p = -5", lm.parameters, (-5.0_f64).exp(), 1e-9);
 }

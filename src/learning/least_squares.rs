@@ -274,12 +274,22 @@ pub enum Stop {
     DampingLimit,
     /// The iteration limit came first: not converged.
     IterationLimit,
+    /// Gauss-Newton's system `J'J d = -J'r` had no unique solution (a
+    /// parameter the residuals do not determine): not converged; the
+    /// parameters are those reached. Levenberg-Marquardt's damping avoids it.
+    Singular,
+    /// Gauss-Newton's step led to residuals that are not finite: not
+    /// converged; the parameters are those before the step.
+    NonFiniteStep,
 }
 
 impl Stop {
-    /// Whether this is one of the convergence tests (not the iteration limit).
+    /// Whether this is one of the convergence tests (not a limit or a failure).
     pub fn converged(&self) -> bool {
-        !matches!(self, Stop::IterationLimit)
+        !matches!(
+            self,
+            Stop::IterationLimit | Stop::Singular | Stop::NonFiniteStep
+        )
     }
 }
 
@@ -423,13 +433,14 @@ impl LeastSquares {
 
     /// Fits the parameters, starting from `start`.
     ///
-    /// Errors: non-finite residuals or Jacobian at the start
-    /// ([`Error::NonFinite`]), a Jacobian not shaped `m x n`
-    /// ([`Error::ShapeMismatch`]), a singular Gauss-Newton system or a
-    /// non-finite Gauss-Newton step ([`Error::Singular`],
-    /// [`Error::NonFinite`]). Levenberg-Marquardt treats a trial point with
-    /// non-finite residuals as a refused step. Reaching the iteration limit
-    /// is not an error: the report says [`Stop::IterationLimit`].
+    /// Errors: non-finite residuals or Jacobian at the start or at an
+    /// accepted point ([`Error::NonFinite`]), a Jacobian not shaped `m x n`
+    /// ([`Error::ShapeMismatch`]), and any error of the residual map.
+    /// Levenberg-Marquardt treats a trial point with non-finite residuals as a
+    /// refused step. Reaching the iteration limit, a singular Gauss-Newton
+    /// system and a Gauss-Newton step to non-finite residuals are not errors:
+    /// the report holds the parameters reached and says why it stopped
+    /// ([`Stop::converged`] is false).
     pub fn fit<P, R, F>(&self, residuals: &F, start: P) -> Result<FitReport<P, R>>
     where
         R: Real,
@@ -440,15 +451,7 @@ impl LeastSquares {
         let mut p = start.coordinates();
         let n = p.len();
         let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
-        check_finite("residuals at the start", &r)?;
-        check_finite("Jacobian at the start", &j)?;
-        if j.dim() != (r.len(), n) {
-            return Err(Error::shape(
-                "least squares (Jacobian against residuals and parameters)",
-                format!("({}, {n})", r.len()),
-                format!("{:?}", j.dim()),
-            ));
-        }
+        check_pair(&r, &j, n, "at the start")?;
         let mut rss = r.dot(&r);
         let mut lambda = real(self.initial_damping);
         let mut evaluations = 1;
@@ -485,12 +488,12 @@ impl LeastSquares {
                     }
                 }
                 let step = match solve_symmetric(&a, &g.mapv(|v| -v)) {
-                    Ok(d) => d,
-                    Err(e) if self.method == Method::GaussNewton => return Err(e),
-                    Err(_) => {
+                    Some(d) => d,
+                    None if self.method == Method::GaussNewton => break Err(Stop::Singular),
+                    None => {
                         lambda = lambda * real(10.0);
                         if lambda > real(MAX_DAMPING) {
-                            break None;
+                            break Err(Stop::DampingLimit);
                         }
                         continue;
                     }
@@ -506,24 +509,22 @@ impl LeastSquares {
                 };
                 if self.method == Method::GaussNewton {
                     if !trial_rss.is_finite() {
-                        return Err(Error::NonFinite {
-                            operation: "Gauss-Newton",
-                            detail: format!("residuals after iteration {iterations}"),
-                        });
+                        break Err(Stop::NonFiniteStep);
                     }
-                    break Some((trial, step, trial_rss));
+                    break Ok((trial, step, trial_rss));
                 }
                 if trial_rss < rss {
                     lambda = lambda / real(10.0);
-                    break Some((trial, step, trial_rss));
+                    break Ok((trial, step, trial_rss));
                 }
                 lambda = lambda * real(10.0);
                 if lambda > real(MAX_DAMPING) {
-                    break None;
+                    break Err(Stop::DampingLimit);
                 }
             };
-            let Some((trial, step, trial_rss)) = accepted else {
-                break Stop::DampingLimit;
+            let (trial, step, trial_rss) = match accepted {
+                Ok(found) => found,
+                Err(stop) => break stop,
             };
             let step_norm = step.dot(&step).sqrt();
             let size = current.dot(&current).sqrt();
@@ -532,7 +533,7 @@ impl LeastSquares {
             let new_p = start.rebuild_from_coordinates(&p)?;
             (r, j) = residuals.residuals_and_jacobian(&new_p)?;
             evaluations += 1;
-            check_finite("Jacobian", &j)?;
+            check_pair(&r, &j, n, "after a step")?;
             let old_rss = rss;
             rss = r.dot(&r);
             let step_tol = real(self.step_tolerance);
@@ -548,7 +549,6 @@ impl LeastSquares {
         let standard_errors = if m > n {
             let s2 = rss / R::from(m - n).expect("counts fit every real type");
             inverse_symmetric(&j.t().dot(&j))
-                .ok()
                 .map(|inv| {
                     inv.diag()
                         .iter()
@@ -581,31 +581,43 @@ impl LeastSquares {
     }
 }
 
+/// Residuals and Jacobian finite, and the Jacobian shaped `m x n`.
+fn check_pair<R: Real>(r: &Array1<R>, j: &Array2<R>, n: usize, when: &'static str) -> Result<()> {
+    if j.dim() != (r.len(), n) {
+        return Err(Error::shape(
+            "least squares (Jacobian against residuals and parameters)",
+            format!("({}, {n})", r.len()),
+            format!("{:?}", j.dim()),
+        ));
+    }
+    check_finite("residuals", when, r)?;
+    check_finite("Jacobian", when, j)
+}
+
 fn check_finite<R: Real, D: ndarray::Dimension>(
     what: &'static str,
+    when: &'static str,
     a: &ndarray::Array<R, D>,
 ) -> Result<()> {
     match a.iter().position(|v| !v.is_finite()) {
         None => Ok(()),
         Some(i) => Err(Error::NonFinite {
             operation: "least squares",
-            detail: format!("in the {what}, at flat index {i}"),
+            detail: format!("in the {what} {when}, at flat index {i}"),
         }),
     }
 }
 
 /// The Cholesky factor `L` of `D A D`, `D = diag(A)^-1/2`, which puts every
 /// diagonal at 1 so that badly scaled parameters lose no digits.
-fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Result<(Array2<R>, Array1<R>)> {
+/// `None` when `A` is singular or not positive definite.
+fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Option<(Array2<R>, Array1<R>)> {
     let n = a.nrows();
-    let singular = Error::Singular {
-        operation: "least squares normal equations",
-    };
     let mut d = Array1::zeros(n);
     for k in 0..n {
         let v = a[[k, k]];
         if !(v > R::zero() && v.is_finite()) {
-            return Err(singular);
+            return None;
         }
         d[k] = R::one() / v.sqrt();
     }
@@ -618,7 +630,7 @@ fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Result<(Array2<R>, Array1<R>)> {
             }
             if i == k {
                 if sum.is_nan() || sum <= R::zero() {
-                    return Err(singular);
+                    return None;
                 }
                 l[[i, i]] = sum.sqrt();
             } else {
@@ -626,11 +638,11 @@ fn scaled_cholesky<R: Real>(a: &Array2<R>) -> Result<(Array2<R>, Array1<R>)> {
             }
         }
     }
-    Ok((l, d))
+    Some((l, d))
 }
 
 /// Solves `A x = b` for symmetric positive definite `A`.
-fn solve_symmetric<R: Real>(a: &Array2<R>, b: &Array1<R>) -> Result<Array1<R>> {
+fn solve_symmetric<R: Real>(a: &Array2<R>, b: &Array1<R>) -> Option<Array1<R>> {
     let (l, d) = scaled_cholesky(a)?;
     let n = b.len();
     // (D A D) y = D b, x = D y.
@@ -647,11 +659,11 @@ fn solve_symmetric<R: Real>(a: &Array2<R>, b: &Array1<R>) -> Result<Array1<R>> {
         }
         y[i] = y[i] / l[[i, i]];
     }
-    Ok(y * &d)
+    Some(y * &d)
 }
 
 /// The inverse of a symmetric positive definite matrix, column by column.
-fn inverse_symmetric<R: Real>(a: &Array2<R>) -> Result<Array2<R>> {
+fn inverse_symmetric<R: Real>(a: &Array2<R>) -> Option<Array2<R>> {
     let n = a.nrows();
     let mut inv = Array2::zeros((n, n));
     for k in 0..n {
@@ -660,5 +672,5 @@ fn inverse_symmetric<R: Real>(a: &Array2<R>) -> Result<Array2<R>> {
         inv.index_axis_mut(Axis(1), k)
             .assign(&solve_symmetric(a, &e)?);
     }
-    Ok(inv)
+    Some(inv)
 }

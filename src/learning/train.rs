@@ -282,12 +282,12 @@ impl Training {
                 });
             }
         };
-        if let Some(error) = (!start.all_finite()).then(|| Error::NonFinite {
-            operation: "training",
-            detail: "in the starting parameters".to_string(),
-        }) {
+        if !start.all_finite() {
             return Err(Interrupted {
-                error,
+                error: Error::NonFinite {
+                    operation: "training",
+                    detail: "in the starting parameters".to_string(),
+                },
                 step: 0,
                 parameters: start,
             });
