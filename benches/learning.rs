@@ -5,7 +5,7 @@
 use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, Array2};
 use revdiff::{
-    Adam, Affine, Compose, Dataset, LeastSquares, MatVec, MeanSquaredError, Parametrised,
+    Adam, Affine, Compose, Examples, LeastSquares, MatVec, MeanSquaredError, Parametrised,
     Residuals, Reverse, Sub, Tanh, Training, constant, id, jacobian_by_backward,
     jacobian_by_forward, residual_map,
 };
@@ -46,7 +46,7 @@ fn training_epoch(c: &mut Criterion) {
         ((i * 5 + j * 13) % 17) as f64 / 17.0 - 0.5
     });
     let y = Array2::from_shape_fn((rows, 1), |(i, _)| x.row(i).sum().tanh());
-    let data = Dataset::new(x, y).unwrap();
+    let data = Examples::new(x, y).unwrap();
     let model = Affine.then(Tanh).followed_by(Affine);
     let start = (
         (Array2::from_elem((8, 16), 0.05), Array1::zeros(8)),

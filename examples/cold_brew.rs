@@ -24,7 +24,7 @@ use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
 use revdiff::laws::strategies::positive_vectors;
 use revdiff::{
-    Adam, Affine, Checker, Compose, CurveResiduals, Dataset, Exp, LeastSquares, Map,
+    Adam, Affine, Checker, Compose, CurveResiduals, Examples, Exp, LeastSquares, Map,
     MeanSquaredError, Parametrised, Result, Total, Training,
 };
 use std::error::Error as StdError;
@@ -125,7 +125,7 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
 
     let (times, strengths) = invented_samples();
     let m = times.len();
-    let data = Dataset::new(
+    let data = Examples::new(
         Array2::from_shape_vec((m, 1), times.clone())?,
         Array2::from_shape_vec((m, 1), strengths.clone())?,
     )?;

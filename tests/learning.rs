@@ -294,7 +294,7 @@ fn a_frozen_parameter_gets_no_update_and_the_free_one_its_own_gradient() {
 
     // Training a model with a frozen bias moves the weights only; the bias
     // is not part of the trained parameters at all.
-    let data = Dataset::new(array![[1.0, 0.0], [0.0, 1.0]], array![[3.0], [-1.0]]).unwrap();
+    let data = Examples::new(array![[1.0, 0.0], [0.0, 1.0]], array![[3.0], [-1.0]]).unwrap();
     let model = Affine.freeze_second(array![1.0]);
     let mut descent = GradientDescent::new(0.5).unwrap();
     let run = Training::new(200, 2)
@@ -575,13 +575,13 @@ fn schedules_give_their_rates() {
 
 // ---------------------------------------------------------------- training
 
-fn line_data(n: usize) -> Dataset<f64> {
+fn line_data(n: usize) -> Examples<f64> {
     // y = 2x - 1 plus a fixed, deterministic wobble.
     let x = Array2::from_shape_fn((n, 1), |(i, _)| i as f64 / n as f64);
     let y = Array2::from_shape_fn((n, 1), |(i, _)| {
         2.0 * x[[i, 0]] - 1.0 + 0.05 * ((i * 7) as f64).sin()
     });
-    Dataset::new(x, y).unwrap()
+    Examples::new(x, y).unwrap()
 }
 
 fn start() -> Layer {
@@ -592,11 +592,11 @@ fn start() -> Layer {
 fn bad_datasets_and_settings_are_typed_errors() {
     let none = Array2::<f64>::zeros((0, 2));
     assert!(matches!(
-        Dataset::new(none.clone(), none),
+        Examples::new(none.clone(), none),
         Err(Error::Empty { .. })
     ));
     assert_eq!(
-        Dataset::new(Array2::<f64>::zeros((3, 2)), Array2::zeros((2, 1))),
+        Examples::new(Array2::<f64>::zeros((3, 2)), Array2::zeros((2, 1))),
         Err(Error::Rows {
             inputs: 3,
             targets: 2
@@ -604,7 +604,7 @@ fn bad_datasets_and_settings_are_typed_errors() {
     );
     let mut bad = Array2::<f64>::zeros((3, 1));
     bad[[2, 0]] = f64::INFINITY;
-    let err = Dataset::new(Array2::zeros((3, 1)), bad).unwrap_err();
+    let err = Examples::new(Array2::zeros((3, 1)), bad).unwrap_err();
     assert!(err.to_string().contains("target row 2"), "{err}");
 
     assert!(matches!(
@@ -619,13 +619,13 @@ fn bad_datasets_and_settings_are_typed_errors() {
         Err(Error::InvalidSetting { name: "epochs", .. })
     ));
     let t = Training::new(1, 1).unwrap();
-    assert!(t.early_stopping(0.0, 3).is_err());
-    assert!(t.early_stopping(1.0, 3).is_err());
-    assert!(t.early_stopping(0.2, 0).is_err());
+    assert!(t.stop_early(0.0, 3).is_err());
+    assert!(t.stop_early(1.0, 3).is_err());
+    assert!(t.stop_early(0.2, 0).is_err());
     // A validation fraction that leaves no validation rows for this dataset.
     let tiny = line_data(3);
     let err = t
-        .early_stopping(0.1, 1)
+        .stop_early(0.1, 1)
         .unwrap()
         .run(
             &Affine,
@@ -707,7 +707,7 @@ fn a_non_finite_loss_stops_the_run_naming_the_step_and_keeping_the_last_good_par
     // (w, x) -> ln(w x): one large step sends w below zero, and the next
     // loss is NaN. One full batch a step, so step 2 is in epoch 2.
     let model = Mul.then(Ln);
-    let data = Dataset::new(array![[1.0], [2.0]], array![[-5.0], [-5.0]]).unwrap();
+    let data = Examples::new(array![[1.0], [2.0]], array![[-5.0], [-5.0]]).unwrap();
     let trainer = Training::new(5, 2).unwrap();
     let mut one_step = GradientDescent::new(10.0).unwrap();
     let after_one = trainer
@@ -752,7 +752,7 @@ fn a_non_finite_loss_stops_the_run_naming_the_step_and_keeping_the_last_good_par
 fn a_non_finite_gradient_stops_the_run_at_the_first_step_with_the_start() {
     // sqrt(w x) at w = 0: the loss is finite, its slope is not.
     let model = Mul.then(Sqrt);
-    let data = Dataset::new(array![[1.0]], array![[1.0]]).unwrap();
+    let data = Examples::new(array![[1.0]], array![[1.0]]).unwrap();
     let err = Training::new(1, 1)
         .unwrap()
         .run(
@@ -794,7 +794,7 @@ fn a_non_finite_gradient_stops_the_run_at_the_first_step_with_the_start() {
 
 #[test]
 fn a_model_whose_output_does_not_fit_the_targets_is_an_error_not_a_panic() {
-    let data = Dataset::new(array![[1.0, 2.0]], array![[1.0, 2.0, 3.0]]).unwrap();
+    let data = Examples::new(array![[1.0, 2.0]], array![[1.0, 2.0, 3.0]]).unwrap();
     let err = Training::new(1, 1)
         .unwrap()
         .run(
@@ -822,7 +822,7 @@ fn early_stopping_ends_the_run_and_returns_the_best_validation_parameters() {
     let mut validation = Vec::new();
     let run = Training::new(500, 4)
         .unwrap()
-        .early_stopping(0.25, 3)
+        .stop_early(0.25, 3)
         .unwrap()
         .run(
             &Affine,
@@ -844,7 +844,7 @@ fn early_stopping_ends_the_run_and_returns_the_best_validation_parameters() {
     );
     assert_eq!(run.validation_losses, validation);
     assert_eq!(validation.len(), run.epochs);
-    // The best epoch is exactly `patience` epochs before the end.
+    // The best epoch is exactly `stall_epochs` epochs before the end.
     let best = validation.iter().cloned().fold(f64::INFINITY, f64::min);
     let best_epoch = validation.iter().position(|v| *v == best).unwrap() + 1;
     assert_eq!(best_epoch + 3, run.epochs);
@@ -1063,7 +1063,7 @@ fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_stops
 fn training_works_in_f32_and_with_parameter_free_pieces() {
     let x = Array2::from_shape_fn((16, 1), |(i, _)| i as f32 / 16.0);
     let y = x.mapv(|v| (3.0 * v - 1.0).tanh());
-    let data = Dataset::new(x, y).unwrap();
+    let data = Examples::new(x, y).unwrap();
     // x -> tanh(w x + b), the tanh as a parameter-free stage.
     let model = Affine.followed_by(parameter_free(Tanh));
     let start = ((Array2::<f32>::zeros((1, 1)), Array1::<f32>::zeros(1)), ());

@@ -156,7 +156,7 @@ fn anscombe_one_by_adam_on_mean_squared_error() {
     // project's issue).
     let (x, y) = anscombe_one();
     let n = x.len();
-    let data = Dataset::new(
+    let data = Examples::new(
         Array2::from_shape_vec((n, 1), x).unwrap(),
         Array2::from_shape_vec((n, 1), y).unwrap(),
     )
@@ -212,7 +212,7 @@ fn mazur_step_by_step_backpropagation() {
     let model = hidden.followed_by(output);
     let w_hidden: Array2<f64> = array![[0.15, 0.20], [0.25, 0.30]];
     let w_output: Array2<f64> = array![[0.40, 0.45], [0.50, 0.55]];
-    let data = Dataset::new(array![[0.05, 0.10]], array![[0.01, 0.99]]).unwrap();
+    let data = Examples::new(array![[0.05, 0.10]], array![[0.01, 0.99]]).unwrap();
 
     let mut losses: Vec<f64> = Vec::new();
     let run = Training::new(1, 1)
@@ -270,7 +270,7 @@ fn iris_softmax_regression_with_adam() {
     let classes: Vec<usize> = iris.targets.iter().copied().collect();
     assert_eq!((rows, classes.iter().max().copied()), (150, Some(2)));
     let onehot = Array2::from_shape_fn((rows, 3), |(i, c)| if classes[i] == c { 1.0 } else { 0.0 });
-    let data = Dataset::new(x.clone(), onehot).unwrap();
+    let data = Examples::new(x.clone(), onehot).unwrap();
 
     let start = (Array2::zeros((3, 4)), Array1::zeros(3));
     let run = Training::new(60, 15)

@@ -6,7 +6,7 @@
 //! loss ([`loss`]) turns a prediction and a target into a scalar whose
 //! backward pass starts the model's; an optimiser ([`Optimiser`]) turns the
 //! parameter change into new parameters. [`Training`] runs that loop over a
-//! [`Dataset`]; [`LeastSquares`] fits small models by Gauss-Newton or
+//! [`Examples`]; [`LeastSquares`] fits small models by Gauss-Newton or
 //! Levenberg-Marquardt instead.
 
 pub mod least_squares;
@@ -24,4 +24,4 @@ pub use loss::{Huber, LogitBinaryCrossEntropy, LogitCrossEntropy, MeanSquaredErr
 pub use optimise::{Adagrad, Adam, GradientDescent, Momentum, Nesterov, Optimiser, RmsProp};
 pub use parametrised::{Bound, Parametrised, Reparametrised, Stacked, parameter_free};
 pub use schedule::Schedule;
-pub use train::{Dataset, Interrupted, Progress, Trained, Training};
+pub use train::{Examples, Interrupted, Progress, Trained, Training};

@@ -15,20 +15,20 @@ use std::fmt;
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
 /// ```
-/// use revdiff::Dataset;
+/// use revdiff::Examples;
 /// use ndarray::array;
-/// let data = Dataset::new(array![[1.0], [2.0]], array![[2.0], [4.0]]).unwrap();
+/// let data = Examples::new(array![[1.0], [2.0]], array![[2.0], [4.0]]).unwrap();
 /// assert_eq!(data.len(), 2);
-/// assert!(Dataset::new(array![[1.0], [2.0]], array![[2.0]]).is_err());
-/// assert!(Dataset::new(array![[f64::NAN]], array![[2.0]]).is_err());
+/// assert!(Examples::new(array![[1.0], [2.0]], array![[2.0]]).is_err());
+/// assert!(Examples::new(array![[f64::NAN]], array![[2.0]]).is_err());
 /// ```
 #[derive(Clone, Debug, PartialEq)]
-pub struct Dataset<T> {
+pub struct Examples<T> {
     inputs: Array2<T>,
     targets: Array2<T>,
 }
 
-impl<T: Real> Dataset<T> {
+impl<T: Real> Examples<T> {
     /// A dataset from input rows and target rows. Refuses no rows
     /// ([`Error::Empty`]), different row counts ([`Error::Rows`]) and
     /// non-finite values ([`Error::NonFinite`], naming the row).
@@ -56,7 +56,7 @@ impl<T: Real> Dataset<T> {
                 });
             }
         }
-        Ok(Dataset { inputs, targets })
+        Ok(Examples { inputs, targets })
     }
 
     /// Number of examples (at least 1).
@@ -88,7 +88,7 @@ impl<T: Real> Dataset<T> {
     }
 
     fn select(&self, rows: &[usize]) -> Self {
-        Dataset {
+        Examples {
             inputs: self.inputs.select(Axis(0), rows),
             targets: self.targets.select(Axis(0), rows),
         }
@@ -161,12 +161,12 @@ impl<P: fmt::Debug> std::error::Error for Interrupted<P> {
 /// Fitting `y = 2x + 1` with an affine model, mean squared error and Adam:
 ///
 /// ```
-/// use revdiff::{Adam, Affine, Dataset, MeanSquaredError, Training};
+/// use revdiff::{Adam, Affine, Examples, MeanSquaredError, Training};
 /// use ndarray::{array, Array2};
 ///
 /// let x = Array2::from_shape_fn((20, 1), |(i, _)| i as f64 / 10.0);
 /// let y = x.mapv(|v| 2.0 * v + 1.0);
-/// let data = Dataset::new(x, y).unwrap();
+/// let data = Examples::new(x, y).unwrap();
 /// let start = (array![[0.0]], array![0.0]);
 /// let mut adam = Adam::new(0.05).unwrap();
 /// let mut losses = Vec::new();
@@ -186,13 +186,13 @@ pub struct Training {
     epochs: usize,
     batch_size: usize,
     seed: u64,
-    early_stopping: Option<EarlyStopping>,
+    hold_out: Option<HoldOut>,
 }
 
 #[derive(Clone, Copy, Debug, PartialEq)]
-struct EarlyStopping {
+struct HoldOut {
     fraction: f64,
-    patience: usize,
+    stall_epochs: usize,
 }
 
 impl Training {
@@ -213,7 +213,7 @@ impl Training {
             epochs,
             batch_size,
             seed: 0,
-            early_stopping: None,
+            hold_out: None,
         })
     }
 
@@ -226,8 +226,8 @@ impl Training {
 
     /// Holds out `fraction` (in `(0, 1)`) of the rows, chosen by the seeded
     /// generator, and stops when the validation loss has not improved for
-    /// `patience` (at least 1) epochs, returning the best parameters seen.
-    pub fn early_stopping(mut self, fraction: f64, patience: usize) -> Result<Self> {
+    /// `stall_epochs` (at least 1) epochs, returning the best parameters seen.
+    pub fn stop_early(mut self, fraction: f64, stall_epochs: usize) -> Result<Self> {
         if !(fraction > 0.0 && fraction < 1.0) {
             return Err(Error::InvalidSetting {
                 name: "validation fraction",
@@ -235,14 +235,17 @@ impl Training {
                 reason: "must be in (0, 1)",
             });
         }
-        if patience == 0 {
+        if stall_epochs == 0 {
             return Err(Error::InvalidSetting {
-                name: "patience",
+                name: "stall epochs",
                 value: "0".to_string(),
                 reason: "must be at least 1",
             });
         }
-        self.early_stopping = Some(EarlyStopping { fraction, patience });
+        self.hold_out = Some(HoldOut {
+            fraction,
+            stall_epochs,
+        });
         Ok(self)
     }
 
@@ -260,7 +263,7 @@ impl Training {
         loss: &L,
         optimiser: &mut O,
         start: P,
-        data: &Dataset<T>,
+        data: &Examples<T>,
         mut observer: impl FnMut(&Progress<T>),
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
@@ -366,8 +369,8 @@ impl Training {
                 }
             }
             epoch_losses.push(epoch_total / count::<T>(order.len()));
-            let patience = self.early_stopping.map_or(usize::MAX, |e| e.patience);
-            if since_best >= patience && epoch < self.epochs {
+            let stall_epochs = self.hold_out.map_or(usize::MAX, |e| e.stall_epochs);
+            if since_best >= stall_epochs && epoch < self.epochs {
                 stopped_early = true;
                 break;
             }
@@ -385,8 +388,8 @@ impl Training {
     }
 
     /// The training rows and, with early stopping, the validation rows.
-    fn split<'d, T: Real>(&self, data: &'d Dataset<T>, rng: &mut StdRng) -> Result<Split<'d, T>> {
-        let Some(stopping) = self.early_stopping else {
+    fn split<'d, T: Real>(&self, data: &'d Examples<T>, rng: &mut StdRng) -> Result<Split<'d, T>> {
+        let Some(stopping) = self.hold_out else {
             return Ok((Cow::Borrowed(data), None));
         };
         let n = data.len();
@@ -406,7 +409,7 @@ impl Training {
 }
 
 /// The training rows (borrowed when nothing is held out) and the validation rows.
-type Split<'d, T> = (Cow<'d, Dataset<T>>, Option<Dataset<T>>);
+type Split<'d, T> = (Cow<'d, Examples<T>>, Option<Examples<T>>);
 
 fn count<T: Real>(n: usize) -> T {
     T::from(n).expect("row counts fit every real type")
@@ -417,7 +420,7 @@ fn batch_gradient<T, P, B, M, L>(
     model: &M,
     loss: &L,
     params: &P,
-    data: &Dataset<T>,
+    data: &Examples<T>,
     rows: &[usize],
 ) -> Result<(T, P)>
 where
@@ -449,7 +452,7 @@ where
 }
 
 /// Mean loss over all rows of `data`, forward passes only.
-fn mean_loss<T, P, B, M, L>(model: &M, loss: &L, params: &P, data: &Dataset<T>) -> Result<T>
+fn mean_loss<T, P, B, M, L>(model: &M, loss: &L, params: &P, data: &Examples<T>) -> Result<T>
 where
     T: Real,
     P: Space,
