@@ -6,7 +6,7 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, Array2};
 use revdiff::{
     Adam, Affine, Compose, Examples, LeastSquares, MatVec, MeanSquaredError, Parametrised,
-    Residuals, Reverse, Sub, Tanh, Training, constant, id, jacobian_by_backward,
+    Residuals, Reverse, SubPair, Tanh, Training, constant, id, jacobian_by_backward,
     jacobian_by_forward, residual_map,
 };
 use std::hint::black_box;
@@ -20,7 +20,7 @@ fn residuals(m: usize, n: usize) -> impl Reverse<Array1<f64>, Output = Array1<f6
         .then(MatVec::plain())
         .then(Tanh)
         .pair(constant(b))
-        .then(Sub)
+        .then(SubPair)
 }
 
 fn jacobian_routes(c: &mut Criterion) {
@@ -47,7 +47,7 @@ fn training_epoch(c: &mut Criterion) {
     });
     let y = Array2::from_shape_fn((rows, 1), |(i, _)| x.row(i).sum().tanh());
     let data = Examples::new(x, y).unwrap();
-    let model = Affine.then(Tanh).followed_by(Affine);
+    let model = Affine.then(Tanh).then_parametrised(Affine);
     let start = (
         (Array2::from_elem((8, 16), 0.05), Array1::zeros(8)),
         (Array2::from_elem((1, 8), 0.1), Array1::zeros(1)),

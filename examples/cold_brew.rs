@@ -24,8 +24,8 @@ use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
 use revdiff::laws::strategies::positive_vectors;
 use revdiff::{
-    Adam, Affine, Checker, Compose, CurveResiduals, Examples, Exp, LeastSquares, Map,
-    MeanSquaredError, Parametrised, Result, Total, Training,
+    Adam, Affine, Checker, Compose, CurveResiduals, ElementReduction, Examples, Exp, LeastSquares,
+    Map, MeanSquaredError, Parametrised, Result, Training,
 };
 use std::error::Error as StdError;
 
@@ -52,8 +52,8 @@ struct RiseKept {
 
 impl Map<RiseInput> for Rise {
     type Output = Array1<f64>;
-    type Residual = RiseKept;
-    fn forward_keep(&self, ((h, n), t): &RiseInput) -> Result<(Array1<f64>, RiseKept)> {
+    type Memo = RiseKept;
+    fn forward_memo(&self, ((h, n), t): &RiseInput) -> Result<(Array1<f64>, RiseKept)> {
         let log_ratio = t.mapv(|ti| (ti / h).ln());
         let f = log_ratio.mapv(|l| 1.0 / (1.0 + (-n * l).exp()));
         let slope = f.mapv(|fi| fi * (1.0 - fi));
@@ -66,7 +66,7 @@ impl Map<RiseInput> for Rise {
         };
         Ok((f, kept))
     }
-    fn backward_from(&self, k: &RiseKept, dy: &Array1<f64>) -> Result<RiseInput> {
+    fn backward_memo(&self, k: &RiseKept, dy: &Array1<f64>) -> Result<RiseInput> {
         // f = sigmoid(z), z = n ln(t / h): dz/dh = -n / h, dz/dn = ln(t / h), dz/dt = n / t.
         let dz = &k.slope * dy;
         let dh = -k.n / k.h * dz.sum();
@@ -120,7 +120,9 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
     report.assert_clean();
 
     // 2. The model: rise through log-parameters, then c * rise + c0.
-    let model = Rise.reparametrised(Exp.cross(Exp)).followed_by(Affine);
+    let model = Rise
+        .reparametrised(Exp.alongside(Exp))
+        .then_parametrised(Affine);
     let start: Params = ((0.0, 0.0), (array![[1.0]], array![0.0]));
 
     let (times, strengths) = invented_samples();
@@ -140,11 +142,13 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
         start,
         &data,
         |p| {
-            if p.epoch_finished && (p.epoch == 1 || p.epoch % 50 == 0) {
-                println!(
-                    "  epoch {:>3}  step {:>4}  batch loss {:.5}",
-                    p.epoch, p.step, p.loss
-                );
+            let shown = p.epoch == 0 || (p.epoch + 1) % 50 == 0;
+            match p.epoch_loss {
+                Some(mean) if shown => println!(
+                    "  epoch {:>3}  step {:>4}  mean loss over the epoch {:.5}",
+                    p.epoch, p.step, mean
+                ),
+                _ => {}
             }
         },
     )?;
@@ -154,14 +158,11 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
 
     // 4. Levenberg-Marquardt from where Adam stopped.
     let inputs: Vec<Array1<f64>> = times.iter().map(|&t| array![t]).collect();
-    let scalar_model = model.clone().then(Total::sum());
+    let scalar_model = model.clone().then(ElementReduction::sum());
     let residuals = CurveResiduals::new(scalar_model, inputs, strengths.clone())?;
     let fit = LeastSquares::levenberg_marquardt().fit(&residuals, adam_params.clone())?;
     println!(
-        "\nLevenberg-Marquardt: {:?} after {} iterations, residual sum of squares {:.6} (mean {:.6}, Adam's last epoch {:.6})",
-        fit.stop,
-        fit.iterations,
-        fit.residual_sum_of_squares,
+        "\nLevenberg-Marquardt from Adam's parameters (mean squared error {:.6}, Adam's last epoch {:.6}):\n{fit}",
         fit.residual_sum_of_squares / m as f64,
         adam_mse
     );
@@ -232,22 +233,23 @@ fn draw(
         .margin(12)
         .x_label_area_size(36)
         .y_label_area_size(60)
-        .build_cartesian_2d(1..epochs, (lo..hi).log_scale())?;
+        .build_cartesian_2d(0..epochs - 1, (lo..hi).log_scale())?;
     chart
         .configure_mesh()
+        .light_line_style(TRANSPARENT)
         .x_desc("epoch")
         .y_desc("(g/L)^2")
         .draw()?;
     chart
         .draw_series(LineSeries::new(
-            epoch_losses.iter().enumerate().map(|(i, l)| (i + 1, *l)),
+            epoch_losses.iter().enumerate().map(|(i, l)| (i, *l)),
             &BLUE,
         ))?
         .label("Adam, training loss")
         .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], BLUE));
     chart
         .draw_series(LineSeries::new(
-            [(1, refined_mse), (epochs, refined_mse)],
+            [(0, refined_mse), (epochs - 1, refined_mse)],
             RED.stroke_width(2),
         ))?
         .label("after Levenberg-Marquardt")
@@ -267,6 +269,7 @@ fn draw(
         .build_cartesian_2d(0.0..12.5, 0.0..top)?;
     chart
         .configure_mesh()
+        .light_line_style(TRANSPARENT)
         .x_desc("hours")
         .y_desc("g/L")
         .draw()?;
@@ -280,27 +283,40 @@ fn draw(
         .label("samples (invented)")
         .legend(|(x, y)| Circle::new((x + 9, y), 3, BLACK.filled()));
     let grid: Vec<f64> = (1..=250).map(|i| i as f64 * 0.05).collect();
+    // Adam dashed, Levenberg-Marquardt solid, and the true curve drawn last,
+    // dotted on top, so that all three stay visible where they overlap.
+    let adam_style = BLUE.stroke_width(2);
     chart
-        .draw_series(LineSeries::new(
-            grid.iter().map(|&t| (t, true_strength(t))),
-            RGBColor(150, 150, 150),
-        ))?
-        .label("curve the samples came from")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], RGBColor(150, 150, 150)));
-    chart
-        .draw_series(LineSeries::new(
+        .draw_series(DashedLineSeries::new(
             grid.iter().map(|&t| (t, fitted(t).0)),
-            &BLUE,
+            10,
+            6,
+            adam_style,
         ))?
-        .label("Adam")
-        .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], BLUE));
+        .label("Adam (dashed)")
+        .legend(move |(x, y)| PathElement::new([(x, y), (x + 8, y)], adam_style));
     chart
         .draw_series(LineSeries::new(
             grid.iter().map(|&t| (t, fitted(t).1)),
-            RED.stroke_width(2),
+            RED.stroke_width(1),
         ))?
-        .label("Levenberg-Marquardt")
+        .label("Levenberg-Marquardt (solid)")
         .legend(|(x, y)| PathElement::new([(x, y), (x + 18, y)], RED));
+    let truth = BLACK.stroke_width(2);
+    chart
+        .draw_series(DottedLineSeries::new(
+            grid.iter().map(|&t| (t, true_strength(t))),
+            0,
+            5,
+            move |(x, y)| Circle::new((x, y), 1, truth.filled()),
+        ))?
+        .label("curve the samples came from (dotted)")
+        .legend(move |(x, y)| {
+            EmptyElement::at((x, y))
+                + Circle::new((4, 0), 1, truth.filled())
+                + Circle::new((10, 0), 1, truth.filled())
+                + Circle::new((16, 0), 1, truth.filled())
+        });
     chart
         .configure_series_labels()
         .position(SeriesLabelPosition::LowerRight)

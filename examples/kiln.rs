@@ -10,8 +10,8 @@
 
 use ndarray::{Array1, Array2, array};
 use revdiff::{
-    Affine, Compose, Fst, Id, Map, Mul, Neg, Pair, Result, Reverse, Sigmoid, Snd, Sum, Then, Total,
-    constant, forward_derivative, fst, hessian_vector, id, jacobian, snd,
+    Affine, Compose, ElementReduction, Fst, Id, Map, MulPair, Neg, Pair, Plus, Result, Reverse,
+    Sigmoid, Snd, Then, constant, forward_derivative, fst, hessian_vector, id, jacobian, snd,
 };
 
 /// The user's own primitive, elementwise: `x -> x sigmoid(x)`, a smooth
@@ -30,11 +30,11 @@ impl Compose for GatedRamp {}
 
 impl Map<Array1<f64>> for GatedRamp {
     type Output = Array1<f64>;
-    type Residual = Array1<f64>; // the input, for the slope
-    fn forward_keep(&self, x: &Array1<f64>) -> Result<(Array1<f64>, Array1<f64>)> {
+    type Memo = Array1<f64>; // the input, for the slope
+    fn forward_memo(&self, x: &Array1<f64>) -> Result<(Array1<f64>, Array1<f64>)> {
         Ok((x.mapv(|v| v * sigmoid(v)), x.clone()))
     }
-    fn backward_from(&self, x: &Array1<f64>, dy: &Array1<f64>) -> Result<Array1<f64>> {
+    fn backward_memo(&self, x: &Array1<f64>, dy: &Array1<f64>) -> Result<Array1<f64>> {
         Ok(x.mapv(|v| {
             let s = sigmoid(v);
             s * (1.0 + v * (1.0 - s))
@@ -43,16 +43,17 @@ impl Map<Array1<f64>> for GatedRamp {
 }
 
 /// The slope `sigmoid(x) + x sigmoid(x) sigmoid(-x)`, from catalogue pieces.
-type Slope = Sum<Sigmoid, Then<Pair<Id, Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, Mul>>, Mul>>;
+type Slope =
+    Plus<Sigmoid, Then<Pair<Id, Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, MulPair>>, MulPair>>;
 
 /// The reverse derivative as a map, `(x, dy) -> slope(x) dy`, built from the
 /// catalogue so that it can be differentiated again.
 impl Reverse<Array1<f64>> for GatedRamp {
-    type Rev = Then<Pair<Then<Fst, Slope>, Snd>, Mul>;
+    type Rev = Then<Pair<Then<Fst, Slope>, Snd>, MulPair>;
     fn rev(&self) -> Self::Rev {
-        let s_times_s_neg = Sigmoid.pair(Neg.then(Sigmoid)).then(Mul);
-        let slope = Sigmoid.plus(id().pair(s_times_s_neg).then(Mul));
-        fst().then(slope).pair(snd()).then(Mul)
+        let s_times_s_neg = Sigmoid.pair(Neg.then(Sigmoid)).then(MulPair);
+        let slope = Sigmoid.plus(id().pair(s_times_s_neg).then(MulPair));
+        fst().then(slope).pair(snd()).then(MulPair)
     }
 }
 
@@ -64,7 +65,7 @@ fn main() -> Result<()> {
     // probes -> affine mix -> gated ramp -> summed drying rate
     let mix = constant((weights, bias)).pair(id()).then(Affine);
     let rates = mix.then(GatedRamp);
-    let model = rates.clone().then(Total::sum());
+    let model = rates.clone().then(ElementReduction::sum());
 
     let value = model.forward(&probes)?;
     let gradient = model.backward(&probes, &1.0)?;

@@ -23,8 +23,8 @@ impl Compose for SuctionRamp {}
 
 impl Map<f64> for SuctionRamp {
     type Output = f64;
-    type Residual = f64; // the input
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64; // the input
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         let y = if *x > 20.0 {
             x + (-x).exp().ln_1p()
         } else {
@@ -32,7 +32,7 @@ impl Map<f64> for SuctionRamp {
         };
         Ok((y, *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         let slope = if *x > 20.0 {
             if self.fixed {
                 1.0 / (1.0 + (-x).exp())

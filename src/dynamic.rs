@@ -1,6 +1,6 @@
 //! Type-erased maps for models assembled at run time.
 //!
-//! [`Boxed`] hides any map's type (and its residual's) behind a box, so maps
+//! [`Boxed`] hides any map's type (and its memo's) behind a box, so maps
 //! of different types can be stored together and nested to a depth known
 //! only at run time. [`Chain`] is a sequence of stages over
 //! `ArrayD<T>` whose shapes are checked as it is assembled: a stage that
@@ -23,27 +23,25 @@ use std::fmt;
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
     fn erased_forward_keep(&self, x: &A) -> Result<(B, Box<dyn Any>)>;
-    fn erased_backward(&self, residual: &dyn Any, dy: &B) -> Result<A>;
+    fn erased_backward(&self, memo: &dyn Any, dy: &B) -> Result<A>;
 }
 
 impl<A: Space, F: Map<A>> ErasedMap<A, F::Output> for F
 where
-    F::Residual: 'static,
+    F::Memo: 'static,
 {
     fn erased_forward(&self, x: &A) -> Result<F::Output> {
         Map::forward(self, x)
     }
     fn erased_forward_keep(&self, x: &A) -> Result<(F::Output, Box<dyn Any>)> {
-        let (y, r) = Map::forward_keep(self, x)?;
+        let (y, r) = Map::forward_memo(self, x)?;
         Ok((y, Box::new(r)))
     }
-    fn erased_backward(&self, residual: &dyn Any, dy: &F::Output) -> Result<A> {
-        let r = residual
-            .downcast_ref::<F::Residual>()
-            .ok_or(Error::ForeignResidual {
-                operation: "backward pass of a boxed map",
-            })?;
-        Map::backward_from(self, r, dy)
+    fn erased_backward(&self, memo: &dyn Any, dy: &F::Output) -> Result<A> {
+        let r = memo.downcast_ref::<F::Memo>().ok_or(Error::ForeignMemo {
+            operation: "backward pass of a boxed map",
+        })?;
+        Map::backward_memo(self, r, dy)
     }
 }
 
@@ -72,7 +70,7 @@ impl<A: Space, B: Space> Boxed<A, B> {
     pub fn new<F>(map: F) -> Self
     where
         F: Map<A, Output = B> + 'static,
-        F::Residual: 'static,
+        F::Memo: 'static,
     {
         Boxed {
             inner: Box::new(map),
@@ -90,15 +88,15 @@ impl<A, B> Compose for Boxed<A, B> {}
 
 impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
     type Output = B;
-    type Residual = Box<dyn Any>;
+    type Memo = Box<dyn Any>;
     fn forward(&self, x: &A) -> Result<B> {
         self.inner.erased_forward(x)
     }
-    fn forward_keep(&self, x: &A) -> Result<(B, Box<dyn Any>)> {
+    fn forward_memo(&self, x: &A) -> Result<(B, Box<dyn Any>)> {
         self.inner.erased_forward_keep(x)
     }
-    fn backward_from(&self, residual: &Box<dyn Any>, dy: &B) -> Result<A> {
-        self.inner.erased_backward(residual.as_ref(), dy)
+    fn backward_memo(&self, memo: &Box<dyn Any>, dy: &B) -> Result<A> {
+        self.inner.erased_backward(memo.as_ref(), dy)
     }
 }
 
@@ -181,15 +179,15 @@ impl<T: Real> Chain<T> {
     pub fn push<F>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
     where
         F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
-        F::Residual: 'static,
+        F::Memo: 'static,
     {
         let output = match &shape {
             StageShape::Preserving => self.output_shape.clone(),
             StageShape::Fixed { input, output } => {
                 if *input != self.output_shape {
                     return Err(Error::ChainShape {
-                        stage: self.stages.len() + 1,
-                        previous: self.stages.len(),
+                        stage: self.stages.len(),
+                        previous: self.stages.len().checked_sub(1),
                         name: name.to_string(),
                         expected: shape_tuple(input),
                         found: shape_tuple(&self.output_shape),
@@ -210,7 +208,7 @@ impl<T: Real> Chain<T> {
     pub fn push_elementwise<F>(&mut self, name: &str, map: F) -> Result<()>
     where
         F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
-        F::Residual: 'static,
+        F::Memo: 'static,
     {
         self.push(name, map, StageShape::Preserving)
     }
@@ -263,14 +261,11 @@ impl<T: Real> Chain<T> {
         if x.shape() == self.input_shape.as_slice() {
             return Ok(());
         }
-        let first = self.stages.first();
-        Err(Error::ChainShape {
-            stage: 1,
-            previous: 0,
-            name: first.map_or("output".to_string(), |s| s.name.clone()),
-            expected: shape_tuple(&self.input_shape),
-            found: shape_tuple(x.shape()),
-        })
+        Err(Error::shape(
+            "run-time chain, its input",
+            shape_tuple(&self.input_shape),
+            shape_tuple(x.shape()),
+        ))
     }
 }
 
@@ -278,7 +273,7 @@ impl<T> Compose for Chain<T> {}
 
 impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     type Output = ArrayD<T>;
-    type Residual = Vec<Box<dyn Any>>;
+    type Memo = Vec<Box<dyn Any>>;
     fn forward(&self, x: &ArrayD<T>) -> Result<ArrayD<T>> {
         self.check_input(x)?;
         let Some((first, rest)) = self.stages.split_first() else {
@@ -290,20 +285,20 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         }
         Ok(y)
     }
-    fn forward_keep(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Residual)> {
+    fn forward_memo(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Memo)> {
         self.check_input(x)?;
         let mut y = x.clone();
-        let mut residuals = Vec::with_capacity(self.stages.len());
+        let mut memos = Vec::with_capacity(self.stages.len());
         for stage in &self.stages {
-            let (next, r) = stage.map.forward_keep(&y)?;
-            residuals.push(r);
+            let (next, r) = stage.map.forward_memo(&y)?;
+            memos.push(r);
             y = next;
         }
-        Ok((y, residuals))
+        Ok((y, memos))
     }
-    fn backward_from(&self, residuals: &Self::Residual, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        if residuals.len() != self.stages.len() {
-            return Err(Error::ForeignResidual {
+    fn backward_memo(&self, memos: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        if memos.len() != self.stages.len() {
+            return Err(Error::ForeignMemo {
                 operation: "backward pass of a chain",
             });
         }
@@ -315,8 +310,8 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
             ));
         }
         let mut d = dy.clone();
-        for (stage, r) in self.stages.iter().zip(residuals).rev() {
-            d = stage.map.backward_from(r, &d)?;
+        for (stage, r) in self.stages.iter().zip(memos).rev() {
+            d = stage.map.backward_memo(r, &d)?;
         }
         Ok(d)
     }
@@ -338,18 +333,18 @@ fn as_vector<T: Real>(x: &ArrayD<T>) -> Result<Array1<T>> {
 
 impl<T: Real> Map<ArrayD<T>> for FixedAffine<T> {
     type Output = ArrayD<T>;
-    type Residual = <Affine as Map<((Array2<T>, Array1<T>), Array1<T>)>>::Residual;
-    fn forward_keep(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Residual)> {
+    type Memo = <Affine as Map<((Array2<T>, Array1<T>), Array1<T>)>>::Memo;
+    fn forward_memo(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Memo)> {
         let input = ((self.weights.clone(), self.bias.clone()), as_vector(x)?);
-        let (y, r) = Affine.forward_keep(&input)?;
+        let (y, r) = Affine.forward_memo(&input)?;
         Ok((
             y.into_dimensionality::<IxDyn>()
                 .expect("any array is dynamic"),
             r,
         ))
     }
-    fn backward_from(&self, r: &Self::Residual, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        let (_, dx) = Affine.backward_from(r, &as_vector(dy)?)?;
+    fn backward_memo(&self, r: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        let (_, dx) = Affine.backward_memo(r, &as_vector(dy)?)?;
         Ok(dx.into_dyn())
     }
 }

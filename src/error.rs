@@ -3,6 +3,14 @@
 //! Every fallible operation returns [`Result<T>`](Result). Messages name the
 //! values that were wrong, so that a failure deep inside a composite still
 //! says which shapes met and where.
+//!
+//! # Positions count from 0
+//!
+//! Every position the crate reports, in a message or a field, counts from 0
+//! as Rust's indices do: rows and columns of data, flat coordinates, stages
+//! of a run-time chain, training steps and epochs. Counts of things done
+//! ([`Trained::steps`](crate::Trained::steps),
+//! [`FitReport::iterations`](crate::FitReport::iterations)) are counts.
 
 use thiserror::Error;
 
@@ -21,17 +29,33 @@ pub enum Error {
         /// The shape it was given.
         found: String,
     },
+    /// A backward pass was given an output change whose shape is not the
+    /// shape of the map's output.
+    #[error(
+        "{map}, backward pass: the output change has shape {found}, \
+         but the map's output has shape {expected}"
+    )]
+    OutputChangeShape {
+        /// The map whose backward pass refused the change.
+        map: &'static str,
+        /// The shape of the map's output at the point.
+        expected: String,
+        /// The shape of the change given.
+        found: String,
+    },
     /// A stage of a run-time chain cannot accept what the stage before it
     /// produces.
     #[error(
         "stage {stage} of the chain ({name}) expects input of shape {expected}, \
-         but stage {previous} produces shape {found}"
+         but {} has shape {found}",
+        match previous { Some(p) => format!("the output of stage {p}"), None => "the chain's input".to_string() }
     )]
     ChainShape {
-        /// Position of the refusing stage, counting from 1.
+        /// Position of the refusing stage (the first stage is 0).
         stage: usize,
-        /// Position of the stage whose output was refused (0 is the chain's input).
-        previous: usize,
+        /// Position of the stage whose output was refused, or `None` when it
+        /// was the chain's own input.
+        previous: Option<usize>,
         /// Name of the refusing stage.
         name: String,
         /// The input shape the stage accepts.
@@ -42,7 +66,7 @@ pub enum Error {
     /// A flat coordinate vector had the wrong length for the value it was
     /// meant to fill.
     #[error("{operation}: expected {expected} coordinates, got {found}")]
-    Length {
+    CoordinateCount {
         /// The operation that needed the coordinates.
         operation: &'static str,
         /// Number of coordinates needed.
@@ -68,10 +92,10 @@ pub enum Error {
         /// What was seen, and where in the value.
         detail: String,
     },
-    /// A residual handed to a type-erased map's backward pass was not one
+    /// A memo handed to a type-erased map's backward pass was not one
     /// that map's forward pass kept.
-    #[error("{operation}: the residual was not produced by this map's forward pass")]
-    ForeignResidual {
+    #[error("{operation}: the memo was not produced by this map's forward pass")]
+    ForeignMemo {
         /// The map that refused it.
         operation: &'static str,
     },
@@ -81,9 +105,13 @@ pub enum Error {
         /// The operation that needed elements.
         operation: &'static str,
     },
-    /// Inputs and targets of a dataset had different numbers of rows.
-    #[error("dataset: {inputs} input rows but {targets} target rows")]
-    Rows {
+    /// Inputs and targets of a set of examples had different numbers of rows.
+    #[error(
+        "examples: the inputs have {} but the targets have {}",
+        rows(*inputs),
+        rows(*targets)
+    )]
+    RowCountMismatch {
         /// Rows of the inputs.
         inputs: usize,
         /// Rows of the targets.
@@ -92,19 +120,44 @@ pub enum Error {
     /// Training met a non-finite loss, gradient or parameter.
     #[error("training step {step} (epoch {epoch}): the {quantity} is not finite")]
     Diverged {
-        /// The step, counting from 1, whose update was refused.
+        /// The step whose update was refused (the first step is 0).
         step: usize,
-        /// The epoch it belonged to, counting from 1.
+        /// The epoch it belonged to (the first epoch is 0).
         epoch: usize,
         /// What was not finite: `loss`, `gradient` or `updated parameters`.
         quantity: &'static str,
     },
 }
 
+/// `1 row`, `3 rows`.
+fn rows(n: usize) -> String {
+    if n == 1 {
+        "1 row".to_string()
+    } else {
+        format!("{n} rows")
+    }
+}
+
 /// Shorthand for results whose error is [`enum@Error`].
 pub type Result<T> = std::result::Result<T, Error>;
 
 impl Error {
+    /// Re-labels a shape mismatch met while pairing a backward pass's output
+    /// change with what the forward pass kept: the wrong argument was the
+    /// output change `dy`, not the map. Other errors pass unchanged.
+    pub(crate) fn in_output_change(self, map: &'static str) -> Self {
+        match self {
+            Error::ShapeMismatch {
+                expected, found, ..
+            } => Error::OutputChangeShape {
+                map,
+                expected,
+                found,
+            },
+            other => other,
+        }
+    }
+
     /// Builds a [`Error::ShapeMismatch`] from two printable shapes.
     pub fn shape(operation: &'static str, expected: impl ToString, found: impl ToString) -> Self {
         Error::ShapeMismatch {

@@ -42,9 +42,9 @@ pub fn forward_derivative<A: Space, F: Reverse<A>>(f: &F, x: &A, v: &A) -> Resul
 /// component of `R[R[f]]((x, 1), v)`; exact, with no finite differences.
 ///
 /// ```
-/// use revdiff::{hessian_vector, Compose, Mul, Map, Pair, fst, snd};
+/// use revdiff::{hessian_vector, Compose, MulPair, Map, Pair, fst, snd};
 /// // f(a, b) = a b has Hessian [[0, 1], [1, 0]].
-/// let f = Mul;
+/// let f = MulPair;
 /// let hv = hessian_vector(&f, &(2.0_f64, 3.0), &(1.0, 0.0)).unwrap();
 /// assert_eq!(hv, (0.0, 1.0));
 /// ```
@@ -70,9 +70,9 @@ fn basis<R: Real, S: Euclidean<R>>(like: &S, i: usize) -> Result<S> {
 /// pass and `m` backward passes on basis vectors. Needs only [`Map`].
 ///
 /// ```
-/// use revdiff::{jacobian_by_backward, Mul};
+/// use revdiff::{jacobian_by_backward, MulPair};
 /// use ndarray::array;
-/// let j = jacobian_by_backward(&Mul, &(2.0_f64, 3.0)).unwrap();
+/// let j = jacobian_by_backward(&MulPair, &(2.0_f64, 3.0)).unwrap();
 /// assert_eq!(j, array![[3.0, 2.0]]);
 /// ```
 pub fn jacobian_by_backward<R, A, F>(f: &F, x: &A) -> Result<Array2<R>>
@@ -82,11 +82,11 @@ where
     F: Map<A>,
     F::Output: Euclidean<R>,
 {
-    let (y, residual) = f.forward_keep(x)?;
+    let (y, memo) = f.forward_memo(x)?;
     let (m, n) = (y.dimension(), x.dimension());
     let mut j = Array2::zeros((m, n));
     for i in 0..m {
-        let row = f.backward_from(&residual, &basis(&y, i)?)?.coordinates();
+        let row = f.backward_memo(&memo, &basis(&y, i)?)?.coordinates();
         check_len(n, row.len())?;
         j.row_mut(i).assign(&ndarray::ArrayView1::from(&row[..]));
     }
@@ -97,9 +97,9 @@ where
 /// derivatives on basis vectors, each from the second reverse derivative.
 ///
 /// ```
-/// use revdiff::{jacobian_by_forward, Mul};
+/// use revdiff::{jacobian_by_forward, MulPair};
 /// use ndarray::array;
-/// let j = jacobian_by_forward(&Mul, &(2.0_f64, 3.0)).unwrap();
+/// let j = jacobian_by_forward(&MulPair, &(2.0_f64, 3.0)).unwrap();
 /// assert_eq!(j, array![[3.0, 2.0]]);
 /// ```
 pub fn jacobian_by_forward<R, A, F>(f: &F, x: &A) -> Result<Array2<R>>
@@ -150,7 +150,7 @@ fn check_len(expected: usize, found: usize) -> Result<()> {
     if expected == found {
         Ok(())
     } else {
-        Err(Error::Length {
+        Err(Error::CoordinateCount {
             operation: "assembling a Jacobian",
             expected,
             found,

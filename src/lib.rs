@@ -28,10 +28,10 @@
 //! # Example
 //!
 //! ```
-//! use revdiff::{forward_derivative, jacobian, Compose, Exp, Map, Mul, Sin};
+//! use revdiff::{forward_derivative, jacobian, Compose, Exp, Map, MulPair, Sin};
 //!
 //! // f(a, b) = exp(sin(a b))
-//! let f = Mul.then(Sin).then(Exp);
+//! let f = MulPair.then(Sin).then(Exp);
 //! let x = (0.5_f64, 1.5);
 //! let y = f.forward(&x).unwrap();
 //! let (da, db) = f.backward(&x, &1.0).unwrap();
@@ -56,6 +56,13 @@ pub mod map;
 pub mod primitives;
 pub mod space;
 
+/// The ndarray this crate is built on, re-exported so that a user's arrays
+/// are of the same version: `use revdiff::ndarray;`.
+pub use ndarray;
+/// The proptest the law checkers are built on, re-exported so that a user's
+/// strategies are of the same version: `use revdiff::proptest;`.
+pub use proptest;
+
 pub use combinators::*;
 pub use dynamic::{Boxed, Chain, StageShape};
 pub use error::{Error, Result};
@@ -67,7 +74,7 @@ pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use learning::*;
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
-pub use space::{Euclidean, Pointwise, Real, Scale, Space};
+pub use space::{Euclidean, Pointwise, Real, Scalable, Space};
 
 /// The README's code, compiled and run as doc-tests.
 #[cfg(doctest)]

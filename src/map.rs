@@ -3,7 +3,7 @@
 //! (linear maps, which have transposes) and [`Compose`] (the combinator
 //! methods).
 
-use crate::combinators::{Cross, Pair, Scaled, Sum, Then, Transpose};
+use crate::combinators::{Alongside, Pair, Plus, ReversedThrough, Scaled, Then, Transpose};
 use crate::error::Result;
 use crate::space::Space;
 
@@ -12,14 +12,29 @@ use crate::space::Space;
 /// The reverse derivative `R[f]: A x B -> A` sends a point `x` and a change
 /// `dy` of the output to the change of the input, the transposed Jacobian of
 /// `f` at `x` applied to `dy`. It is computed in two passes:
-/// [`forward_keep`](Map::forward_keep) evaluates the map and keeps a residual
+/// [`forward_memo`](Map::forward_memo) evaluates the map and keeps a memo
 /// (whatever the backward pass needs: the input, the output, nothing), and
-/// [`backward_from`](Map::backward_from) turns the residual and an output
+/// [`backward_memo`](Map::backward_memo) turns the memo and an output
 /// change into an input change. [`backward`](Map::backward) does both.
 ///
-/// Composites keep the residuals of their parts, so one forward pass and one
+/// Composites keep the memos of their parts, so one forward pass and one
 /// backward pass cost the same order of work as evaluating the map, however
 /// deeply the combinators are nested.
+///
+/// # What `Map` alone gives, and what needs [`Reverse`]
+///
+/// With only `Map`, a hand-written map composes with every combinator, has
+/// gradients ([`backward`](Map::backward)), trains with
+/// [`Training`](crate::Training), fits by least squares through
+/// [`CurveResiduals`](crate::CurveResiduals), has a Jacobian by backward
+/// passes ([`jacobian_by_backward`](crate::jacobian_by_backward)) and goes
+/// through the first-order laws ([`Checker::map`](crate::laws::Checker::map)).
+///
+/// Everything of second order needs [`Reverse`]: forward derivatives,
+/// Hessian-vector products, [`jacobian`](crate::jacobian) by forward passes,
+/// [`residual_map`](crate::residual_map) and the order-2 laws. The shortest
+/// way there is [`Compose::reversed_through`], which borrows the reverse map
+/// of an equal composite of catalogue pieces.
 ///
 /// The input space is a type parameter rather than an associated type, so one
 /// primitive (say [`Exp`](crate::Exp)) acts on `f64`, `f32` and arrays of
@@ -39,11 +54,11 @@ use crate::space::Space;
 ///
 /// impl Map<f64> for Cube {
 ///     type Output = f64;
-///     type Residual = f64; // the input, for the slope 3x^2
-///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///     type Memo = f64; // the input, for the slope 3x^2
+///     fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
 ///         Ok((x * x * x, *x))
 ///     }
-///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///     fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
 ///         Ok(3.0 * x * x * dy)
 ///     }
 /// }
@@ -53,28 +68,35 @@ use crate::space::Space;
 /// let grad = model.backward(&x, &1.0).unwrap();
 /// assert!((grad - (x * x * x).cos() * 3.0 * x * x).abs() < 1e-12);
 /// ```
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` is not a map with input `{A}`",
+    label = "this map cannot take `{A}` as its input",
+    note = "check that the input type matches what the previous stage outputs: in `f.then(g)`, `g` takes `f`'s output",
+    note = "a parametrised stage such as `Affine` takes `(parameters, input)`: after another parametrised stage, join it with `.then_parametrised(stage)`, not `.then(stage)`",
+    note = "a hand-written map needs `impl Map<{A}> for {Self}` (and `impl Compose for {Self} {{}}`)"
+)]
 pub trait Map<A: Space>: Compose {
     /// The output space.
     type Output: Space;
     /// What the forward pass keeps for the backward pass.
-    type Residual;
+    type Memo;
 
     /// Evaluates the map.
     fn forward(&self, x: &A) -> Result<Self::Output> {
-        Ok(self.forward_keep(x)?.0)
+        Ok(self.forward_memo(x)?.0)
     }
 
     /// Evaluates the map and keeps what the backward pass needs.
-    fn forward_keep(&self, x: &A) -> Result<(Self::Output, Self::Residual)>;
+    fn forward_memo(&self, x: &A) -> Result<(Self::Output, Self::Memo)>;
 
-    /// The input change for output change `dy`, at the point the residual was
-    /// kept for. One residual serves any number of output changes.
-    fn backward_from(&self, residual: &Self::Residual, dy: &Self::Output) -> Result<A>;
+    /// The input change for output change `dy`, at the point the memo was
+    /// kept for. One memo serves any number of output changes.
+    fn backward_memo(&self, memo: &Self::Memo, dy: &Self::Output) -> Result<A>;
 
     /// The reverse derivative `R[f](x, dy)`.
     fn backward(&self, x: &A, dy: &Self::Output) -> Result<A> {
-        let (_, residual) = self.forward_keep(x)?;
-        self.backward_from(&residual, dy)
+        let (_, memo) = self.forward_memo(x)?;
+        self.backward_memo(&memo, dy)
     }
 }
 
@@ -90,28 +112,29 @@ pub trait Map<A: Space>: Compose {
 /// # Example
 ///
 /// The user primitive `x -> x^3` again, its reverse derivative assembled from
-/// catalogue pieces: `R[cube](x, dy) = 3 x^2 dy`.
+/// catalogue pieces: `R[cube](x, dy) = 3 x^2 dy`. (Where an equal composite
+/// exists, [`Compose::reversed_through`] does this without naming any type.)
 ///
 /// ```
-/// use revdiff::{fst, snd, Compose, Fst, Map, Mul, Pair, Powi, Result, Reverse, Snd, Then};
+/// use revdiff::{fst, snd, Compose, Fst, Map, MulPair, Pair, Powi, Result, Reverse, Snd, Then};
 ///
 /// #[derive(Clone, Debug)]
 /// struct Cube;
 /// impl Compose for Cube {}
 /// impl Map<f64> for Cube {
 ///     type Output = f64;
-///     type Residual = f64;
-///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///     type Memo = f64;
+///     fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
 ///         Ok((x * x * x, *x))
 ///     }
-///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///     fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
 ///         Ok(3.0 * x * x * dy)
 ///     }
 /// }
 /// impl Reverse<f64> for Cube {
-///     type Rev = Then<Pair<Then<Fst, Powi<f64>>, Snd>, Mul>;
+///     type Rev = Then<Pair<Then<Fst, Powi<f64>>, Snd>, MulPair>;
 ///     fn rev(&self) -> Self::Rev {
-///         fst().then(Powi::scaled(3.0, 2)).pair(snd()).then(Mul)
+///         fst().then(Powi::with_coefficient(3.0, 2)).pair(snd()).then(MulPair)
 ///     }
 /// }
 ///
@@ -121,6 +144,12 @@ pub trait Map<A: Space>: Compose {
 /// let hv = revdiff::hessian_vector(&Cube, &x, &1.0).unwrap();
 /// assert!((hv - 6.0 * x).abs() < 1e-12);
 /// ```
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` has no reverse derivative as a map, on input `{A}`",
+    label = "second-order quantities need `Reverse<{A}>` here",
+    note = "for a hand-written map, `.reversed_through(composite)` borrows the reverse map of an equal composite of catalogue pieces",
+    note = "or implement `Reverse<{A}>` for `{Self}`; with only `Map`, use first-order tools (`backward`, `jacobian_by_backward`, `Checker::map`)"
+)]
 pub trait Reverse<A: Space>: Map<A> + Clone {
     /// The reverse derivative, as a map `(A, B) -> A`.
     type Rev: Reverse<(A, Self::Output), Output = A>;
@@ -160,6 +189,11 @@ pub trait Linear<A: Space>: Reverse<A> {
 /// It has no required items: a hand-written map opts in with
 /// `impl Compose for MyMap {}`. The methods do not depend on the input
 /// space, which is why they live here rather than on [`Map`].
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` is not a map of this library",
+    label = "a map must implement `Compose` and `Map`",
+    note = "a hand-written map opts in with `impl Compose for {Self} {{}}` and `impl Map<Input> for {Self}`"
+)]
 pub trait Compose {
     /// First `self`, then `g`: the map `x -> g(self(x))`. See [`Then`].
     fn then<G>(self, g: G) -> Then<Self, G>
@@ -177,20 +211,30 @@ pub trait Compose {
         Pair::new(self, g)
     }
 
-    /// The product `self x g`: `(a, c) -> (self(a), g(c))`. See [`Cross`].
-    fn cross<G>(self, g: G) -> Cross<Self, G>
+    /// The product `self x g`: `(a, c) -> (self(a), g(c))`. See [`Alongside`].
+    fn alongside<G>(self, g: G) -> Alongside<Self, G>
     where
         Self: Sized,
     {
-        Cross::new(self, g)
+        Alongside::new(self, g)
     }
 
-    /// The sum of maps `self + g`: `x -> self(x) + g(x)`. See [`Sum`].
-    fn plus<G>(self, g: G) -> Sum<Self, G>
+    /// The sum of maps `self + g`: `x -> self(x) + g(x)`. See [`Plus`].
+    fn plus<G>(self, g: G) -> Plus<Self, G>
     where
         Self: Sized,
     {
-        Sum::new(self, g)
+        Plus::new(self, g)
+    }
+
+    /// `self`, with the reverse derivative (as a map) of `composite`, an
+    /// equal composite of catalogue pieces: second order for a hand-written
+    /// map without writing its reverse map by hand. See [`ReversedThrough`].
+    fn reversed_through<C>(self, composite: C) -> ReversedThrough<Self, C>
+    where
+        Self: Sized,
+    {
+        ReversedThrough::new(self, composite)
     }
 
     /// The scaled map `s * self`: `x -> s * self(x)`. See [`Scaled`].

@@ -3,7 +3,7 @@
 //! A [`Space`] has a zero shaped like any of its values and an addition; that
 //! is all the algebra of reverse derivatives needs, and it holds over the
 //! reals and over the two-element field alike. The real-number parts live in
-//! separate traits: [`Scale`] for multiplication by a scalar, [`Euclidean`]
+//! separate traits: [`Scalable`] for multiplication by a scalar, [`Euclidean`]
 //! for inner products and coordinates (what checkers, Jacobians and finite
 //! differences need), and [`Pointwise`] for values whose elements can be
 //! mapped one by one (what the elementwise primitives need).
@@ -30,7 +30,7 @@
 use crate::error::{Error, Result};
 use ndarray::{Array, Dimension, ScalarOperand};
 use num_traits::Float;
-use std::fmt::{Debug, Display};
+use std::fmt::{Debug, Display, LowerExp};
 
 /// The real scalar types the crate computes with: `f32` and `f64`.
 ///
@@ -41,6 +41,7 @@ pub trait Real:
     + ScalarOperand
     + Debug
     + Display
+    + LowerExp
     + Send
     + Sync
     + 'static
@@ -90,6 +91,11 @@ impl Real for f64 {}
 /// assert_eq!(p.try_add(&p).unwrap(), Coefficients(vec![2.0, 4.0]));
 /// assert!(p.try_add(&Coefficients(vec![1.0])).is_err());
 /// ```
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` is not a space that maps act on",
+    label = "not a `revdiff::Space`",
+    note = "spaces are `f32`, `f64`, ndarray arrays of them, fixed-size arrays, `()` and tuples of spaces; a type of your own needs `impl Space`"
+)]
 pub trait Space: Clone + Debug {
     /// What a zero needs to know about a value: its array dimensions, the
     /// shapes of a tuple's parts, nothing for a scalar. Cheap to keep, so
@@ -118,10 +124,17 @@ pub trait Space: Clone + Debug {
 
     /// The shape, printed for error messages: `scalar`, `(3, 4)`, `((2,), scalar)`.
     fn shape_string(&self) -> String;
+
+    /// The value, printed for people: `1.5`, `[1, 2]`, `(0.5, [[1, 0], [0, 1]])`.
+    /// Arrays print their elements only (no strides or memory layout); the
+    /// default is the `Debug` form, which suits small user types.
+    fn value_string(&self) -> String {
+        format!("{self:?}")
+    }
 }
 
 /// Multiplication of a space's values by scalars of type `S`.
-pub trait Scale<S>: Space {
+pub trait Scalable<S>: Space {
     /// `s * self`.
     fn scale(&self, s: S) -> Self;
 }
@@ -142,7 +155,12 @@ pub trait Scale<S>: Space {
 /// let y = x.rebuild_from_coordinates(&[0.0, 1.0, 1.0, 1.0, 1.0]).unwrap();
 /// assert_eq!(y, (0.0, array![[1.0, 1.0], [1.0, 1.0]]));
 /// ```
-pub trait Euclidean<R: Real>: Scale<R> {
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` is not a real space with coordinates over `{R}`",
+    label = "needs `Euclidean<{R}>`: parameters, gradients and Jacobians are read as flat lists of `{R}`",
+    note = "`f32`, `f64`, arrays of them, fixed-size arrays and tuples of these are Euclidean; mixing `f32` and `f64` in one value is not"
+)]
+pub trait Euclidean<R: Real>: Scalable<R> {
     /// The inner product `<self, other>`; an error if the shapes differ.
     fn inner(&self, other: &Self) -> Result<R>;
 
@@ -166,7 +184,7 @@ pub trait Euclidean<R: Real>: Scale<R> {
     /// Builds a value shaped like `self` from exactly `self.dimension()` coordinates.
     fn rebuild_from_coordinates(&self, coords: &[R]) -> Result<Self> {
         if coords.len() != self.dimension() {
-            return Err(Error::Length {
+            return Err(Error::CoordinateCount {
                 operation: "building a value from coordinates",
                 expected: self.dimension(),
                 found: coords.len(),
@@ -221,7 +239,7 @@ macro_rules! real_scalar_space {
                 "scalar".to_string()
             }
         }
-        impl Scale<$t> for $t {
+        impl Scalable<$t> for $t {
             fn scale(&self, s: $t) -> Self {
                 s * self
             }
@@ -237,7 +255,7 @@ macro_rules! real_scalar_space {
                 out.push(*self);
             }
             fn read_coordinates(&self, coords: &mut &[$t]) -> Result<Self> {
-                let (first, rest) = coords.split_first().ok_or(Error::Length {
+                let (first, rest) = coords.split_first().ok_or(Error::CoordinateCount {
                     operation: "reading a scalar from coordinates",
                     expected: 1,
                     found: 0,
@@ -309,9 +327,17 @@ impl<T: Real, D: Dimension> Space for Array<T, D> {
     fn shape_string(&self) -> String {
         shape_tuple(self.shape())
     }
+    fn value_string(&self) -> String {
+        // ndarray's Display nests rows over lines; one line reads better in
+        // messages and tables.
+        self.to_string()
+            .split_whitespace()
+            .collect::<Vec<_>>()
+            .join(" ")
+    }
 }
 
-impl<T: Real, D: Dimension> Scale<T> for Array<T, D> {
+impl<T: Real, D: Dimension> Scalable<T> for Array<T, D> {
     fn scale(&self, s: T) -> Self {
         self * s
     }
@@ -334,7 +360,7 @@ impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
     fn read_coordinates(&self, coords: &mut &[T]) -> Result<Self> {
         let n = self.len();
         if coords.len() < n {
-            return Err(Error::Length {
+            return Err(Error::CoordinateCount {
                 operation: "reading an array from coordinates",
                 expected: n,
                 found: coords.len(),
@@ -397,9 +423,13 @@ impl<S: Space, const N: usize> Space for [S; N] {
             None => "[; 0]".to_string(),
         }
     }
+    fn value_string(&self) -> String {
+        let parts: Vec<String> = self.iter().map(Space::value_string).collect();
+        format!("[{}]", parts.join(", "))
+    }
 }
 
-impl<S: Scale<K>, K: Copy, const N: usize> Scale<K> for [S; N] {
+impl<S: Scalable<K>, K: Copy, const N: usize> Scalable<K> for [S; N] {
     fn scale(&self, s: K) -> Self {
         std::array::from_fn(|i| self[i].scale(s))
     }
@@ -424,7 +454,7 @@ impl<S: Euclidean<R>, R: Real, const N: usize> Euclidean<R> for [S; N] {
         for s in self {
             parts.push(s.read_coordinates(coords)?);
         }
-        parts.try_into().map_err(|_| Error::Length {
+        parts.try_into().map_err(|_| Error::CoordinateCount {
             operation: "reading a fixed-size array from coordinates",
             expected: N,
             found: 0,
@@ -457,7 +487,7 @@ impl Space for () {
     }
 }
 
-impl<K> Scale<K> for () {
+impl<K> Scalable<K> for () {
     fn scale(&self, _: K) -> Self {}
 }
 
@@ -497,8 +527,12 @@ macro_rules! tuple_space {
                 let parts = [$(self.$idx.shape_string()),+];
                 format!("({})", parts.join(", "))
             }
+            fn value_string(&self) -> String {
+                let parts = [$(self.$idx.value_string()),+];
+                format!("({})", parts.join(", "))
+            }
         }
-        impl<K: Copy, $($name: Scale<K>),+> Scale<K> for ($($name,)+) {
+        impl<K: Copy, $($name: Scalable<K>),+> Scalable<K> for ($($name,)+) {
             fn scale(&self, s: K) -> Self {
                 ($(self.$idx.scale(s),)+)
             }

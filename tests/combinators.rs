@@ -43,7 +43,7 @@ proptest! {
     #[test]
     fn chain_rule(a in vector(3), b in vector(3), dz in vector(3)) {
         let x = (a, b);
-        let (f, g) = (Mul, Sigmoid.then(Cos));
+        let (f, g) = (MulPair, Sigmoid.then(Cos));
         let y = f.forward(&x).unwrap();
         let composed = f.then(g).backward(&x, &dz).unwrap();
         let by_hand = f.backward(&x, &g.backward(&y, &dz).unwrap()).unwrap();
@@ -61,7 +61,7 @@ proptest! {
 
     #[test]
     fn product_acts_componentwise(a in vector(2), c in vector(3), db in vector(2), dd in vector(3)) {
-        let m = Exp.cross(Tanh);
+        let m = Exp.alongside(Tanh);
         let got = m.backward(&(a.clone(), c.clone()), &(db.clone(), dd.clone())).unwrap();
         prop_assert_eq!(got, (Exp.backward(&a, &db).unwrap(), Tanh.backward(&c, &dd).unwrap()));
     }
@@ -69,12 +69,12 @@ proptest! {
     #[test]
     fn copy_add_discard_zero_constant_scale(x in vector(3), d1 in vector(3), d2 in vector(3)) {
         prop_assert_eq!(duplicate().backward(&x, &(d1.clone(), d2.clone())).unwrap(), &d1 + &d2);
-        prop_assert_eq!(add().backward(&(x.clone(), x.clone()), &d1).unwrap(), (d1.clone(), d1.clone()));
+        prop_assert_eq!(add_pair().backward(&(x.clone(), x.clone()), &d1).unwrap(), (d1.clone(), d1.clone()));
         prop_assert_eq!(discard().backward(&x, &()).unwrap(), Array1::zeros(3));
         prop_assert_eq!(zero_map().backward(&x, &d1).unwrap(), Array1::zeros(3));
         prop_assert_eq!(constant(d2.clone()).forward(&x).unwrap(), d2.clone());
         prop_assert_eq!(constant(d2.clone()).backward(&x, &d1).unwrap(), Array1::zeros(3));
-        prop_assert_eq!(scaling(2.5).backward(&x, &d1).unwrap(), &d1 * 2.5);
+        prop_assert_eq!(multiply_by(2.5).backward(&x, &d1).unwrap(), &d1 * 2.5);
         prop_assert_eq!(Sin.scaled(2.5).backward(&x, &d1).unwrap(), Sin.backward(&x, &(&d1 * 2.5)).unwrap());
     }
 
@@ -89,20 +89,20 @@ proptest! {
     #[test]
     fn combinators_at_three_orders(a in -2.0..2.0f64, b in -2.0..2.0f64, seed in any::<u64>()) {
         let x = (a, b);
-        check_orders("then", &Mul.then(Sin), &x, seed);
-        check_orders("pair", &Mul.pair(Sub), &x, seed);
-        check_orders("cross", &Sin.cross(Tanh), &x, seed);
-        check_orders("sum", &Mul.plus(Sub), &x, seed);
-        check_orders("scaled", &Mul.scaled(-1.5), &x, seed);
+        check_orders("then", &MulPair.then(Sin), &x, seed);
+        check_orders("pair", &MulPair.pair(SubPair), &x, seed);
+        check_orders("cross", &Sin.alongside(Tanh), &x, seed);
+        check_orders("sum", &MulPair.plus(SubPair), &x, seed);
+        check_orders("scaled", &MulPair.scaled(-1.5), &x, seed);
         check_orders("fst", &fst(), &x, seed);
         check_orders("snd", &snd(), &x, seed);
-        check_orders("add", &add(), &x, seed);
+        check_orders("add", &add_pair(), &x, seed);
         check_orders("id", &id(), &x, seed);
         check_orders("duplicate", &duplicate(), &a, seed);
         check_orders("zero", &zero_map(), &x, seed);
         check_orders("constant", &constant(3.0_f64), &x, seed);
-        check_orders("scaling", &scaling(0.5), &x, seed);
-        check_orders("transpose", &Sub.transpose_at((0.0, 0.0)), &a, seed);
+        check_orders("scaling", &multiply_by(0.5), &x, seed);
+        check_orders("transpose", &SubPair.transpose_at((0.0, 0.0)), &a, seed);
     }
 }
 
@@ -130,9 +130,9 @@ fn transpose_is_the_backward_pass() {
         rev.forward(&(x0.clone(), dy.clone())).unwrap(),
         w.t().dot(&dy)
     );
-    // Sub is linear: its transpose sends dy to (dy, -dy), and the transpose
-    // of the transpose acts as Sub again.
-    let t = Sub.transpose_at((0.0_f64, 0.0));
+    // SubPair is linear: its transpose sends dy to (dy, -dy), and the transpose
+    // of the transpose acts as SubPair again.
+    let t = SubPair.transpose_at((0.0_f64, 0.0));
     assert_eq!(t.forward(&2.0).unwrap(), (2.0, -2.0));
     assert_eq!(t.backward(&2.0, &(3.0, 1.0)).unwrap(), 2.0);
 }
@@ -145,12 +145,12 @@ impl Compose for Counting {}
 
 impl Map<f64> for Counting {
     type Output = f64;
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         self.0.set(self.0.get() + 1);
         Ok((x.sin(), *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         Ok(x.cos() * dy)
     }
 }
@@ -221,21 +221,19 @@ fn run_time_chain_matches_static_composite_and_checks_shapes() {
         .unwrap_err();
     assert_eq!(
         err,
-        Error::ChainShape {
-            stage: 1,
-            previous: 0,
-            name: "affine (2, 3)".into(),
-            expected: "(3,)".into(),
-            found: "(4,)".into()
-        }
+        Error::shape("run-time chain, its input", "(3,)", "(4,)")
+    );
+    assert_eq!(
+        err.to_string(),
+        "run-time chain, its input: expected shape (3,), got (4,)"
     );
     let err = chain
         .push_affine(ndarray::Array2::zeros((2, 2)), Array1::zeros(2))
         .unwrap_err();
-    assert!(err.to_string().contains("stage 4"), "{err}");
+    assert!(err.to_string().contains("stage 3"), "{err}");
     assert!(
         err.to_string()
-            .contains("expects input of shape (2,), but stage 3 produces shape (1,)"),
+            .contains("expects input of shape (2,), but the output of stage 2 has shape (1,)"),
         "{err}"
     );
     assert_eq!(chain.len(), 3);
@@ -271,7 +269,7 @@ proptest! {
 
 #[test]
 fn single_precision_and_fixed_arrays_work_too() {
-    let f = Mul.then(Tanh);
+    let f = MulPair.then(Tanh);
     let (da, db) = f.backward(&(0.5_f32, 2.0_f32), &1.0).unwrap();
     let slope = 1.0 - 1.0_f32.tanh().powi(2);
     assert!((da - 2.0 * slope).abs() < 1e-6 && (db - 0.5 * slope).abs() < 1e-6);

@@ -41,7 +41,10 @@ fn cookbook_bilinear_form() {
 #[test]
 fn cookbook_trace() {
     let a = a3();
-    let trace = id().pair(constant(M::eye(3))).then(Mul).then(Total::sum());
+    let trace = id()
+        .pair(constant(M::eye(3)))
+        .then(MulPair)
+        .then(ElementReduction::sum());
     let f = constant(a.clone())
         .pair(id())
         .then(MatMul::plain())
@@ -75,7 +78,7 @@ fn cookbook_least_squares() {
         .pair(id())
         .then(MatVec::plain())
         .pair(constant(b.clone()))
-        .then(Sub)
+        .then(SubPair)
         .then(squared_norm());
     let x: V = array![0.7, -0.2];
     let want = a.t().dot(&(a.dot(&x) - &b)) * 2.0;
@@ -117,12 +120,12 @@ fn softmax_jacobian() {
 fn rosenbrock() -> impl Reverse<(f64, f64), Output = f64> {
     let first = fst()
         .then(constant(1.0).pair(id()))
-        .then(Sub)
+        .then(SubPair)
         .then(Powi::new(2));
     let second = snd()
         .pair(fst().then(Powi::new(2)))
-        .then(Sub)
-        .then(Powi::scaled(100.0, 2));
+        .then(SubPair)
+        .then(Powi::with_coefficient(100.0, 2));
     first.plus(second)
 }
 

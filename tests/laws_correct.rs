@@ -66,7 +66,7 @@ fn matrix_products_of_100_by_100() {
 
 #[test]
 fn sums_of_10000_terms() {
-    check_large(&Total::sum(), vectors(10_000, -1.0, 1.0));
+    check_large(&ElementReduction::sum(), vectors(10_000, -1.0, 1.0));
 }
 
 #[test]

@@ -31,11 +31,11 @@ impl std::fmt::Debug for Scalar {
 impl Compose for Scalar {}
 impl Map<f64> for Scalar {
     type Output = f64;
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         Ok(((self.value)(*x), *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         Ok((self.backward)(*x, *dy))
     }
 }
@@ -80,11 +80,11 @@ struct Untransposed(ndarray::Array2<f64>);
 impl Compose for Untransposed {}
 impl Map<Array1<f64>> for Untransposed {
     type Output = Array1<f64>;
-    type Residual = ();
-    fn forward_keep(&self, x: &Array1<f64>) -> Result<(Array1<f64>, ())> {
+    type Memo = ();
+    fn forward_memo(&self, x: &Array1<f64>) -> Result<(Array1<f64>, ())> {
         Ok((self.0.dot(x), ()))
     }
-    fn backward_from(&self, _: &(), dy: &Array1<f64>) -> Result<Array1<f64>> {
+    fn backward_memo(&self, _: &(), dy: &Array1<f64>) -> Result<Array1<f64>> {
         Ok(self.0.dot(dy)) // should be self.0.t().dot(dy)
     }
 }
@@ -108,11 +108,11 @@ struct DroppedInput;
 impl Compose for DroppedInput {}
 impl Map<(f64, f64)> for DroppedInput {
     type Output = f64;
-    type Residual = (f64, f64);
-    fn forward_keep(&self, x: &(f64, f64)) -> Result<(f64, (f64, f64))> {
+    type Memo = (f64, f64);
+    fn forward_memo(&self, x: &(f64, f64)) -> Result<(f64, (f64, f64))> {
         Ok((x.0 * x.1, *x))
     }
-    fn backward_from(&self, x: &(f64, f64), dy: &f64) -> Result<(f64, f64)> {
+    fn backward_memo(&self, x: &(f64, f64), dy: &f64) -> Result<(f64, f64)> {
         Ok((x.1 * dy, 0.0)) // should be (x.1 dy, x.0 dy)
     }
 }
@@ -173,11 +173,11 @@ struct SwappedPair;
 impl Compose for SwappedPair {}
 impl Map<f64> for SwappedPair {
     type Output = (f64, f64);
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<((f64, f64), f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<((f64, f64), f64)> {
         Ok(((x.sin(), x.cos()), *x))
     }
-    fn backward_from(&self, x: &f64, dy: &(f64, f64)) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &(f64, f64)) -> Result<f64> {
         Ok(x.cos() * dy.1 - x.sin() * dy.0) // should be cos x dy.0 - sin x dy.1
     }
 }
@@ -202,11 +202,11 @@ struct Cube;
 impl Compose for Cube {}
 impl Map<f64> for Cube {
     type Output = f64;
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         Ok((x * x * x, *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         Ok(3.0 * x * x * dy)
     }
 }
@@ -216,22 +216,25 @@ struct CubeRev;
 impl Compose for CubeRev {}
 impl Map<(f64, f64)> for CubeRev {
     type Output = f64;
-    type Residual = (f64, f64);
-    fn forward_keep(&self, p: &(f64, f64)) -> Result<(f64, (f64, f64))> {
+    type Memo = (f64, f64);
+    fn forward_memo(&self, p: &(f64, f64)) -> Result<(f64, (f64, f64))> {
         Ok((3.0 * p.0 * p.0 * p.1, *p))
     }
-    fn backward_from(&self, p: &(f64, f64), u: &f64) -> Result<(f64, f64)> {
+    fn backward_memo(&self, p: &(f64, f64), u: &f64) -> Result<(f64, f64)> {
         Ok((3.0 * p.0 * p.1 * u, 3.0 * p.0 * p.0 * u)) // first slot should be 6 x dy u
     }
 }
 
 /// The correct reverse map of the cube, from the catalogue.
-fn cube_rev() -> Then<Pair<Then<Fst, Powi<f64>>, Snd>, Mul> {
-    fst().then(Powi::scaled(3.0, 2)).pair(snd()).then(Mul)
+fn cube_rev() -> Then<Pair<Then<Fst, Powi<f64>>, Snd>, MulPair> {
+    fst()
+        .then(Powi::with_coefficient(3.0, 2))
+        .pair(snd())
+        .then(MulPair)
 }
 
 impl Reverse<(f64, f64)> for CubeRev {
-    type Rev = <Then<Pair<Then<Fst, Powi<f64>>, Snd>, Mul> as Reverse<(f64, f64)>>::Rev;
+    type Rev = <Then<Pair<Then<Fst, Powi<f64>>, Snd>, MulPair> as Reverse<(f64, f64)>>::Rev;
     fn rev(&self) -> Self::Rev {
         Reverse::<(f64, f64)>::rev(&cube_rev())
     }
@@ -263,11 +266,11 @@ struct FusedRampSquare;
 impl Compose for FusedRampSquare {}
 impl Map<f64> for FusedRampSquare {
     type Output = f64;
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         Ok((x.max(0.0).powi(2), *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         // The x <= 0 branch should be 0: it took the slope of |x|^2 instead.
         Ok(if *x > 0.0 {
             2.0 * x * dy
@@ -308,12 +311,12 @@ struct SlightlyWrongTanh;
 impl Compose for SlightlyWrongTanh {}
 impl Map<Array1<f64>> for SlightlyWrongTanh {
     type Output = Array1<f64>;
-    type Residual = Array1<f64>;
-    fn forward_keep(&self, x: &Array1<f64>) -> Result<(Array1<f64>, Array1<f64>)> {
+    type Memo = Array1<f64>;
+    fn forward_memo(&self, x: &Array1<f64>) -> Result<(Array1<f64>, Array1<f64>)> {
         let y = x.mapv(f64::tanh);
         Ok((y.clone(), y))
     }
-    fn backward_from(&self, y: &Array1<f64>, dy: &Array1<f64>) -> Result<Array1<f64>> {
+    fn backward_memo(&self, y: &Array1<f64>, dy: &Array1<f64>) -> Result<Array1<f64>> {
         Ok(y.mapv(|t| (1.0 - t * t) * (1.0 + 1e-4)) * dy)
     }
 }
@@ -364,11 +367,11 @@ struct WrongShape;
 impl Compose for WrongShape {}
 impl Map<Array1<f64>> for WrongShape {
     type Output = f64;
-    type Residual = usize;
-    fn forward_keep(&self, x: &Array1<f64>) -> Result<(f64, usize)> {
+    type Memo = usize;
+    fn forward_memo(&self, x: &Array1<f64>) -> Result<(f64, usize)> {
         Ok((x.sum(), x.len()))
     }
-    fn backward_from(&self, n: &usize, dy: &f64) -> Result<Array1<f64>> {
+    fn backward_memo(&self, n: &usize, dy: &f64) -> Result<Array1<f64>> {
         Ok(Array1::from_elem(n + 1, *dy))
     }
 }
@@ -412,11 +415,11 @@ struct SquaredChange;
 impl Compose for SquaredChange {}
 impl Map<f64> for SquaredChange {
     type Output = f64;
-    type Residual = f64;
-    fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
         Ok((x * x, *x))
     }
-    fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+    fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
         Ok(2.0 * x * dy * dy)
     }
 }

@@ -60,20 +60,20 @@ proptest! {
     fn neg(x in -5.0..5.0f64, seed in any::<u64>()) { check_orders("neg", &Neg, &x, seed); }
     #[test]
     fn sub(a in -5.0..5.0f64, b in -5.0..5.0f64, seed in any::<u64>()) {
-        check_orders("sub", &Sub, &(a, b), seed);
+        check_orders("sub", &SubPair, &(a, b), seed);
     }
     #[test]
     fn mul(a in -5.0..5.0f64, b in -5.0..5.0f64, seed in any::<u64>()) {
-        check_orders("mul", &Mul, &(a, b), seed);
+        check_orders("mul", &MulPair, &(a, b), seed);
     }
     #[test]
     fn div(a in -5.0..5.0f64, b in away_from_zero(), seed in any::<u64>()) {
-        check_orders("div", &Div, &(a, b), seed);
+        check_orders("div", &DivPair, &(a, b), seed);
     }
     #[test]
     fn elementwise_on_arrays(x in vector(4, -2.0, 2.0), seed in any::<u64>()) {
         check_orders("tanh on arrays", &Tanh, &x, seed);
-        check_orders("mul on arrays", &Mul, &(x.clone(), x.mapv(f64::cos)), seed);
+        check_orders("mul on arrays", &MulPair, &(x.clone(), x.mapv(f64::cos)), seed);
     }
     #[test]
     fn matvec(w in matrix(3, 2), x in vector(2, -2.0, 2.0), xt in vector(3, -2.0, 2.0), seed in any::<u64>()) {
@@ -101,8 +101,8 @@ proptest! {
     }
     #[test]
     fn reductions(x in vector(5, -2.0, 2.0), y in vector(5, -2.0, 2.0), s in -2.0..2.0f64, seed in any::<u64>()) {
-        check_orders("sum", &Total::sum(), &x, seed);
-        check_orders("mean", &Total::mean(), &x, seed);
+        check_orders("sum", &ElementReduction::sum(), &x, seed);
+        check_orders("mean", &ElementReduction::mean(), &x, seed);
         check_orders("fill", &FillLike::mean(), &(x.clone(), s), seed);
         check_orders("dot", &dot(), &(x.clone(), y), seed);
         check_orders("squared norm", &squared_norm(), &x, seed);
@@ -164,7 +164,7 @@ fn shape_errors_name_both_shapes() {
         err.to_string().contains("(4,)") && err.to_string().contains("(3,)"),
         "{err}"
     );
-    let err = Mul
+    let err = MulPair
         .forward(&(Array1::<f64>::zeros(2), Array1::zeros(3)))
         .unwrap_err();
     assert_eq!(
@@ -176,7 +176,7 @@ fn shape_errors_name_both_shapes() {
         .unwrap_err();
     assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
     assert!(matches!(
-        Total::mean().forward(&Array1::<f64>::zeros(0)),
+        ElementReduction::mean().forward(&Array1::<f64>::zeros(0)),
         Err(Error::Empty { .. })
     ));
     assert!(matches!(

@@ -1,15 +1,15 @@
 //! The combinators that build maps from maps: sequential composition,
 //! pairing, product, sum, scaling and transpose.
 
-use crate::combinators::{Add, Fst, Snd};
+use crate::combinators::{AddPair, Fst, Snd};
 use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
-use crate::space::{Scale, Space};
+use crate::space::{Scalable, Space};
 
 /// Sequential composition in diagrammatic order: first `f`, then `g`.
 ///
 /// Created by [`Compose::then`]. The backward pass is the chain rule,
-/// `R[f ; g](x, dz) = R[f](x, R[g](f(x), dz))`, run on the residuals kept by
+/// `R[f ; g](x, dz) = R[f](x, R[g](f(x), dz))`, run on the memos kept by
 /// the forward pass, so nothing is evaluated twice.
 ///
 /// ```
@@ -67,22 +67,22 @@ impl<F, G> Pair<F, G> {
 ///
 /// ```
 /// use revdiff::{Compose, Exp, Map, Sin};
-/// let f = Sin.cross(Exp);
+/// let f = Sin.alongside(Exp);
 /// let (da, dc) = f.backward(&(0.0_f64, 0.0_f64), &(2.0, 3.0)).unwrap();
 /// assert_eq!((da, dc), (2.0, 3.0));
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Cross<F, G> {
+pub struct Alongside<F, G> {
     /// Acts on the first component.
     pub left: F,
     /// Acts on the second component.
     pub right: G,
 }
 
-impl<F, G> Cross<F, G> {
+impl<F, G> Alongside<F, G> {
     /// `f x g`.
     pub fn new(left: F, right: G) -> Self {
-        Cross { left, right }
+        Alongside { left, right }
     }
 }
 
@@ -97,17 +97,17 @@ impl<F, G> Cross<F, G> {
 /// assert!((f.forward(&x).unwrap() - (x.sin() + x.cos())).abs() < 1e-15);
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Sum<F, G> {
+pub struct Plus<F, G> {
     /// The first summand.
     pub left: F,
     /// The second summand.
     pub right: G,
 }
 
-impl<F, G> Sum<F, G> {
+impl<F, G> Plus<F, G> {
     /// `f + g`.
     pub fn new(left: F, right: G) -> Self {
-        Sum { left, right }
+        Plus { left, right }
     }
 }
 
@@ -156,29 +156,29 @@ impl<F, R, A> Transpose<F, R, A> {
 
 impl<F, G> Compose for Then<F, G> {}
 impl<F, G> Compose for Pair<F, G> {}
-impl<F, G> Compose for Cross<F, G> {}
-impl<F, G> Compose for Sum<F, G> {}
+impl<F, G> Compose for Alongside<F, G> {}
+impl<F, G> Compose for Plus<F, G> {}
 impl<F, S> Compose for Scaled<F, S> {}
 impl<F, R, A> Compose for Transpose<F, R, A> {}
 
 impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
     type Output = G::Output;
-    /// Boxed, so that the residual of a deeply nested composite (a reverse
+    /// Boxed, so that the memo of a deeply nested composite (a reverse
     /// derivative of order three is thousands of maps) lives on the heap,
     /// not in ever larger stack frames.
-    type Residual = Box<(F::Residual, G::Residual)>;
+    type Memo = Box<(F::Memo, G::Memo)>;
     fn forward(&self, x: &A) -> Result<G::Output> {
         self.second.forward(&self.first.forward(x)?)
     }
-    fn forward_keep(&self, x: &A) -> Result<(G::Output, Self::Residual)> {
-        let (y, rf) = self.first.forward_keep(x)?;
-        let (z, rg) = self.second.forward_keep(&y)?;
+    fn forward_memo(&self, x: &A) -> Result<(G::Output, Self::Memo)> {
+        let (y, rf) = self.first.forward_memo(x)?;
+        let (z, rg) = self.second.forward_memo(&y)?;
         Ok((z, Box::new((rf, rg))))
     }
-    fn backward_from(&self, residual: &Self::Residual, dz: &G::Output) -> Result<A> {
-        let (rf, rg) = residual.as_ref();
-        let dy = self.second.backward_from(rg, dz)?;
-        self.first.backward_from(rf, &dy)
+    fn backward_memo(&self, memo: &Self::Memo, dz: &G::Output) -> Result<A> {
+        let (rf, rg) = memo.as_ref();
+        let dy = self.second.backward_memo(rg, dz)?;
+        self.first.backward_memo(rf, &dy)
     }
 }
 
@@ -199,62 +199,62 @@ impl<A: Space, F: Reverse<A>, G: Reverse<F::Output>> Reverse<A> for Then<F, G> {
 
 impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
     type Output = (F::Output, G::Output);
-    type Residual = (F::Residual, G::Residual);
+    type Memo = (F::Memo, G::Memo);
     fn forward(&self, x: &A) -> Result<Self::Output> {
         Ok((self.left.forward(x)?, self.right.forward(x)?))
     }
-    fn forward_keep(&self, x: &A) -> Result<(Self::Output, Self::Residual)> {
-        let (y, rf) = self.left.forward_keep(x)?;
-        let (z, rg) = self.right.forward_keep(x)?;
+    fn forward_memo(&self, x: &A) -> Result<(Self::Output, Self::Memo)> {
+        let (y, rf) = self.left.forward_memo(x)?;
+        let (z, rg) = self.right.forward_memo(x)?;
         Ok(((y, z), (rf, rg)))
     }
-    fn backward_from(&self, (rf, rg): &Self::Residual, (dy, dz): &Self::Output) -> Result<A> {
-        let mut dx = self.left.backward_from(rf, dy)?;
-        dx.try_add_assign(&self.right.backward_from(rg, dz)?)?;
+    fn backward_memo(&self, (rf, rg): &Self::Memo, (dy, dz): &Self::Output) -> Result<A> {
+        let mut dx = self.left.backward_memo(rf, dy)?;
+        dx.try_add_assign(&self.right.backward_memo(rg, dz)?)?;
         Ok(dx)
     }
 }
 
 /// `R[<f, g>] = <<fst, snd ; fst> ; R[f], <fst, snd ; snd> ; R[g]> ; add`.
 pub type PairRev<FR, GR> =
-    Then<Pair<Then<Pair<Fst, Then<Snd, Fst>>, FR>, Then<Pair<Fst, Then<Snd, Snd>>, GR>>, Add>;
+    Then<Pair<Then<Pair<Fst, Then<Snd, Fst>>, FR>, Then<Pair<Fst, Then<Snd, Snd>>, GR>>, AddPair>;
 
 impl<A: Space, F: Reverse<A>, G: Reverse<A>> Reverse<A> for Pair<F, G> {
     type Rev = PairRev<F::Rev, G::Rev>;
     fn rev(&self) -> Self::Rev {
         let left = Fst.pair(Snd.then(Fst)).then(self.left.rev());
         let right = Fst.pair(Snd.then(Snd)).then(self.right.rev());
-        left.pair(right).then(Add)
+        left.pair(right).then(AddPair)
     }
 }
 
-impl<A: Space, C: Space, F: Map<A>, G: Map<C>> Map<(A, C)> for Cross<F, G> {
+impl<A: Space, C: Space, F: Map<A>, G: Map<C>> Map<(A, C)> for Alongside<F, G> {
     type Output = (F::Output, G::Output);
-    type Residual = (F::Residual, G::Residual);
+    type Memo = (F::Memo, G::Memo);
     fn forward(&self, (a, c): &(A, C)) -> Result<Self::Output> {
         Ok((self.left.forward(a)?, self.right.forward(c)?))
     }
-    fn forward_keep(&self, (a, c): &(A, C)) -> Result<(Self::Output, Self::Residual)> {
-        let (b, rf) = self.left.forward_keep(a)?;
-        let (d, rg) = self.right.forward_keep(c)?;
+    fn forward_memo(&self, (a, c): &(A, C)) -> Result<(Self::Output, Self::Memo)> {
+        let (b, rf) = self.left.forward_memo(a)?;
+        let (d, rg) = self.right.forward_memo(c)?;
         Ok(((b, d), (rf, rg)))
     }
-    fn backward_from(&self, (rf, rg): &Self::Residual, (db, dd): &Self::Output) -> Result<(A, C)> {
+    fn backward_memo(&self, (rf, rg): &Self::Memo, (db, dd): &Self::Output) -> Result<(A, C)> {
         Ok((
-            self.left.backward_from(rf, db)?,
-            self.right.backward_from(rg, dd)?,
+            self.left.backward_memo(rf, db)?,
+            self.right.backward_memo(rg, dd)?,
         ))
     }
 }
 
 /// `R[f x g] = <<fst ; fst, snd ; fst> ; R[f], <fst ; snd, snd ; snd> ; R[g]>`.
-pub type CrossRev<FR, GR> = Pair<
+pub type AlongsideRev<FR, GR> = Pair<
     Then<Pair<Then<Fst, Fst>, Then<Snd, Fst>>, FR>,
     Then<Pair<Then<Fst, Snd>, Then<Snd, Snd>>, GR>,
 >;
 
-impl<A: Space, C: Space, F: Reverse<A>, G: Reverse<C>> Reverse<(A, C)> for Cross<F, G> {
-    type Rev = CrossRev<F::Rev, G::Rev>;
+impl<A: Space, C: Space, F: Reverse<A>, G: Reverse<C>> Reverse<(A, C)> for Alongside<F, G> {
+    type Rev = AlongsideRev<F::Rev, G::Rev>;
     fn rev(&self) -> Self::Rev {
         let left = Fst.then(Fst).pair(Snd.then(Fst)).then(self.left.rev());
         let right = Fst.then(Snd).pair(Snd.then(Snd)).then(self.right.rev());
@@ -262,55 +262,55 @@ impl<A: Space, C: Space, F: Reverse<A>, G: Reverse<C>> Reverse<(A, C)> for Cross
     }
 }
 
-impl<A: Space, F: Map<A>, G: Map<A, Output = F::Output>> Map<A> for Sum<F, G> {
+impl<A: Space, F: Map<A>, G: Map<A, Output = F::Output>> Map<A> for Plus<F, G> {
     type Output = F::Output;
-    type Residual = (F::Residual, G::Residual);
+    type Memo = (F::Memo, G::Memo);
     fn forward(&self, x: &A) -> Result<F::Output> {
         let mut y = self.left.forward(x)?;
         y.try_add_assign(&self.right.forward(x)?)?;
         Ok(y)
     }
-    fn forward_keep(&self, x: &A) -> Result<(F::Output, Self::Residual)> {
-        let (mut y, rf) = self.left.forward_keep(x)?;
-        let (z, rg) = self.right.forward_keep(x)?;
+    fn forward_memo(&self, x: &A) -> Result<(F::Output, Self::Memo)> {
+        let (mut y, rf) = self.left.forward_memo(x)?;
+        let (z, rg) = self.right.forward_memo(x)?;
         y.try_add_assign(&z)?;
         Ok((y, (rf, rg)))
     }
-    fn backward_from(&self, (rf, rg): &Self::Residual, dy: &F::Output) -> Result<A> {
-        let mut dx = self.left.backward_from(rf, dy)?;
-        dx.try_add_assign(&self.right.backward_from(rg, dy)?)?;
+    fn backward_memo(&self, (rf, rg): &Self::Memo, dy: &F::Output) -> Result<A> {
+        let mut dx = self.left.backward_memo(rf, dy)?;
+        dx.try_add_assign(&self.right.backward_memo(rg, dy)?)?;
         Ok(dx)
     }
 }
 
-impl<A: Space, F: Reverse<A>, G: Reverse<A, Output = F::Output>> Reverse<A> for Sum<F, G> {
-    type Rev = Sum<F::Rev, G::Rev>;
+impl<A: Space, F: Reverse<A>, G: Reverse<A, Output = F::Output>> Reverse<A> for Plus<F, G> {
+    type Rev = Plus<F::Rev, G::Rev>;
     fn rev(&self) -> Self::Rev {
-        Sum::new(self.left.rev(), self.right.rev())
+        Plus::new(self.left.rev(), self.right.rev())
     }
 }
 
 impl<A: Space, S: Copy, F: Map<A>> Map<A> for Scaled<F, S>
 where
-    F::Output: Scale<S>,
+    F::Output: Scalable<S>,
 {
     type Output = F::Output;
-    type Residual = F::Residual;
+    type Memo = F::Memo;
     fn forward(&self, x: &A) -> Result<F::Output> {
         Ok(self.map.forward(x)?.scale(self.factor))
     }
-    fn forward_keep(&self, x: &A) -> Result<(F::Output, F::Residual)> {
-        let (y, r) = self.map.forward_keep(x)?;
+    fn forward_memo(&self, x: &A) -> Result<(F::Output, F::Memo)> {
+        let (y, r) = self.map.forward_memo(x)?;
         Ok((y.scale(self.factor), r))
     }
-    fn backward_from(&self, r: &F::Residual, dy: &F::Output) -> Result<A> {
-        self.map.backward_from(r, &dy.scale(self.factor))
+    fn backward_memo(&self, r: &F::Memo, dy: &F::Output) -> Result<A> {
+        self.map.backward_memo(r, &dy.scale(self.factor))
     }
 }
 
-impl<A: Scale<S>, S: Copy, F: Reverse<A>> Reverse<A> for Scaled<F, S>
+impl<A: Scalable<S>, S: Copy, F: Reverse<A>> Reverse<A> for Scaled<F, S>
 where
-    F::Output: Scale<S>,
+    F::Output: Scalable<S>,
     F::Rev: Clone,
 {
     // R[s f](x, dy) = R[f](x, s dy) = s R[f](x, dy), the latter being a map.
@@ -325,11 +325,11 @@ where
     R: Reverse<(A, B), Output = A>,
 {
     type Output = A;
-    type Residual = ();
-    fn forward_keep(&self, dy: &B) -> Result<(A, ())> {
+    type Memo = ();
+    fn forward_memo(&self, dy: &B) -> Result<(A, ())> {
         Ok((self.rev.forward(&(self.at.clone(), dy.clone()))?, ()))
     }
-    fn backward_from(&self, _: &(), dx: &A) -> Result<B> {
+    fn backward_memo(&self, _: &(), dx: &A) -> Result<B> {
         self.map.forward(dx)
     }
 }
@@ -351,6 +351,6 @@ impl<A: Space, B: Space, F: Linear<A, Output = B, Rev = R>, R> Linear<B> for Tra
 
 impl<A: Space, F: Linear<A>, G: Linear<F::Output>> Linear<A> for Then<F, G> {}
 impl<A: Space, F: Linear<A>, G: Linear<A>> Linear<A> for Pair<F, G> {}
-impl<A: Space, C: Space, F: Linear<A>, G: Linear<C>> Linear<(A, C)> for Cross<F, G> {}
-impl<A: Space, F: Linear<A>, G: Linear<A, Output = F::Output>> Linear<A> for Sum<F, G> {}
-impl<A: Scale<S>, S: Copy, F: Linear<A>> Linear<A> for Scaled<F, S> where F::Output: Scale<S> {}
+impl<A: Space, C: Space, F: Linear<A>, G: Linear<C>> Linear<(A, C)> for Alongside<F, G> {}
+impl<A: Space, F: Linear<A>, G: Linear<A, Output = F::Output>> Linear<A> for Plus<F, G> {}
+impl<A: Scalable<S>, S: Copy, F: Linear<A>> Linear<A> for Scaled<F, S> where F::Output: Scalable<S> {}

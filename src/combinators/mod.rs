@@ -5,10 +5,12 @@
 //! (chain rule for [`Then`], sum for [`Pair`], and so on).
 
 mod compose;
+mod reversed_through;
 mod structural;
 
-pub use compose::{Cross, CrossRev, Pair, PairRev, Scaled, Sum, Then, ThenRev, Transpose};
+pub use compose::{Alongside, AlongsideRev, Pair, PairRev, Plus, Scaled, Then, ThenRev, Transpose};
+pub use reversed_through::ReversedThrough;
 pub use structural::{
-    Add, Constant, Discard, Duplicate, Fst, Id, Scaling, Snd, ZeroMap, add, constant, discard,
-    duplicate, fst, id, scaling, snd, zero_map,
+    AddPair, Constant, Discard, Duplicate, Fst, Id, MultiplyBy, Snd, ZeroMap, add_pair, constant,
+    discard, duplicate, fst, id, multiply_by, snd, zero_map,
 };

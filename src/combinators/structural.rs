@@ -5,7 +5,7 @@
 use crate::combinators::{Pair, Then};
 use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
-use crate::space::{Scale, Space};
+use crate::space::{Scalable, Space};
 
 macro_rules! compose_for {
     ($($t:ident),*) => {$( impl Compose for $t {} )*};
@@ -74,16 +74,16 @@ pub fn duplicate() -> Duplicate {
 /// [`add`]; its backward copies the change to both slots.
 ///
 /// ```
-/// use revdiff::{add, Map};
-/// assert_eq!(add().forward(&(1.0, 2.0)).unwrap(), 3.0);
-/// assert_eq!(add().backward(&(1.0, 2.0), &4.0).unwrap(), (4.0, 4.0));
+/// use revdiff::{add_pair, Map};
+/// assert_eq!(add_pair().forward(&(1.0, 2.0)).unwrap(), 3.0);
+/// assert_eq!(add_pair().backward(&(1.0, 2.0), &4.0).unwrap(), (4.0, 4.0));
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Add;
+pub struct AddPair;
 
 /// The addition of a space.
-pub fn add() -> Add {
-    Add
+pub fn add_pair() -> AddPair {
+    AddPair
 }
 
 /// The map to the terminal space, `x -> ()`. Created by [`discard`].
@@ -132,34 +132,34 @@ pub fn constant<B>(c: B) -> Constant<B> {
     Constant(c)
 }
 
-/// Scaling by a fixed scalar, `x -> s x`. Created by [`scaling`].
+/// Multiplication by a fixed scalar, `x -> s x`. Created by [`multiply_by`].
 ///
 /// ```
-/// use revdiff::{scaling, Map};
-/// assert_eq!(scaling(3.0).backward(&1.0, &2.0).unwrap(), 6.0);
+/// use revdiff::{multiply_by, Map};
+/// assert_eq!(multiply_by(3.0).backward(&1.0, &2.0).unwrap(), 6.0);
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Scaling<S>(pub S);
+pub struct MultiplyBy<S>(pub S);
 
-/// Scaling by `s`.
-pub fn scaling<S>(s: S) -> Scaling<S> {
-    Scaling(s)
+/// MultiplyBy by `s`.
+pub fn multiply_by<S>(s: S) -> MultiplyBy<S> {
+    MultiplyBy(s)
 }
 
-compose_for!(Id, Fst, Snd, Duplicate, Add, Discard, ZeroMap);
+compose_for!(Id, Fst, Snd, Duplicate, AddPair, Discard, ZeroMap);
 impl<B> Compose for Constant<B> {}
-impl<S> Compose for Scaling<S> {}
+impl<S> Compose for MultiplyBy<S> {}
 
 impl<A: Space> Map<A> for Id {
     type Output = A;
-    type Residual = ();
+    type Memo = ();
     fn forward(&self, x: &A) -> Result<A> {
         Ok(x.clone())
     }
-    fn forward_keep(&self, x: &A) -> Result<(A, ())> {
+    fn forward_memo(&self, x: &A) -> Result<(A, ())> {
         Ok((x.clone(), ()))
     }
-    fn backward_from(&self, _: &(), dy: &A) -> Result<A> {
+    fn backward_memo(&self, _: &(), dy: &A) -> Result<A> {
         Ok(dy.clone())
     }
 }
@@ -173,14 +173,14 @@ impl<A: Space> Reverse<A> for Id {
 
 impl<A: Space, B: Space> Map<(A, B)> for Fst {
     type Output = A;
-    type Residual = B::Shape;
+    type Memo = B::Shape;
     fn forward(&self, x: &(A, B)) -> Result<A> {
         Ok(x.0.clone())
     }
-    fn forward_keep(&self, x: &(A, B)) -> Result<(A, B::Shape)> {
+    fn forward_memo(&self, x: &(A, B)) -> Result<(A, B::Shape)> {
         Ok((x.0.clone(), x.1.shape()))
     }
-    fn backward_from(&self, shape_b: &B::Shape, da: &A) -> Result<(A, B)> {
+    fn backward_memo(&self, shape_b: &B::Shape, da: &A) -> Result<(A, B)> {
         Ok((da.clone(), B::zero_of(shape_b)))
     }
 }
@@ -195,14 +195,14 @@ impl<A: Space, B: Space> Reverse<(A, B)> for Fst {
 
 impl<A: Space, B: Space> Map<(A, B)> for Snd {
     type Output = B;
-    type Residual = A::Shape;
+    type Memo = A::Shape;
     fn forward(&self, x: &(A, B)) -> Result<B> {
         Ok(x.1.clone())
     }
-    fn forward_keep(&self, x: &(A, B)) -> Result<(B, A::Shape)> {
+    fn forward_memo(&self, x: &(A, B)) -> Result<(B, A::Shape)> {
         Ok((x.1.clone(), x.0.shape()))
     }
-    fn backward_from(&self, shape_a: &A::Shape, db: &B) -> Result<(A, B)> {
+    fn backward_memo(&self, shape_a: &A::Shape, db: &B) -> Result<(A, B)> {
         Ok((A::zero_of(shape_a), db.clone()))
     }
 }
@@ -217,34 +217,34 @@ impl<A: Space, B: Space> Reverse<(A, B)> for Snd {
 
 impl<A: Space> Map<A> for Duplicate {
     type Output = (A, A);
-    type Residual = ();
-    fn forward_keep(&self, x: &A) -> Result<((A, A), ())> {
+    type Memo = ();
+    fn forward_memo(&self, x: &A) -> Result<((A, A), ())> {
         Ok(((x.clone(), x.clone()), ()))
     }
-    fn backward_from(&self, _: &(), dy: &(A, A)) -> Result<A> {
+    fn backward_memo(&self, _: &(), dy: &(A, A)) -> Result<A> {
         dy.0.try_add(&dy.1)
     }
 }
 
 impl<A: Space> Reverse<A> for Duplicate {
-    type Rev = Then<Snd, Add>;
+    type Rev = Then<Snd, AddPair>;
     fn rev(&self) -> Self::Rev {
-        Snd.then(Add)
+        Snd.then(AddPair)
     }
 }
 
-impl<A: Space> Map<(A, A)> for Add {
+impl<A: Space> Map<(A, A)> for AddPair {
     type Output = A;
-    type Residual = ();
-    fn forward_keep(&self, x: &(A, A)) -> Result<(A, ())> {
+    type Memo = ();
+    fn forward_memo(&self, x: &(A, A)) -> Result<(A, ())> {
         Ok((x.0.try_add(&x.1)?, ()))
     }
-    fn backward_from(&self, _: &(), dy: &A) -> Result<(A, A)> {
+    fn backward_memo(&self, _: &(), dy: &A) -> Result<(A, A)> {
         Ok((dy.clone(), dy.clone()))
     }
 }
 
-impl<A: Space> Reverse<(A, A)> for Add {
+impl<A: Space> Reverse<(A, A)> for AddPair {
     type Rev = Then<Snd, Duplicate>;
     fn rev(&self) -> Self::Rev {
         Snd.then(Duplicate)
@@ -253,14 +253,14 @@ impl<A: Space> Reverse<(A, A)> for Add {
 
 impl<A: Space> Map<A> for Discard {
     type Output = ();
-    type Residual = A::Shape;
+    type Memo = A::Shape;
     fn forward(&self, _: &A) -> Result<()> {
         Ok(())
     }
-    fn forward_keep(&self, x: &A) -> Result<((), A::Shape)> {
+    fn forward_memo(&self, x: &A) -> Result<((), A::Shape)> {
         Ok(((), x.shape()))
     }
-    fn backward_from(&self, shape: &A::Shape, _: &()) -> Result<A> {
+    fn backward_memo(&self, shape: &A::Shape, _: &()) -> Result<A> {
         Ok(A::zero_of(shape))
     }
 }
@@ -274,14 +274,14 @@ impl<A: Space> Reverse<A> for Discard {
 
 impl<A: Space> Map<A> for ZeroMap {
     type Output = A;
-    type Residual = A::Shape;
+    type Memo = A::Shape;
     fn forward(&self, x: &A) -> Result<A> {
         Ok(x.zero_like())
     }
-    fn forward_keep(&self, x: &A) -> Result<(A, A::Shape)> {
+    fn forward_memo(&self, x: &A) -> Result<(A, A::Shape)> {
         Ok((x.zero_like(), x.shape()))
     }
-    fn backward_from(&self, shape: &A::Shape, _: &A) -> Result<A> {
+    fn backward_memo(&self, shape: &A::Shape, _: &A) -> Result<A> {
         Ok(A::zero_of(shape))
     }
 }
@@ -295,14 +295,14 @@ impl<A: Space> Reverse<A> for ZeroMap {
 
 impl<A: Space, B: Space> Map<A> for Constant<B> {
     type Output = B;
-    type Residual = A::Shape;
+    type Memo = A::Shape;
     fn forward(&self, _: &A) -> Result<B> {
         Ok(self.0.clone())
     }
-    fn forward_keep(&self, x: &A) -> Result<(B, A::Shape)> {
+    fn forward_memo(&self, x: &A) -> Result<(B, A::Shape)> {
         Ok((self.0.clone(), x.shape()))
     }
-    fn backward_from(&self, shape: &A::Shape, _: &B) -> Result<A> {
+    fn backward_memo(&self, shape: &A::Shape, _: &B) -> Result<A> {
         Ok(A::zero_of(shape))
     }
 }
@@ -314,19 +314,19 @@ impl<A: Space, B: Space> Reverse<A> for Constant<B> {
     }
 }
 
-impl<S: Copy, A: Scale<S>> Map<A> for Scaling<S> {
+impl<S: Copy, A: Scalable<S>> Map<A> for MultiplyBy<S> {
     type Output = A;
-    type Residual = ();
-    fn forward_keep(&self, x: &A) -> Result<(A, ())> {
+    type Memo = ();
+    fn forward_memo(&self, x: &A) -> Result<(A, ())> {
         Ok((x.scale(self.0), ()))
     }
-    fn backward_from(&self, _: &(), dy: &A) -> Result<A> {
+    fn backward_memo(&self, _: &(), dy: &A) -> Result<A> {
         Ok(dy.scale(self.0))
     }
 }
 
-impl<S: Copy, A: Scale<S>> Reverse<A> for Scaling<S> {
-    type Rev = Then<Snd, Scaling<S>>;
+impl<S: Copy, A: Scalable<S>> Reverse<A> for MultiplyBy<S> {
+    type Rev = Then<Snd, MultiplyBy<S>>;
     fn rev(&self) -> Self::Rev {
         Snd.then(*self)
     }
@@ -336,7 +336,7 @@ impl<A: Space> Linear<A> for Id {}
 impl<A: Space, B: Space> Linear<(A, B)> for Fst {}
 impl<A: Space, B: Space> Linear<(A, B)> for Snd {}
 impl<A: Space> Linear<A> for Duplicate {}
-impl<A: Space> Linear<(A, A)> for Add {}
+impl<A: Space> Linear<(A, A)> for AddPair {}
 impl<A: Space> Linear<A> for Discard {}
 impl<A: Space> Linear<A> for ZeroMap {}
-impl<S: Copy, A: Scale<S>> Linear<A> for Scaling<S> {}
+impl<S: Copy, A: Scalable<S>> Linear<A> for MultiplyBy<S> {}

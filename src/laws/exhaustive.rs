@@ -3,8 +3,8 @@
 //! values, exactly.
 
 use super::case::{Case, Drawn};
-use super::judge::{Breach, ExactPairing, ExactScalar, Exactly, Outcome};
-use super::law::{Law, Slot};
+use super::judge::{Discrepancy, ExactComparison, ExactPairing, ExactScalar, Outcome};
+use super::law::{CaseValue, Law};
 use super::pairs;
 use super::report::{LawReport, Violation, short_type_name};
 use super::sampled::show_case;
@@ -45,12 +45,12 @@ impl<A, B> FiniteDomain<A, B> {
     }
 
     /// How many values each slot ranges over.
-    fn size(&self, slot: Slot) -> usize {
+    fn size(&self, slot: CaseValue) -> usize {
         match slot {
-            Slot::X => self.inputs.len(),
-            Slot::V | Slot::U => self.input_changes.len(),
-            Slot::W | Slot::W2 => self.output_changes.len(),
-            Slot::S => 1,
+            CaseValue::X => self.inputs.len(),
+            CaseValue::V | CaseValue::U => self.input_changes.len(),
+            CaseValue::W | CaseValue::W2 => self.output_changes.len(),
+            CaseValue::S => 1,
         }
     }
 }
@@ -58,19 +58,19 @@ impl<A, B> FiniteDomain<A, B> {
 impl<A: Clone, B: Clone> FiniteDomain<A, B> {
     /// The case with the given index for each slot of `slots` (0 for the
     /// slots a law does not use).
-    fn case(&self, slots: &[Slot], index: &[usize]) -> Case<A, B> {
-        let at = |slot: Slot| {
+    fn case(&self, slots: &[CaseValue], index: &[usize]) -> Case<A, B> {
+        let at = |slot: CaseValue| {
             slots
                 .iter()
                 .position(|&s| s == slot)
                 .map_or(0, |i| index[i])
         };
         Case {
-            x: self.inputs[at(Slot::X)].clone(),
-            v: self.input_changes[at(Slot::V)].clone(),
-            u: self.input_changes[at(Slot::U)].clone(),
-            w: self.output_changes[at(Slot::W)].clone(),
-            w2: self.output_changes[at(Slot::W2)].clone(),
+            x: self.inputs[at(CaseValue::X)].clone(),
+            v: self.input_changes[at(CaseValue::V)].clone(),
+            u: self.input_changes[at(CaseValue::U)].clone(),
+            w: self.output_changes[at(CaseValue::W)].clone(),
+            w2: self.output_changes[at(CaseValue::W2)].clone(),
             s: 1.0,
         }
     }
@@ -118,7 +118,7 @@ pub fn grid<T: Real>(values: &[T], len: usize) -> Vec<Array1<T>> {
 ///
 /// ```
 /// use revdiff::laws::{grid, Exhaustive, FiniteDomain};
-/// use revdiff::{Compose, Mul};
+/// use revdiff::{Compose, MulPair};
 ///
 /// // (a, b) -> a b on the integer grid -2..=2.
 /// let points: Vec<(f64, f64)> = grid(&[0.0, 1.0, -1.0, 2.0, -2.0], 2)
@@ -126,19 +126,19 @@ pub fn grid<T: Real>(values: &[T], len: usize) -> Vec<Array1<T>> {
 ///     .map(|p| (p[0], p[1]))
 ///     .collect();
 /// let domain = FiniteDomain::new(points.clone(), points, vec![0.0, 1.0, -1.0, 2.0]).unwrap();
-/// let report = Exhaustive::<f64>::new().reverse(&Mul, &domain);
+/// let report = Exhaustive::<f64>::new().reverse(&MulPair, &domain);
 /// assert!(report.is_clean(), "{report}");
 /// ```
 #[derive(Clone, Copy, Debug, Default)]
 pub struct Exhaustive<K> {
-    judge: Exactly<K>,
+    judge: ExactComparison<K>,
 }
 
 impl<K: ExactScalar> Exhaustive<K> {
     /// The exhaustive checker.
     pub fn new() -> Self {
         Exhaustive {
-            judge: Exactly::new(),
+            judge: ExactComparison::new(),
         }
     }
 
@@ -334,14 +334,20 @@ impl<K: ExactScalar> Exhaustive<K> {
         report
     }
 
-    fn violation<A, B>(&self, law: Law, order: u8, breach: Breach, case: Case<A, B>) -> Violation
+    fn violation<A, B>(
+        &self,
+        law: Law,
+        order: u8,
+        breach: Discrepancy,
+        case: Case<A, B>,
+    ) -> Violation
     where
         A: ExactPairing<K> + 'static,
         B: ExactPairing<K> + 'static,
     {
-        let shown: Vec<(Slot, String)> = show_case(&self.judge, law, order, &case)
+        let shown: Vec<(CaseValue, String)> = show_case(&self.judge, law, order, &case)
             .into_iter()
-            .filter(|(slot, _)| *slot != Slot::S)
+            .filter(|(slot, _)| *slot != CaseValue::S)
             .collect();
         Violation::new(law, order, shown, breach, Drawn::Case(case))
     }
@@ -360,8 +366,8 @@ fn advance(index: &mut [usize], sizes: &[usize]) -> bool {
     false
 }
 
-fn unexpected(law: Law) -> Breach {
-    Breach::failure(format!(
+fn unexpected(law: Law) -> Discrepancy {
+    Discrepancy::failure(format!(
         "{law} needs real arithmetic; the exhaustive checker does not check it"
     ))
 }

@@ -1,5 +1,5 @@
 //! How two values that a law says are equal are compared: within a
-//! [`Tolerance`] on real spaces, or exactly ([`Exactly`]) on finite domains.
+//! [`Tolerance`] on real spaces, or exactly ([`ExactComparison`]) on finite domains.
 
 use crate::error::{Error, Result};
 use crate::space::{Euclidean, Real, Space};
@@ -11,7 +11,7 @@ use std::marker::PhantomData;
 /// far apart they may be. The checkers attach the law and the case to make
 /// a [`Violation`](crate::laws::Violation).
 #[derive(Clone, Debug, PartialEq)]
-pub struct Breach {
+pub struct Discrepancy {
     /// The side the law predicts, as `name = value`.
     pub expected: String,
     /// The side the map produced, as `name = value`.
@@ -24,11 +24,11 @@ pub struct Breach {
     pub measure: String,
 }
 
-impl Breach {
+impl Discrepancy {
     /// A breach with no numbers: the map failed, panicked or gave the wrong
     /// shape.
     pub fn failure(what: impl Into<String>) -> Self {
-        Breach {
+        Discrepancy {
             expected: String::new(),
             observed: String::new(),
             error: None,
@@ -46,21 +46,21 @@ impl Breach {
     }
 }
 
-impl From<Error> for Breach {
+impl From<Error> for Discrepancy {
     fn from(e: Error) -> Self {
-        Breach::failure(format!("the map returned an error: {e}"))
+        Discrepancy::failure(format!("the map returned an error: {e}"))
     }
 }
 
 /// The result of checking one law at one case.
-pub type Outcome = std::result::Result<(), Breach>;
+pub type Outcome = std::result::Result<(), Discrepancy>;
 
 /// A way of comparing the scalars a law produces (inner products).
 ///
 /// Implemented by [`Tolerance`] (real arithmetic, rounding allowed) and by
-/// [`Exactly`] (finite domains, no tolerance). The laws are written once
-/// against this trait and [`JudgeIn`].
-pub trait Judge {
+/// [`ExactComparison`] (finite domains, no tolerance). The laws are written once
+/// against this trait and [`ComparisonIn`].
+pub trait Comparison {
     /// The value of an inner product, with whatever the comparison needs to
     /// know about it.
     type Scalar: Clone + Debug;
@@ -73,8 +73,8 @@ pub trait Judge {
     ) -> Outcome;
 }
 
-/// A [`Judge`] that can compare values of the space `S`.
-pub trait JudgeIn<S: Space>: Judge {
+/// A [`Comparison`] that can compare values of the space `S`.
+pub trait ComparisonIn<S: Space>: Comparison {
     /// The inner product `<a, b>`.
     fn inner(&self, a: &S, b: &S) -> Result<Self::Scalar>;
 
@@ -261,7 +261,7 @@ fn verdict<R: Real>(
     if error <= allowed {
         return Ok(());
     }
-    Err(Breach {
+    Err(Discrepancy {
         expected: expected(),
         observed: observed(),
         error: Some(to_f64(error)),
@@ -292,7 +292,7 @@ fn norm<R: Real>(coords: &[R]) -> R {
     coords.iter().fold(R::zero(), |acc, c| acc + *c * *c).sqrt()
 }
 
-impl<R: Real> Judge for Tolerance<R> {
+impl<R: Real> Comparison for Tolerance<R> {
     type Scalar = Term<R>;
 
     fn same_scalar(&self, expected: (&str, &Term<R>), observed: (&str, &Term<R>)) -> Outcome {
@@ -318,7 +318,7 @@ impl<R: Real> Judge for Tolerance<R> {
     }
 }
 
-impl<R: Real, S: Euclidean<R>> JudgeIn<S> for Tolerance<R> {
+impl<R: Real, S: Euclidean<R>> ComparisonIn<S> for Tolerance<R> {
     fn inner(&self, a: &S, b: &S) -> Result<Term<R>> {
         term(a, b)
     }
@@ -326,7 +326,7 @@ impl<R: Real, S: Euclidean<R>> JudgeIn<S> for Tolerance<R> {
     fn same(&self, expected: (&str, &S), observed: (&str, &S), context: &[&S]) -> Outcome {
         let (e, o) = (expected.1.coordinates(), observed.1.coordinates());
         if e.len() != o.len() || expected.1.shape_string() != observed.1.shape_string() {
-            return Err(Breach {
+            return Err(Discrepancy {
                 expected: format!("{} of shape {}", expected.0, expected.1.shape_string()),
                 observed: format!("{} of shape {}", observed.0, observed.1.shape_string()),
                 error: None,
@@ -385,19 +385,19 @@ pub(crate) fn show_coordinates<R: Real, S: Euclidean<R>>(value: &S) -> String {
 /// tolerance. `K` is the scalar that inner products take values in.
 ///
 /// ```
-/// use revdiff::laws::{Exactly, Judge};
+/// use revdiff::laws::{ExactComparison, Comparison};
 ///
-/// let judge = Exactly::<f64>::new();
+/// let judge = ExactComparison::<f64>::new();
 /// assert!(judge.same_scalar(("a", &2.0), ("b", &2.0)).is_ok());
 /// assert!(judge.same_scalar(("a", &2.0), ("b", &2.5)).is_err());
 /// ```
 #[derive(Clone, Copy, Debug, Default)]
-pub struct Exactly<K>(PhantomData<K>);
+pub struct ExactComparison<K>(PhantomData<K>);
 
-impl<K> Exactly<K> {
+impl<K> ExactComparison<K> {
     /// The exact judge.
     pub fn new() -> Self {
-        Exactly(PhantomData)
+        ExactComparison(PhantomData)
     }
 }
 
@@ -490,14 +490,14 @@ exact_tuple!(A 0, B 1);
 exact_tuple!(A 0, B 1, C 2);
 exact_tuple!(A 0, B 1, C 2, D 3);
 
-impl<K: ExactScalar> Judge for Exactly<K> {
+impl<K: ExactScalar> Comparison for ExactComparison<K> {
     type Scalar = K;
 
     fn same_scalar(&self, expected: (&str, &K), observed: (&str, &K)) -> Outcome {
         if expected.1 == observed.1 {
             Ok(())
         } else {
-            Err(Breach {
+            Err(Discrepancy {
                 expected: format!("{} = {:?}", expected.0, expected.1),
                 observed: format!("{} = {:?}", observed.0, observed.1),
                 error: None,
@@ -508,7 +508,7 @@ impl<K: ExactScalar> Judge for Exactly<K> {
     }
 }
 
-impl<K: ExactScalar, S: ExactPairing<K>> JudgeIn<S> for Exactly<K> {
+impl<K: ExactScalar, S: ExactPairing<K>> ComparisonIn<S> for ExactComparison<K> {
     fn inner(&self, a: &S, b: &S) -> Result<K> {
         a.pair_exactly(b)
     }
@@ -517,7 +517,7 @@ impl<K: ExactScalar, S: ExactPairing<K>> JudgeIn<S> for Exactly<K> {
         if expected.1 == observed.1 {
             Ok(())
         } else {
-            Err(Breach {
+            Err(Discrepancy {
                 expected: format!("{} = {}", expected.0, expected.1.show_exactly()),
                 observed: format!("{} = {}", observed.0, observed.1.show_exactly()),
                 error: None,

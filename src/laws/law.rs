@@ -55,7 +55,7 @@ pub enum Law {
 
 /// One of the drawn values of a [`Case`](crate::laws::Case).
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
-pub enum Slot {
+pub enum CaseValue {
     /// The input `x`.
     X,
     /// The input change `v`.
@@ -70,26 +70,26 @@ pub enum Slot {
     S,
 }
 
-impl Slot {
+impl CaseValue {
     /// The name used in law statements and reports.
     pub fn name(self) -> &'static str {
         match self {
-            Slot::X => "x",
-            Slot::V => "v",
-            Slot::U => "u",
-            Slot::W => "w",
-            Slot::W2 => "w2",
-            Slot::S => "s",
+            CaseValue::X => "x",
+            CaseValue::V => "v",
+            CaseValue::U => "u",
+            CaseValue::W => "w",
+            CaseValue::W2 => "w2",
+            CaseValue::S => "s",
         }
     }
 
     /// What the value is, for reports.
     pub fn role(self) -> &'static str {
         match self {
-            Slot::X => "input",
-            Slot::V | Slot::U => "input change",
-            Slot::W | Slot::W2 => "output change",
-            Slot::S => "scalar",
+            CaseValue::X => "input",
+            CaseValue::V | CaseValue::U => "input change",
+            CaseValue::W | CaseValue::W2 => "output change",
+            CaseValue::S => "scalar",
         }
     }
 }
@@ -184,8 +184,8 @@ impl Law {
 
     /// The drawn values the law quantifies over (the exhaustive checker
     /// enumerates exactly these; a report shows exactly these).
-    pub fn slots(self) -> &'static [Slot] {
-        use Slot::*;
+    pub fn slots(self) -> &'static [CaseValue] {
+        use CaseValue::*;
         match self {
             Law::Additive => &[X, W, W2],
             Law::ZeroChange => &[X, W],
@@ -204,11 +204,11 @@ impl Law {
     /// [`Case::lift`](crate::laws::Case::lift)), so it ranges over the values
     /// the lifted slots are made of; [`Law::SameMap`] at order 2 compares
     /// second reverse derivatives, which also need `u`.
-    pub fn slots_at(self, order: u8) -> Vec<Slot> {
-        use Slot::*;
-        let mut out: Vec<Slot> = Vec::new();
+    pub fn slots_at(self, order: u8) -> Vec<CaseValue> {
+        use CaseValue::*;
+        let mut out: Vec<CaseValue> = Vec::new();
         for &slot in self.slots() {
-            let made_of: &[Slot] = match (order, self, slot) {
+            let made_of: &[CaseValue] = match (order, self, slot) {
                 (1, _, _) => &[slot],
                 (_, Law::SameMap, _) => &[slot, U],
                 (_, _, X) => &[X, W],

@@ -25,11 +25,11 @@
 /// impl Compose for Cube {}
 /// impl Map<f64> for Cube {
 ///     type Output = f64;
-///     type Residual = f64;
-///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///     type Memo = f64;
+///     fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
 ///         Ok((x * x * x, *x))
 ///     }
-///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///     fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
 ///         Ok(3.0 * x * x * dy)
 ///     }
 /// }

@@ -63,11 +63,11 @@
 //! impl Compose for Ramp {}
 //! impl Map<f64> for Ramp {
 //!     type Output = f64;
-//!     type Residual = f64;
-//!     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+//!     type Memo = f64;
+//!     fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
 //!         Ok((x / (1.0 + (-x).exp()), *x))
 //!     }
-//!     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+//!     fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
 //!         let s = 1.0 / (1.0 + (-x).exp());
 //!         let sign = if self.wrong { -1.0 } else { 1.0 };
 //!         Ok((s + sign * x * s * (1.0 - s)) * dy)
@@ -98,8 +98,9 @@ pub mod strategies;
 pub use case::{Case, CaseSource, Drawn, WithOutputChanges, changes_like, with_output_changes};
 pub use exhaustive::{Exhaustive, FiniteDomain, grid};
 pub use judge::{
-    Breach, ExactPairing, ExactScalar, Exactly, Judge, JudgeIn, Outcome, Term, Tolerance,
+    Comparison, ComparisonIn, Discrepancy, ExactComparison, ExactPairing, ExactScalar, Outcome,
+    Term, Tolerance,
 };
-pub use law::{Law, Slot};
+pub use law::{CaseValue, Law};
 pub use report::{Checked, LawReport, Violation};
 pub use sampled::Checker;

@@ -1,8 +1,8 @@
 //! The laws comparing a map `h` with maps it is claimed to equal, each
-//! evaluated at one case, against any [`JudgeIn`].
+//! evaluated at one case, against any [`ComparisonIn`].
 
 use super::case::Case;
-use super::judge::{JudgeIn, Outcome};
+use super::judge::{ComparisonIn, Outcome};
 use crate::map::{Map, Reverse};
 use crate::space::Space;
 
@@ -13,13 +13,13 @@ where
     B: Space,
     M: Map<A, Output = B>,
     N: Map<A, Output = B>,
-    J: JudgeIn<A> + JudgeIn<B>,
+    J: ComparisonIn<A> + ComparisonIn<B>,
 {
-    let (ya, ka) = a.forward_keep(&c.x)?;
-    let (yb, kb) = b.forward_keep(&c.x)?;
+    let (ya, ka) = a.forward_memo(&c.x)?;
+    let (yb, kb) = b.forward_memo(&c.x)?;
     j.same(("b(x)", &yb), ("a(x)", &ya), &[])?;
-    let ba = a.backward_from(&ka, &c.w)?;
-    let bb = b.backward_from(&kb, &c.w)?;
+    let ba = a.backward_memo(&ka, &c.w)?;
+    let bb = b.backward_memo(&kb, &c.w)?;
     j.same(("R[b](x, w)", &bb), ("R[a](x, w)", &ba), &[])
 }
 
@@ -30,7 +30,7 @@ where
     B: Space,
     M: Reverse<A, Output = B>,
     N: Reverse<A, Output = B>,
-    J: JudgeIn<(A, B)>,
+    J: ComparisonIn<(A, B)>,
 {
     let at = (c.x.clone(), c.w.clone());
     let ra = a.rev().backward(&at, &c.u)?;
@@ -55,15 +55,15 @@ where
     F: Map<A>,
     G: Map<F::Output>,
     H: Map<A, Output = G::Output>,
-    J: JudgeIn<A> + JudgeIn<G::Output>,
+    J: ComparisonIn<A> + ComparisonIn<G::Output>,
 {
-    let (yf, kf) = f.forward_keep(&c.x)?;
-    let (yg, kg) = g.forward_keep(&yf)?;
-    let (yh, kh) = h.forward_keep(&c.x)?;
+    let (yf, kf) = f.forward_memo(&c.x)?;
+    let (yg, kg) = g.forward_memo(&yf)?;
+    let (yh, kh) = h.forward_memo(&c.x)?;
     j.same(("g(f(x))", &yg), ("h(x)", &yh), &[])?;
-    let through_g = g.backward_from(&kg, &c.w)?;
-    let expected = f.backward_from(&kf, &through_g)?;
-    let observed = h.backward_from(&kh, &c.w)?;
+    let through_g = g.backward_memo(&kg, &c.w)?;
+    let expected = f.backward_memo(&kf, &through_g)?;
+    let observed = h.backward_memo(&kh, &c.w)?;
     j.same(
         ("R[f](x, R[g](f(x), w))", &expected),
         ("R[h](x, w)", &observed),
@@ -86,14 +86,14 @@ where
     F: Map<A, Output = B>,
     G: Map<A, Output = C>,
     H: Map<A, Output = (B, C)>,
-    J: JudgeIn<A> + JudgeIn<(B, C)>,
+    J: ComparisonIn<A> + ComparisonIn<(B, C)>,
 {
-    let (yh, kh) = h.forward_keep(&c.x)?;
+    let (yh, kh) = h.forward_memo(&c.x)?;
     let both = (f.forward(&c.x)?, g.forward(&c.x)?);
     j.same(("(f(x), g(x))", &both), ("h(x)", &yh), &[])?;
     let bf = f.backward(&c.x, &c.w.0)?;
     let bg = g.backward(&c.x, &c.w.1)?;
-    let observed = h.backward_from(&kh, &c.w)?;
+    let observed = h.backward_memo(&kh, &c.w)?;
     j.same(
         ("R[f](x, w.0) + R[g](x, w.1)", &bf.try_add(&bg)?),
         ("R[h](x, w)", &observed),
@@ -117,17 +117,17 @@ where
     F: Map<A, Output = B>,
     G: Map<A, Output = C>,
     H: Map<A, Output = (B, C)>,
-    J: JudgeIn<A>,
+    J: ComparisonIn<A>,
 {
-    let (_, kh) = h.forward_keep(&c.x)?;
+    let (_, kh) = h.forward_memo(&c.x)?;
     let (w0, w1) = &c.w;
-    let first = h.backward_from(&kh, &(w0.clone(), w1.zero_like()))?;
+    let first = h.backward_memo(&kh, &(w0.clone(), w1.zero_like()))?;
     j.same(
         ("R[f](x, w.0)", &f.backward(&c.x, w0)?),
         ("R[h](x, (w.0, 0))", &first),
         &[],
     )?;
-    let second = h.backward_from(&kh, &(w0.zero_like(), w1.clone()))?;
+    let second = h.backward_memo(&kh, &(w0.zero_like(), w1.clone()))?;
     j.same(
         ("R[g](x, w.1)", &g.backward(&c.x, w1)?),
         ("R[h](x, (0, w.1))", &second),
@@ -143,9 +143,9 @@ where
     F: Map<A, Output = B>,
     G: Map<A, Output = B>,
     H: Map<A, Output = B>,
-    J: JudgeIn<A> + JudgeIn<B>,
+    J: ComparisonIn<A> + ComparisonIn<B>,
 {
-    let (yh, kh) = h.forward_keep(&c.x)?;
+    let (yh, kh) = h.forward_memo(&c.x)?;
     let (yf, yg) = (f.forward(&c.x)?, g.forward(&c.x)?);
     j.same(
         ("f(x) + g(x)", &yf.try_add(&yg)?),
@@ -154,7 +154,7 @@ where
     )?;
     let bf = f.backward(&c.x, &c.w)?;
     let bg = g.backward(&c.x, &c.w)?;
-    let observed = h.backward_from(&kh, &c.w)?;
+    let observed = h.backward_memo(&kh, &c.w)?;
     j.same(
         ("R[f](x, w) + R[g](x, w)", &bf.try_add(&bg)?),
         ("R[h](x, w)", &observed),

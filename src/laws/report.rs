@@ -2,8 +2,8 @@
 //! smallest case found, the two sides, the error and the tolerance.
 
 use super::case::{Case, Drawn};
-use super::judge::Breach;
-use super::law::{Law, Slot};
+use super::judge::Discrepancy;
+use super::law::{CaseValue, Law};
 use std::any::Any;
 use std::fmt;
 
@@ -18,9 +18,9 @@ pub struct Violation {
     /// [`Case::lift`](crate::laws::Case::lift)).
     pub order: u8,
     /// The values the law was broken at, by name, as the report shows them.
-    pub shown: Vec<(Slot, String)>,
+    pub shown: Vec<(CaseValue, String)>,
     /// The two sides, the error and the tolerance.
-    pub breach: Breach,
+    pub breach: Discrepancy,
     drawn: Option<Box<dyn Any>>,
 }
 
@@ -28,8 +28,8 @@ impl Violation {
     pub(crate) fn new<A: 'static, B: 'static>(
         law: Law,
         order: u8,
-        shown: Vec<(Slot, String)>,
-        breach: Breach,
+        shown: Vec<(CaseValue, String)>,
+        breach: Discrepancy,
         drawn: Drawn<A, B>,
     ) -> Self {
         Violation {
@@ -41,7 +41,7 @@ impl Violation {
         }
     }
 
-    pub(crate) fn without_case(law: Law, order: u8, breach: Breach) -> Self {
+    pub(crate) fn without_case(law: Law, order: u8, breach: Discrepancy) -> Self {
         Violation {
             law,
             order,

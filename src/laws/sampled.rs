@@ -2,12 +2,12 @@
 //! failure shrunk to the smallest case proptest finds.
 
 use super::case::{Case, CaseSource, Drawn, panic_message, quietly};
-use super::judge::{Breach, JudgeIn, Outcome, Tolerance};
-use super::law::{Law, Slot};
+use super::judge::{ComparisonIn, Discrepancy, Outcome, Tolerance};
+use super::law::{CaseValue, Law};
 use super::pairs;
 use super::report::{LawReport, Violation, short_type_name};
 use super::single::{map_law_real, reverse_law_real};
-use crate::combinators::{Pair, Sum, Then};
+use crate::combinators::{Pair, Plus, Then};
 use crate::error::{Error, Result};
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real, Space};
@@ -40,11 +40,11 @@ use proptest::test_runner::{Config, RngAlgorithm, TestCaseError, TestError, Test
 /// impl Compose for Square {}
 /// impl Map<f64> for Square {
 ///     type Output = f64;
-///     type Residual = f64;
-///     fn forward_keep(&self, x: &f64) -> Result<(f64, f64)> {
+///     type Memo = f64;
+///     fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
 ///         Ok((x * x, *x))
 ///     }
-///     fn backward_from(&self, x: &f64, dy: &f64) -> Result<f64> {
+///     fn backward_memo(&self, x: &f64, dy: &f64) -> Result<f64> {
 ///         Ok(x * dy) // should be 2 x dy
 ///     }
 /// }
@@ -75,7 +75,7 @@ impl<R: Real> Default for Checker<R> {
 /// Runs `check`, turning a panic into a breach.
 pub(crate) fn guarded(check: impl FnOnce() -> Outcome) -> Outcome {
     quietly(check).unwrap_or_else(|payload| {
-        Err(Breach::failure(format!(
+        Err(Discrepancy::failure(format!(
             "the map panicked: {}",
             panic_message(&*payload)
         )))
@@ -86,23 +86,23 @@ pub(crate) fn guarded(check: impl FnOnce() -> Outcome) -> Outcome {
 ///
 /// At order 2 the law is evaluated at the lifted case (see [`Case::lift`]),
 /// so the values shown are those the lifted slots are made of.
-pub(crate) fn show_case<A: Space, B: Space, J: JudgeIn<A> + JudgeIn<B>>(
+pub(crate) fn show_case<A: Space, B: Space, J: ComparisonIn<A> + ComparisonIn<B>>(
     judge: &J,
     law: Law,
     order: u8,
     c: &Case<A, B>,
-) -> Vec<(Slot, String)> {
+) -> Vec<(CaseValue, String)> {
     let slots = law.slots_at(order);
     slots
         .into_iter()
         .map(|slot| {
             let shown = match slot {
-                Slot::X => judge.show(&c.x),
-                Slot::V => judge.show(&c.v),
-                Slot::U => judge.show(&c.u),
-                Slot::W => judge.show(&c.w),
-                Slot::W2 => judge.show(&c.w2),
-                Slot::S => c.s.to_string(),
+                CaseValue::X => judge.show(&c.x),
+                CaseValue::V => judge.show(&c.v),
+                CaseValue::U => judge.show(&c.u),
+                CaseValue::W => judge.show(&c.w),
+                CaseValue::W2 => judge.show(&c.w2),
+                CaseValue::S => c.s.to_string(),
             };
             (slot, shown)
         })
@@ -248,7 +248,7 @@ impl<R: Real> Checker<R> {
                 let outcome = match order {
                     1 => reverse_law_real(tol, law, f, c),
                     2 => reverse_law_real(tol, law, &rev, &c.lift()),
-                    _ => return Err(Breach::failure("laws are checked at orders 1 and 2")),
+                    _ => return Err(Discrepancy::failure("laws are checked at orders 1 and 2")),
                 };
                 outcome.unwrap_or_else(|| Err(not_for_maps(law)))
             },
@@ -423,7 +423,7 @@ impl<R: Real> Checker<R> {
         G: Reverse<A, Output = B>,
         H: Reverse<A, Output = B>,
         C: CaseSource<R, A, B>,
-        Sum<F, G>: Reverse<A, Output = B>,
+        Plus<F, G>: Reverse<A, Output = B>,
     {
         let composite = f.clone().plus(g.clone());
         let tol = &self.tolerance;
@@ -460,7 +460,7 @@ impl<R: Real> Checker<R> {
             let judged = |d: &Drawn<A, B>| -> Outcome {
                 match d {
                     Drawn::Case(c) => guarded(|| eval(law, order, c)),
-                    Drawn::Unevaluable { reason, .. } => Err(Breach::failure(reason.clone())),
+                    Drawn::Unevaluable { reason, .. } => Err(Discrepancy::failure(reason.clone())),
                 }
             };
             let config = Config {
@@ -477,14 +477,14 @@ impl<R: Real> Checker<R> {
                 Ok(()) => None,
                 Err(TestError::Fail(_, drawn)) => {
                     let breach = judged(&drawn).err().unwrap_or_else(|| {
-                        Breach::failure("broken while shrinking, but holds when re-run: the map is not deterministic")
+                        Discrepancy::failure("broken while shrinking, but holds when re-run: the map is not deterministic")
                     });
                     Some(self.violation(law, order, breach, drawn))
                 }
                 Err(TestError::Abort(why)) => Some(Violation::without_case(
                     law,
                     order,
-                    Breach::failure(format!("the case generator gave up: {why}")),
+                    Discrepancy::failure(format!("the case generator gave up: {why}")),
                 )),
             };
             let cases = if violation.is_none() {
@@ -497,21 +497,27 @@ impl<R: Real> Checker<R> {
         report
     }
 
-    fn violation<A, B>(&self, law: Law, order: u8, breach: Breach, drawn: Drawn<A, B>) -> Violation
+    fn violation<A, B>(
+        &self,
+        law: Law,
+        order: u8,
+        breach: Discrepancy,
+        drawn: Drawn<A, B>,
+    ) -> Violation
     where
         A: Euclidean<R> + 'static,
         B: Euclidean<R> + 'static,
     {
         let shown = match &drawn {
             Drawn::Case(c) => show_case(&self.tolerance, law, order, c),
-            Drawn::Unevaluable { x, .. } => vec![(Slot::X, self.tolerance.show(x))],
+            Drawn::Unevaluable { x, .. } => vec![(CaseValue::X, self.tolerance.show(x))],
         };
         Violation::new(law, order, shown, breach, drawn)
     }
 }
 
-fn not_for_maps(law: Law) -> Breach {
-    Breach::failure(format!(
+fn not_for_maps(law: Law) -> Discrepancy {
+    Discrepancy::failure(format!(
         "{law} is not a law of one map; use the pair checks for it"
     ))
 }

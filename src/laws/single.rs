@@ -1,18 +1,18 @@
 //! The laws on one map, each evaluated at one case.
 //!
 //! The `*_exact` dispatchers hold the laws that are identities among the
-//! map's own passes; they are written against any [`JudgeIn`], so the same
+//! map's own passes; they are written against any [`ComparisonIn`], so the same
 //! code runs within a tolerance on real spaces and exactly on finite
 //! domains. The `*_real` dispatchers add the laws that need real arithmetic
 //! (homogeneity, and comparisons with central differences).
 
 use super::case::Case;
 use super::differences::derivative_at_zero;
-use super::judge::{Breach, JudgeIn, Outcome, Term, Tolerance, term};
+use super::judge::{ComparisonIn, Discrepancy, Outcome, Term, Tolerance, term};
 use super::law::Law;
 use crate::error::Result;
 use crate::map::{Map, Reverse};
-use crate::space::{Euclidean, Real, Scale, Space};
+use crate::space::{Euclidean, Real, Scalable, Space};
 
 /// Laws 1 (additive, zero change) and 6 for any map; `None` for other laws.
 pub(crate) fn map_law_exact<A, F, J>(
@@ -24,7 +24,7 @@ pub(crate) fn map_law_exact<A, F, J>(
 where
     A: Space,
     F: Map<A>,
-    J: JudgeIn<A> + JudgeIn<F::Output>,
+    J: ComparisonIn<A> + ComparisonIn<F::Output>,
 {
     Some(match law {
         Law::Additive => additive(judge, f, c),
@@ -45,7 +45,7 @@ pub(crate) fn reverse_law_exact<A, F, J>(
 where
     A: Space,
     F: Reverse<A>,
-    J: JudgeIn<A> + JudgeIn<F::Output>,
+    J: ComparisonIn<A> + ComparisonIn<F::Output>,
 {
     Some(match law {
         Law::Symmetric => symmetric_exact(judge, f, c),
@@ -96,11 +96,15 @@ where
     })
 }
 
-fn additive<A: Space, F: Map<A>, J: JudgeIn<A>>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome {
-    let (_, keep) = f.forward_keep(&c.x)?;
-    let a = f.backward_from(&keep, &c.w)?;
-    let b = f.backward_from(&keep, &c.w2)?;
-    let both = f.backward_from(&keep, &c.w.try_add(&c.w2)?)?;
+fn additive<A: Space, F: Map<A>, J: ComparisonIn<A>>(
+    j: &J,
+    f: &F,
+    c: &Case<A, F::Output>,
+) -> Outcome {
+    let (_, keep) = f.forward_memo(&c.x)?;
+    let a = f.backward_memo(&keep, &c.w)?;
+    let b = f.backward_memo(&keep, &c.w2)?;
+    let both = f.backward_memo(&keep, &c.w.try_add(&c.w2)?)?;
     j.same(
         ("R[f](x, w) + R[f](x, w2)", &a.try_add(&b)?),
         ("R[f](x, w + w2)", &both),
@@ -108,14 +112,14 @@ fn additive<A: Space, F: Map<A>, J: JudgeIn<A>>(j: &J, f: &F, c: &Case<A, F::Out
     )
 }
 
-fn zero_change<A: Space, F: Map<A>, J: JudgeIn<A>>(
+fn zero_change<A: Space, F: Map<A>, J: ComparisonIn<A>>(
     j: &J,
     f: &F,
     c: &Case<A, F::Output>,
 ) -> Outcome {
-    let (_, keep) = f.forward_keep(&c.x)?;
-    let typical = f.backward_from(&keep, &c.w)?;
-    let at_zero = f.backward_from(&keep, &c.w.zero_like())?;
+    let (_, keep) = f.forward_memo(&c.x)?;
+    let typical = f.backward_memo(&keep, &c.w)?;
+    let at_zero = f.backward_memo(&keep, &c.w.zero_like())?;
     j.same(
         ("0", &c.x.zero_like()),
         ("R[f](x, 0)", &at_zero),
@@ -127,17 +131,17 @@ fn shapes_finite<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
 where
     A: Space,
     F: Map<A>,
-    J: JudgeIn<A> + JudgeIn<F::Output>,
+    J: ComparisonIn<A> + ComparisonIn<F::Output>,
 {
-    let (y, keep) = f.forward_keep(&c.x)?;
-    if let Some(d) = JudgeIn::<F::Output>::defect(j, &y) {
-        return Err(Breach::failure(format!(
+    let (y, keep) = f.forward_memo(&c.x)?;
+    if let Some(d) = ComparisonIn::<F::Output>::defect(j, &y) {
+        return Err(Discrepancy::failure(format!(
             "f(x) is not finite on a finite input: f(x) = {d}"
         )));
     }
-    let back = f.backward_from(&keep, &c.w)?;
+    let back = f.backward_memo(&keep, &c.w)?;
     if back.shape_string() != c.x.shape_string() {
-        return Err(Breach {
+        return Err(Discrepancy {
             expected: format!("the shape of x, {}", c.x.shape_string()),
             observed: format!("R[f](x, w) of shape {}", back.shape_string()),
             error: None,
@@ -145,8 +149,8 @@ where
             measure: "the backward pass returned a value of the wrong shape".to_string(),
         });
     }
-    if let Some(d) = JudgeIn::<A>::defect(j, &back) {
-        return Err(Breach::failure(format!(
+    if let Some(d) = ComparisonIn::<A>::defect(j, &back) {
+        return Err(Discrepancy::failure(format!(
             "R[f](x, w) is not finite on finite values: R[f](x, w) = {d}"
         )));
     }
@@ -157,12 +161,12 @@ fn symmetric_exact<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
 where
     A: Space,
     F: Reverse<A>,
-    J: JudgeIn<A>,
+    J: ComparisonIn<A>,
 {
     let g = f.rev();
-    let (_, keep) = g.forward_keep(&(c.x.clone(), c.w.clone()))?;
-    let (hv, _) = g.backward_from(&keep, &c.v)?;
-    let (hu, _) = g.backward_from(&keep, &c.u)?;
+    let (_, keep) = g.forward_memo(&(c.x.clone(), c.w.clone()))?;
+    let (hv, _) = g.backward_memo(&keep, &c.v)?;
+    let (hu, _) = g.backward_memo(&keep, &c.u)?;
     j.same_scalar(
         (
             "<v, H u> by the second reverse derivative",
@@ -179,7 +183,7 @@ fn linear_in_change<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
 where
     A: Space,
     F: Reverse<A>,
-    J: JudgeIn<A> + JudgeIn<F::Output>,
+    J: ComparisonIn<A> + ComparisonIn<F::Output>,
 {
     let (_, change_part) = f.rev().backward(&(c.x.clone(), c.w.clone()), &c.u)?;
     let back = f.backward(&c.x, &c.w2)?;
@@ -196,7 +200,7 @@ fn reverse_agrees<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
 where
     A: Space,
     F: Reverse<A>,
-    J: JudgeIn<A>,
+    J: ComparisonIn<A>,
 {
     let via_map = f.rev().forward(&(c.x.clone(), c.w.clone()))?;
     let back = f.backward(&c.x, &c.w)?;
@@ -215,9 +219,9 @@ where
     F::Output: Euclidean<R>,
 {
     let s = R::from(c.s).unwrap_or_else(R::one);
-    let (_, keep) = f.forward_keep(&c.x)?;
-    let back = f.backward_from(&keep, &c.w)?;
-    let scaled = f.backward_from(&keep, &c.w.scale(s))?;
+    let (_, keep) = f.forward_memo(&c.x)?;
+    let back = f.backward_memo(&keep, &c.w)?;
+    let scaled = f.backward_memo(&keep, &c.w.scale(s))?;
     tol.same(
         ("s R[f](x, w)", &back.scale(s)),
         ("R[f](x, s w)", &scaled),
@@ -255,9 +259,9 @@ fn estimate<R: Real>(
     what: &str,
     phi: impl Fn(R) -> Result<R>,
     start: R,
-) -> std::result::Result<super::differences::Estimate<R>, Breach> {
+) -> std::result::Result<super::differences::Estimate<R>, Discrepancy> {
     derivative_at_zero(phi, start)
-        .map_err(|why| Breach::failure(format!("central differences of {what} failed: {why}")))
+        .map_err(|why| Discrepancy::failure(format!("central differences of {what} failed: {why}")))
 }
 
 fn derivative<R, A, F>(tol: &Tolerance<R>, f: &F, c: &Case<A, F::Output>) -> Outcome

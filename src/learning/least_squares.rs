@@ -12,11 +12,12 @@ use crate::higher::{jacobian_by_backward, jacobian_by_forward};
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real};
 use ndarray::{Array1, Array2, Axis};
+use std::fmt;
 use std::sync::OnceLock;
 use std::time::Instant;
 
 /// A residual vector and the Jacobian of the residuals at the same point.
-pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
+pub type ResidualsAndJacobian<R> = (Array1<R>, Array2<R>);
 
 /// A map `P -> R^m` whose value and Jacobian a fitter can ask for.
 ///
@@ -30,7 +31,7 @@ pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
 /// Jacobian written by hand, minimised from the classic start `(-1.2, 1)`:
 ///
 /// ```
-/// use revdiff::{LeastSquares, Residuals, Result, ValueAndJacobian};
+/// use revdiff::{LeastSquares, Residuals, Result, ResidualsAndJacobian};
 /// use ndarray::{array, Array1};
 ///
 /// struct Valley;
@@ -40,7 +41,7 @@ pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
 ///     fn residuals(&self, &(a, b): &(f64, f64)) -> Result<Array1<f64>> {
 ///         Ok(array![10.0 * (b - a * a), 1.0 - a])
 ///     }
-///     fn residuals_and_jacobian(&self, p: &(f64, f64)) -> Result<ValueAndJacobian<f64>> {
+///     fn residuals_and_jacobian(&self, p: &(f64, f64)) -> Result<ResidualsAndJacobian<f64>> {
 ///         let a = p.0;
 ///         Ok((self.residuals(p)?, array![[-20.0 * a, 10.0], [-1.0, 0.0]]))
 ///     }
@@ -50,6 +51,11 @@ pub type ValueAndJacobian<R> = (Array1<R>, Array2<R>);
 /// assert!(report.stop.converged());
 /// assert!((report.parameters.0 - 1.0).abs() < 1e-9 && (report.parameters.1 - 1.0).abs() < 1e-9);
 /// ```
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` does not give residuals and a Jacobian for parameters `{P}`",
+    label = "least squares needs `Residuals<{P}>`",
+    note = "wrap a whole map `P -> R^m` with `residual_map(map)`, or a model `(P, x) -> y` over data points with `CurveResiduals::new(model, xs, ys)`"
+)]
 pub trait Residuals<P> {
     /// The real type of the residuals.
     type Real: Real;
@@ -59,7 +65,7 @@ pub trait Residuals<P> {
 
     /// The residual vector and the `m x n` Jacobian at `p` (`n` parameter
     /// coordinates, in [`Euclidean`] order).
-    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<Self::Real>>;
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ResidualsAndJacobian<Self::Real>>;
 }
 
 /// How [`ResidualMap`] takes its Jacobian.
@@ -94,10 +100,10 @@ pub struct ResidualMap<F> {
 /// cheaper route ([`JacobianRoute::Cheaper`]); see [`ResidualMap::route`].
 ///
 /// ```
-/// use revdiff::{constant, id, residual_map, Compose, Neg, Residuals, Sub};
+/// use revdiff::{constant, id, residual_map, Compose, Neg, Residuals, SubPair};
 /// use ndarray::array;
 /// // r(a) = a - (1, 2) as a map of arrays.
-/// let r = residual_map(constant(array![1.0, 2.0]).pair(id()).then(Sub).then(Neg));
+/// let r = residual_map(constant(array![1.0, 2.0]).pair(id()).then(SubPair).then(Neg));
 /// let (value, j) = r.residuals_and_jacobian(&array![3.0, 3.0]).unwrap();
 /// assert_eq!(value, array![2.0, 1.0]);
 /// assert_eq!(j, array![[1.0, 0.0], [0.0, 1.0]]);
@@ -140,7 +146,7 @@ where
     fn residuals(&self, p: &P) -> Result<Array1<R>> {
         self.map.forward(p)
     }
-    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<R>> {
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ResidualsAndJacobian<R>> {
         let r = self.map.forward(p)?;
         let route = match (self.route, self.chosen.get()) {
             (JacobianRoute::Cheaper, Some(chosen)) => *chosen,
@@ -181,14 +187,14 @@ where
 /// residual has one coordinate, so that is the cheaper route).
 ///
 /// ```
-/// use revdiff::{CurveResiduals, Mul, Residuals};
+/// use revdiff::{CurveResiduals, MulPair, Residuals};
 /// use ndarray::array;
 /// // y = p x through the points (1, 2) and (2, 3).
-/// let r = CurveResiduals::new(Mul, vec![1.0, 2.0], vec![2.0, 3.0]).unwrap();
+/// let r = CurveResiduals::new(MulPair, vec![1.0, 2.0], vec![2.0, 3.0]).unwrap();
 /// let (value, j) = r.residuals_and_jacobian(&1.0).unwrap();
 /// assert_eq!(value, array![-1.0, -1.0]);
 /// assert_eq!(j, array![[1.0], [2.0]]);
-/// assert!(CurveResiduals::new(Mul, vec![1.0], vec![2.0, 3.0]).is_err());
+/// assert!(CurveResiduals::new(MulPair, vec![1.0], vec![2.0, 3.0]).is_err());
 /// ```
 #[derive(Clone, Debug, PartialEq)]
 pub struct CurveResiduals<M, A, R> {
@@ -202,7 +208,7 @@ impl<M, A, R: Real> CurveResiduals<M, A, R> {
     /// no points, different counts and non-finite targets.
     pub fn new(model: M, inputs: Vec<A>, targets: Vec<R>) -> Result<Self> {
         if inputs.len() != targets.len() {
-            return Err(Error::Rows {
+            return Err(Error::RowCountMismatch {
                 inputs: inputs.len(),
                 targets: targets.len(),
             });
@@ -242,15 +248,15 @@ where
             .collect::<Result<Vec<R>>>()
             .map(Array1::from)
     }
-    fn residuals_and_jacobian(&self, p: &P) -> Result<ValueAndJacobian<R>> {
+    fn residuals_and_jacobian(&self, p: &P) -> Result<ResidualsAndJacobian<R>> {
         let n = p.dimension();
         let m = self.inputs.len();
         let mut r = Array1::zeros(m);
         let mut j = Array2::zeros((m, n));
         for (i, (x, y)) in self.inputs.iter().zip(&self.targets).enumerate() {
-            let (value, kept) = self.model.forward_keep(&(p.clone(), x.clone()))?;
+            let (value, kept) = self.model.forward_memo(&(p.clone(), x.clone()))?;
             r[i] = value - *y;
-            let row = self.model.backward_from(&kept, &R::one())?.0.coordinates();
+            let row = self.model.backward_memo(&kept, &R::one())?.0.coordinates();
             j.row_mut(i).assign(&Array1::from(row));
         }
         Ok((r, j))
@@ -262,11 +268,11 @@ where
 #[non_exhaustive]
 pub enum Stop {
     /// The step was small against the parameters.
-    Step,
+    SmallStep,
     /// The residuals were (nearly) orthogonal to every Jacobian column.
-    Gradient,
+    SmallGradient,
     /// An accepted step reduced the residual sum of squares by a tiny fraction.
-    Reduction,
+    SmallDecrease,
     /// The residuals were exactly zero.
     ExactFit,
     /// Levenberg-Marquardt could not find a reducing step however strongly
@@ -293,6 +299,32 @@ impl Stop {
     }
 }
 
+impl fmt::Display for Stop {
+    /// A sentence: whether the fit converged, and why it stopped.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Stop::SmallStep => "converged: the step became small against the parameters",
+            Stop::SmallGradient => {
+                "converged: the residuals became orthogonal to every Jacobian column"
+            }
+            Stop::SmallDecrease => {
+                "converged: a step lowered the residual sum of squares by a negligible fraction"
+            }
+            Stop::ExactFit => "converged: the residuals are exactly zero",
+            Stop::DampingLimit => {
+                "converged: no damped step lowers the residual sum of squares any further"
+            }
+            Stop::IterationLimit => "not converged: the iteration limit came first",
+            Stop::Singular => {
+                "not converged: the Gauss-Newton system is singular (a parameter is not determined)"
+            }
+            Stop::NonFiniteStep => {
+                "not converged: a Gauss-Newton step led to residuals that are not finite"
+            }
+        })
+    }
+}
+
 /// The result of a least-squares fit.
 #[derive(Clone, Debug, PartialEq)]
 pub struct FitReport<P, R> {
@@ -312,6 +344,38 @@ pub struct FitReport<P, R> {
     pub standard_errors: Option<P>,
     /// Why the fit stopped.
     pub stop: Stop,
+}
+
+impl<P: Euclidean<R>, R: Real> fmt::Display for FitReport<P, R> {
+    /// A sentence on how the fit ended, then a table with one row per
+    /// parameter coordinate (in the order of
+    /// [`Euclidean::coordinates`]): estimate and standard error.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        writeln!(
+            f,
+            "{} after {} iterations ({} residual evaluations)",
+            self.stop, self.iterations, self.evaluations
+        )?;
+        writeln!(
+            f,
+            "residual sum of squares {:.6e}, {} degrees of freedom",
+            self.residual_sum_of_squares, self.degrees_of_freedom
+        )?;
+        let estimates = self.parameters.coordinates();
+        let errors = self.standard_errors.as_ref().map(Euclidean::coordinates);
+        writeln!(
+            f,
+            "{:>10}  {:>16}  {:>16}",
+            "coordinate", "estimate", "standard error"
+        )?;
+        for (i, p) in estimates.iter().enumerate() {
+            let se = errors
+                .as_ref()
+                .map_or("not available".to_string(), |e| format!("{:.6e}", e[i]));
+            writeln!(f, "{i:>10}  {p:>16.9e}  {se:>16}")?;
+        }
+        Ok(())
+    }
 }
 
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -336,13 +400,13 @@ enum Method {
 /// Fitting `y = b1 (1 - exp(-b2 x))` to points made from `b = (2, 0.5)`:
 ///
 /// ```
-/// use revdiff::{constant, fst, snd, Compose, CurveResiduals, Exp, Id, LeastSquares, Mul, Neg, Sub};
+/// use revdiff::{constant, fst, snd, Compose, CurveResiduals, Exp, Id, LeastSquares, MulPair, Neg, SubPair};
 ///
 /// // ((b1, b2), x) -> b1 (1 - exp(-b2 x)), from catalogue pieces.
-/// let one_minus = constant(1.0_f64).pair(Id).then(Sub);
+/// let one_minus = constant(1.0_f64).pair(Id).then(SubPair);
 /// let model = fst().then(fst())
-///     .pair(fst().then(snd()).pair(snd()).then(Mul).then(Neg).then(Exp).then(one_minus))
-///     .then(Mul);
+///     .pair(fst().then(snd()).pair(snd()).then(MulPair).then(Neg).then(Exp).then(one_minus))
+///     .then(MulPair);
 /// let xs: Vec<f64> = (1..=8).map(f64::from).collect();
 /// let ys = xs.iter().map(|x| 2.0 * (1.0 - (-0.5 * x).exp())).collect();
 /// let residuals = CurveResiduals::new(model, xs, ys).unwrap();
@@ -463,7 +527,7 @@ impl LeastSquares {
             let jtj = j.t().dot(&j);
             let g = j.t().dot(&r);
             if self.gradient_small(&jtj, &g, rss) {
-                break Stop::Gradient;
+                break Stop::SmallGradient;
             }
             if iterations == self.max_iterations {
                 break Stop::IterationLimit;
@@ -538,10 +602,10 @@ impl LeastSquares {
             rss = r.dot(&r);
             let step_tol = real(self.step_tolerance);
             if step_norm <= step_tol * (size + step_tol) {
-                break Stop::Step;
+                break Stop::SmallStep;
             }
             if reduction >= R::zero() && reduction <= real(self.reduction_tolerance) * old_rss {
-                break Stop::Reduction;
+                break Stop::SmallDecrease;
             }
         };
         let parameters = start.rebuild_from_coordinates(&p)?;

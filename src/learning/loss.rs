@@ -24,11 +24,13 @@
 //! assert!(dz[2] < 0.0 && dz[0] > 0.0);
 //! ```
 
-use crate::combinators::{Duplicate, Fst, Id, Pair, Scaling, Snd, Then};
+use crate::combinators::{Duplicate, Fst, Id, MultiplyBy, Pair, Snd, Then};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map, Reverse};
 use crate::primitives::pointwise::{logistic, softplus};
-use crate::primitives::{Clamp, Dot, LogSumExp, Mul, Powi, Softplus, Sub, Total, dot};
+use crate::primitives::{
+    Clamp, Dot, ElementReduction, LogSumExp, MulPair, Powi, Softplus, SubPair, dot,
+};
 use crate::space::{Real, same_shape};
 use ndarray::{Array, Dimension, Zip};
 
@@ -87,7 +89,7 @@ impl Default for SquaredError {
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct MeanSquaredError;
 
-/// Cross-entropy of the softmax of logits `z` against a target distribution
+/// Alongside-entropy of the softmax of logits `z` against a target distribution
 /// `t`: `(z, t) -> -sum_i t_i log softmax(z)_i`, computed as
 /// `sum(t) logsumexp(z) - <t, z>`, finite for logits of any size.
 ///
@@ -190,48 +192,62 @@ fn opposite_pair<T: Real, D: Dimension>(slope: &Array<T, D>, dl: T) -> Pairs<T, 
 }
 
 /// `(y, t) -> c |y - t|^2` as a composite.
-pub type SquaredErrorComposite<T> = Then<Then<Sub, Then<Duplicate, Dot>>, Scaling<T>>;
+pub type SquaredErrorComposite<T> = Then<Then<SubPair, Then<Duplicate, Dot>>, MultiplyBy<T>>;
 /// `(y, t) -> mean (y - t)^2` as a composite.
-pub type MeanSquaredErrorComposite = Then<Then<Then<Sub, Duplicate>, Mul>, Total>;
+pub type MeanSquaredErrorComposite =
+    Then<Then<Then<SubPair, Duplicate>, MulPair>, ElementReduction>;
 /// `(z, t) -> sum(t) logsumexp(z) - <z, t>` as a composite.
-pub type LogitCrossEntropyComposite =
-    Then<Pair<Then<Pair<Then<Snd, Total>, Then<Fst, LogSumExp>>, Mul>, Dot>, Sub>;
+pub type LogitCrossEntropyComposite = Then<
+    Pair<Then<Pair<Then<Snd, ElementReduction>, Then<Fst, LogSumExp>>, MulPair>, Dot>,
+    SubPair,
+>;
 /// `(z, t) -> sum softplus(z) - <z, t>` as a composite.
-pub type LogitBinaryCrossEntropyComposite = Then<Pair<Then<Then<Fst, Softplus>, Total>, Dot>, Sub>;
+pub type LogitBinaryCrossEntropyComposite =
+    Then<Pair<Then<Then<Fst, Softplus>, ElementReduction>, Dot>, SubPair>;
 /// `(y, t) -> sum clamp(r) r - clamp(r)^2 / 2` with `r = y - t`, as a
 /// composite; it equals the Huber loss and has the clamp as its slope.
-pub type HuberComposite<T> =
-    Then<Then<Sub, Then<Pair<Then<Pair<Clamp<T>, Id>, Mul>, Then<Clamp<T>, Powi<T>>>, Sub>>, Total>;
+pub type HuberComposite<T> = Then<
+    Then<SubPair, Then<Pair<Then<Pair<Clamp<T>, Id>, MulPair>, Then<Clamp<T>, Powi<T>>>, SubPair>>,
+    ElementReduction,
+>;
 
 impl SquaredError {
     /// The equal composite of catalogue pieces.
     pub fn composite<T: Real>(&self) -> SquaredErrorComposite<T> {
-        Sub.then(Duplicate.then(dot())).then(Scaling(self.factor()))
+        SubPair
+            .then(Duplicate.then(dot()))
+            .then(MultiplyBy(self.factor()))
     }
 }
 
 impl MeanSquaredError {
     /// The equal composite of catalogue pieces.
     pub fn composite(&self) -> MeanSquaredErrorComposite {
-        Sub.then(Duplicate).then(Mul).then(Total::mean())
+        SubPair
+            .then(Duplicate)
+            .then(MulPair)
+            .then(ElementReduction::mean())
     }
 }
 
 impl LogitCrossEntropy {
     /// The equal composite of catalogue pieces.
     pub fn composite(&self) -> LogitCrossEntropyComposite {
-        Snd.then(Total::sum())
+        Snd.then(ElementReduction::sum())
             .pair(Fst.then(LogSumExp))
-            .then(Mul)
+            .then(MulPair)
             .pair(dot())
-            .then(Sub)
+            .then(SubPair)
     }
 }
 
 impl LogitBinaryCrossEntropy {
     /// The equal composite of catalogue pieces.
     pub fn composite(&self) -> LogitBinaryCrossEntropyComposite {
-        Fst.then(Softplus).then(Total::sum()).pair(dot()).then(Sub)
+        Fst.then(Softplus)
+            .then(ElementReduction::sum())
+            .pair(dot())
+            .then(SubPair)
     }
 }
 
@@ -241,36 +257,38 @@ impl<T: Real> Huber<T> {
         let clamp = Clamp::new(self.delta);
         let inner = clamp
             .pair(Id)
-            .then(Mul)
-            .pair(clamp.then(Powi::scaled(real(0.5), 2)));
-        Sub.then(inner.then(Sub)).then(Total::sum())
+            .then(MulPair)
+            .pair(clamp.then(Powi::with_coefficient(real(0.5), 2)));
+        SubPair
+            .then(inner.then(SubPair))
+            .then(ElementReduction::sum())
     }
 }
 
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for SquaredError {
     type Output = T;
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
         let r = difference("squared error", input)?;
         let value = r.fold(T::zero(), |acc, &v| acc + v * v) * self.factor::<T>();
         Ok((value, r * (real::<T>(2.0) * self.factor::<T>())))
     }
-    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
         Ok(opposite_pair(slope, *dl))
     }
 }
 
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
     type Output = T;
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
         let r = difference("mean squared error", input)?;
         nonempty("mean squared error", &r)?;
         let n: T = real(r.len() as f64);
         let value = r.fold(T::zero(), |acc, &v| acc + v * v) / n;
         Ok((value, r * (real::<T>(2.0) / n)))
     }
-    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
         Ok(opposite_pair(slope, *dl))
     }
 }
@@ -278,8 +296,8 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
     type Output = T;
     /// `(sum(t) softmax(z) - t, logsumexp(z) - z)`: the change per unit `dl`.
-    type Residual = Pairs<T, D>;
-    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
+    type Memo = Pairs<T, D>;
+    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
         let (z, t) = input;
         same_shape("cross-entropy on logits", z, t)?;
         nonempty("cross-entropy on logits", z)?;
@@ -298,7 +316,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
         let dt = z.mapv(|v| lse - v);
         Ok((value, (dz, dt)))
     }
-    fn backward_from(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+    fn backward_memo(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
         Ok((dz * *dl, dt * *dl))
     }
 }
@@ -306,8 +324,8 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
     type Output = T;
     /// `(sigmoid(z) - t, -z)`: the change per unit `dl`.
-    type Residual = Pairs<T, D>;
-    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
+    type Memo = Pairs<T, D>;
+    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
         let (z, t) = input;
         same_shape("binary cross-entropy on logits", z, t)?;
         let value = Zip::from(z)
@@ -318,7 +336,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
             .map_collect(|&zi, &ti| logistic(zi) - ti);
         Ok((value, (dz, z.mapv(|v| -v))))
     }
-    fn backward_from(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+    fn backward_memo(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
         Ok((dz * *dl, dt * *dl))
     }
 }
@@ -326,8 +344,8 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for Huber<T> {
     type Output = T;
     /// The clamped difference.
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
         let r = difference("huber loss", input)?;
         let d = self.delta;
         let half: T = real(0.5);
@@ -340,7 +358,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for Huber<T> {
         });
         Ok((value, r.mapv(|v| v.max(-d).min(d))))
     }
-    fn backward_from(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
+    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
         Ok(opposite_pair(slope, *dl))
     }
 }

@@ -17,11 +17,13 @@ pub mod schedule;
 pub mod train;
 
 pub use least_squares::{
-    CurveResiduals, FitReport, JacobianRoute, LeastSquares, ResidualMap, Residuals, Stop,
-    ValueAndJacobian, residual_map,
+    CurveResiduals, FitReport, JacobianRoute, LeastSquares, ResidualMap, Residuals,
+    ResidualsAndJacobian, Stop, residual_map,
 };
 pub use loss::{Huber, LogitBinaryCrossEntropy, LogitCrossEntropy, MeanSquaredError, SquaredError};
 pub use optimise::{Adagrad, Adam, GradientDescent, Momentum, Nesterov, Optimiser, RmsProp};
-pub use parametrised::{Bound, Parametrised, Reparametrised, Stacked, parameter_free};
+pub use parametrised::{
+    Parametrised, Reparametrised, ThenParametrised, WithParameters, parameter_free,
+};
 pub use schedule::Schedule;
 pub use train::{Examples, Interrupted, Progress, Trained, Training};

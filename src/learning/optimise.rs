@@ -4,7 +4,7 @@
 //! space (a scalar, an array, a tuple of arrays, nested tuples), so the same
 //! value works for every model. Its state (velocities, moment estimates) is
 //! made at the first update, shaped like the parameters; updating
-//! parameters of a different size later is an [`Error::Length`].
+//! parameters of a different size later is an [`Error::CoordinateCount`].
 //!
 //! Settings are checked at construction: a learning rate that is not
 //! positive and finite, a momentum or decay outside `[0, 1)`, or a
@@ -38,6 +38,11 @@ use crate::space::{Euclidean, Real};
 /// assert!((params.0[1] - 2.0).abs() < 1e-3 && (params.1 - 3.0).abs() < 1e-3);
 /// assert_eq!(adam.steps_taken(), 500);
 /// ```
+#[diagnostic::on_unimplemented(
+    message = "`{Self}` is not an optimiser over `{R}`",
+    label = "training needs `Optimiser<{R}>` here",
+    note = "the optimisers are `GradientDescent`, `Momentum`, `Nesterov`, `Adagrad`, `RmsProp` and `Adam`; pass one by `&mut`, with the same float type as the data"
+)]
 pub trait Optimiser<R: Real> {
     /// Moves `params` in place, given the gradient at them (same length).
     /// Implementations count the step.
@@ -59,7 +64,7 @@ pub trait Optimiser<R: Real> {
         let mut coords = params.coordinates();
         let grad = gradient.coordinates();
         if grad.len() != coords.len() {
-            return Err(Error::Length {
+            return Err(Error::CoordinateCount {
                 operation: "optimiser update (gradient against parameters)",
                 expected: coords.len(),
                 found: grad.len(),
@@ -100,7 +105,7 @@ impl<R: Real, const K: usize> State<R, K> {
         gradient: &[R],
     ) -> Result<(R, usize)> {
         if params.len() != gradient.len() {
-            return Err(Error::Length {
+            return Err(Error::CoordinateCount {
                 operation: "optimiser step (gradient against parameters)",
                 expected: params.len(),
                 found: gradient.len(),
@@ -111,7 +116,7 @@ impl<R: Real, const K: usize> State<R, K> {
                 *v = vec![R::zero(); params.len()];
             }
         } else if K > 0 && self.vectors[0].len() != params.len() {
-            return Err(Error::Length {
+            return Err(Error::CoordinateCount {
                 operation: "optimiser step (parameters against the optimiser's state)",
                 expected: self.vectors[0].len(),
                 found: params.len(),

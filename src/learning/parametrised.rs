@@ -4,7 +4,7 @@
 //! A parametrised map is any map whose input is a pair `(parameters, input)`:
 //! its reverse derivative returns a change for the parameters and a change
 //! for the input at once. [`Affine`](crate::Affine) (parameters `(W, b)`) and
-//! [`Mul`](crate::Mul) (a scalar parameter times the input) are parametrised
+//! [`MulPair`](crate::MulPair) (a scalar parameter times the input) are parametrised
 //! maps as they stand; a map with no parameters becomes one with
 //! [`parameter_free`], and any parametrised map post-composes with an
 //! ordinary map by [`Compose::then`].
@@ -15,7 +15,7 @@
 //! its reverse derivative as a map is that of an equal composite of the
 //! catalogue's combinators, so every order exists.
 
-use crate::combinators::{Constant, Cross, Duplicate, Fst, Id, Pair, Snd, Then};
+use crate::combinators::{Alongside, Constant, Duplicate, Fst, Id, Pair, Snd, Then};
 use crate::error::Result;
 use crate::map::{Compose, Map, Reverse};
 use crate::space::Space;
@@ -31,7 +31,7 @@ use crate::space::Space;
 /// use revdiff::{Affine, Compose, Map, Parametrised, Tanh};
 /// use ndarray::array;
 ///
-/// let model = Affine.then(Tanh).followed_by(Affine.then(Tanh));
+/// let model = Affine.then(Tanh).then_parametrised(Affine.then(Tanh));
 /// let first = (array![[0.5, -0.2], [0.1, 0.3]], array![0.0, 0.1]);
 /// let second = (array![[1.0, -1.0]], array![0.2]);
 /// let params = (first, second);
@@ -48,12 +48,12 @@ use crate::space::Space;
 pub trait Parametrised: Compose {
     /// Feeds the output of `self: P x A -> B` into `g: Q x B -> C`: the map
     /// `((p, q), a) -> g(q, self(p, a))`, parametrised by the pair. See
-    /// [`Stacked`].
-    fn followed_by<G>(self, g: G) -> Stacked<Self, G>
+    /// [`ThenParametrised`].
+    fn then_parametrised<G>(self, g: G) -> ThenParametrised<Self, G>
     where
         Self: Sized,
     {
-        Stacked {
+        ThenParametrised {
             first: self,
             second: g,
         }
@@ -76,9 +76,9 @@ pub trait Parametrised: Compose {
     /// gradients (the reverse derivative of the copy).
     ///
     /// ```
-    /// use revdiff::{Compose, Map, Mul, Parametrised};
+    /// use revdiff::{Compose, Map, MulPair, Parametrised};
     /// // (w, x) -> w (w x) = w^2 x, from two uses of one weight.
-    /// let twice = Mul.followed_by(Mul).shared();
+    /// let twice = MulPair.then_parametrised(MulPair).shared();
     /// let (dw, dx) = twice.backward(&(3.0_f64, 2.0), &1.0).unwrap();
     /// assert_eq!(twice.forward(&(3.0, 2.0)).unwrap(), 18.0);
     /// assert_eq!((dw, dx), (12.0, 9.0)); // 2 w x and w^2
@@ -128,12 +128,12 @@ pub trait Parametrised: Compose {
     }
 
     /// Fixes all parameters: the ordinary map `a -> self(p, a)`, for
-    /// predictions and for checking the input side alone. See [`Bound`].
-    fn with_parameters<P>(self, p: P) -> Bound<Self, P>
+    /// predictions and for checking the input side alone. See [`WithParameters`].
+    fn with_parameters<P>(self, p: P) -> WithParameters<Self, P>
     where
         Self: Sized,
     {
-        Bound {
+        WithParameters {
             map: self,
             parameters: p,
         }
@@ -148,7 +148,7 @@ impl<T: Compose> Parametrised for T {}
 /// ```
 /// use revdiff::{parameter_free, Affine, Map, Parametrised, Tanh};
 /// use ndarray::array;
-/// let model = Affine.followed_by(parameter_free(Tanh));
+/// let model = Affine.then_parametrised(parameter_free(Tanh));
 /// let params = ((array![[1.0]], array![0.0]), ());
 /// let y = model.forward(&(params, array![0.5])).unwrap();
 /// assert!((y[0] - 0.5_f64.tanh()).abs() < 1e-15);
@@ -158,9 +158,9 @@ pub fn parameter_free<F>(f: F) -> Then<Snd, F> {
 }
 
 /// `first` then `second`, parametrised by the pair of their parameters.
-/// Created by [`Parametrised::followed_by`]; see there for an example.
+/// Created by [`Parametrised::then_parametrised`]; see there for an example.
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Stacked<F, G> {
+pub struct ThenParametrised<F, G> {
     /// The map applied first, `P x A -> B`.
     pub first: F,
     /// The map applied second, `Q x B -> C`.
@@ -172,9 +172,9 @@ pub struct Stacked<F, G> {
 /// [`Parametrised::freeze_first`] and [`Parametrised::freeze_second`].
 ///
 /// ```
-/// use revdiff::{Compose, Exp, Map, Mul, Parametrised};
+/// use revdiff::{Compose, Exp, Map, MulPair, Parametrised};
 /// // A positive scale learnt through its logarithm: (s, x) -> e^s x.
-/// let model = Mul.reparametrised(Exp);
+/// let model = MulPair.reparametrised(Exp);
 /// let (ds, dx) = model.backward(&(0.0_f64, 3.0), &1.0).unwrap();
 /// assert_eq!((ds, dx), (3.0, 1.0));
 /// ```
@@ -190,35 +190,36 @@ pub struct Reparametrised<F, R> {
 /// [`Parametrised::with_parameters`].
 ///
 /// ```
-/// use revdiff::{Map, Mul, Parametrised};
-/// let triple = Mul.with_parameters(3.0_f64);
+/// use revdiff::{Map, MulPair, Parametrised};
+/// let triple = MulPair.with_parameters(3.0_f64);
 /// assert_eq!(triple.forward(&2.0).unwrap(), 6.0);
 /// assert_eq!(triple.backward(&2.0, &1.0).unwrap(), 3.0);
 /// ```
 #[derive(Clone, Debug, Default, PartialEq)]
-pub struct Bound<F, P> {
+pub struct WithParameters<F, P> {
     /// The parametrised map.
     pub map: F,
     /// The fixed parameters.
     pub parameters: P,
 }
 
-impl<F, G> Compose for Stacked<F, G> {}
+impl<F, G> Compose for ThenParametrised<F, G> {}
 impl<F, R> Compose for Reparametrised<F, R> {}
-impl<F, P> Compose for Bound<F, P> {}
+impl<F, P> Compose for WithParameters<F, P> {}
 
 /// `((p, q), a) -> second(q, first(p, a))` written with combinators.
-pub type StackedComposite<F, G> = Then<Pair<Then<Fst, Snd>, Then<Pair<Then<Fst, Fst>, Snd>, F>>, G>;
+pub type ThenParametrisedComposite<F, G> =
+    Then<Pair<Then<Fst, Snd>, Then<Pair<Then<Fst, Fst>, Snd>, F>>, G>;
 
 /// `(q, a) -> map(through(q), a)` written with combinators.
-pub type ReparametrisedComposite<F, R> = Then<Cross<R, Id>, F>;
+pub type ReparametrisedComposite<F, R> = Then<Alongside<R, Id>, F>;
 
 /// `a -> map(p, a)` written with combinators.
-pub type BoundComposite<F, P> = Then<Pair<Constant<P>, Id>, F>;
+pub type WithParametersComposite<F, P> = Then<Pair<Constant<P>, Id>, F>;
 
-impl<F: Clone, G: Clone> Stacked<F, G> {
+impl<F: Clone, G: Clone> ThenParametrised<F, G> {
     /// The equal composite of catalogue combinators.
-    pub fn composite(&self) -> StackedComposite<F, G> {
+    pub fn composite(&self) -> ThenParametrisedComposite<F, G> {
         let first = Then::new(Fst.then(Fst).pair(Snd), self.first.clone());
         Then::new(Fst.then(Snd).pair(first), self.second.clone())
     }
@@ -227,18 +228,18 @@ impl<F: Clone, G: Clone> Stacked<F, G> {
 impl<F: Clone, R: Clone> Reparametrised<F, R> {
     /// The equal composite of catalogue combinators.
     pub fn composite(&self) -> ReparametrisedComposite<F, R> {
-        Then::new(Cross::new(self.through.clone(), Id), self.map.clone())
+        Then::new(Alongside::new(self.through.clone(), Id), self.map.clone())
     }
 }
 
-impl<F: Clone, P: Clone> Bound<F, P> {
+impl<F: Clone, P: Clone> WithParameters<F, P> {
     /// The equal composite of catalogue combinators.
-    pub fn composite(&self) -> BoundComposite<F, P> {
+    pub fn composite(&self) -> WithParametersComposite<F, P> {
         Then::new(Constant(self.parameters.clone()).pair(Id), self.map.clone())
     }
 }
 
-impl<P, Q, A, F, G> Map<((P, Q), A)> for Stacked<F, G>
+impl<P, Q, A, F, G> Map<((P, Q), A)> for ThenParametrised<F, G>
 where
     P: Space,
     Q: Space,
@@ -247,33 +248,33 @@ where
     G: Map<(Q, F::Output)>,
 {
     type Output = G::Output;
-    type Residual = (F::Residual, G::Residual);
+    type Memo = (F::Memo, G::Memo);
     fn forward(&self, ((p, q), a): &((P, Q), A)) -> Result<G::Output> {
         let b = self.first.forward(&(p.clone(), a.clone()))?;
         self.second.forward(&(q.clone(), b))
     }
-    fn forward_keep(&self, ((p, q), a): &((P, Q), A)) -> Result<(G::Output, Self::Residual)> {
-        let (b, rf) = self.first.forward_keep(&(p.clone(), a.clone()))?;
-        let (c, rg) = self.second.forward_keep(&(q.clone(), b))?;
+    fn forward_memo(&self, ((p, q), a): &((P, Q), A)) -> Result<(G::Output, Self::Memo)> {
+        let (b, rf) = self.first.forward_memo(&(p.clone(), a.clone()))?;
+        let (c, rg) = self.second.forward_memo(&(q.clone(), b))?;
         Ok((c, (rf, rg)))
     }
-    fn backward_from(&self, (rf, rg): &Self::Residual, dc: &G::Output) -> Result<((P, Q), A)> {
-        let (dq, db) = self.second.backward_from(rg, dc)?;
-        let (dp, da) = self.first.backward_from(rf, &db)?;
+    fn backward_memo(&self, (rf, rg): &Self::Memo, dc: &G::Output) -> Result<((P, Q), A)> {
+        let (dq, db) = self.second.backward_memo(rg, dc)?;
+        let (dp, da) = self.first.backward_memo(rf, &db)?;
         Ok(((dp, dq), da))
     }
 }
 
-impl<P, Q, A, F, G> Reverse<((P, Q), A)> for Stacked<F, G>
+impl<P, Q, A, F, G> Reverse<((P, Q), A)> for ThenParametrised<F, G>
 where
     P: Space,
     Q: Space,
     A: Space,
     F: Reverse<(P, A)>,
     G: Reverse<(Q, F::Output)>,
-    StackedComposite<F, G>: Reverse<((P, Q), A), Output = G::Output>,
+    ThenParametrisedComposite<F, G>: Reverse<((P, Q), A), Output = G::Output>,
 {
-    type Rev = <StackedComposite<F, G> as Reverse<((P, Q), A)>>::Rev;
+    type Rev = <ThenParametrisedComposite<F, G> as Reverse<((P, Q), A)>>::Rev;
     fn rev(&self) -> Self::Rev {
         self.composite().rev()
     }
@@ -287,19 +288,19 @@ where
     F: Map<(R::Output, A)>,
 {
     type Output = F::Output;
-    type Residual = (R::Residual, F::Residual);
+    type Memo = (R::Memo, F::Memo);
     fn forward(&self, (q, a): &(Q, A)) -> Result<F::Output> {
         let p = self.through.forward(q)?;
         self.map.forward(&(p, a.clone()))
     }
-    fn forward_keep(&self, (q, a): &(Q, A)) -> Result<(F::Output, Self::Residual)> {
-        let (p, rr) = self.through.forward_keep(q)?;
-        let (y, rf) = self.map.forward_keep(&(p, a.clone()))?;
+    fn forward_memo(&self, (q, a): &(Q, A)) -> Result<(F::Output, Self::Memo)> {
+        let (p, rr) = self.through.forward_memo(q)?;
+        let (y, rf) = self.map.forward_memo(&(p, a.clone()))?;
         Ok((y, (rr, rf)))
     }
-    fn backward_from(&self, (rr, rf): &Self::Residual, dy: &F::Output) -> Result<(Q, A)> {
-        let (dp, da) = self.map.backward_from(rf, dy)?;
-        Ok((self.through.backward_from(rr, &dp)?, da))
+    fn backward_memo(&self, (rr, rf): &Self::Memo, dy: &F::Output) -> Result<(Q, A)> {
+        let (dp, da) = self.map.backward_memo(rf, dy)?;
+        Ok((self.through.backward_memo(rr, &dp)?, da))
     }
 }
 
@@ -317,33 +318,33 @@ where
     }
 }
 
-impl<P, A, F> Map<A> for Bound<F, P>
+impl<P, A, F> Map<A> for WithParameters<F, P>
 where
     P: Space,
     A: Space,
     F: Map<(P, A)>,
 {
     type Output = F::Output;
-    type Residual = F::Residual;
+    type Memo = F::Memo;
     fn forward(&self, a: &A) -> Result<F::Output> {
         self.map.forward(&(self.parameters.clone(), a.clone()))
     }
-    fn forward_keep(&self, a: &A) -> Result<(F::Output, F::Residual)> {
-        self.map.forward_keep(&(self.parameters.clone(), a.clone()))
+    fn forward_memo(&self, a: &A) -> Result<(F::Output, F::Memo)> {
+        self.map.forward_memo(&(self.parameters.clone(), a.clone()))
     }
-    fn backward_from(&self, residual: &F::Residual, dy: &F::Output) -> Result<A> {
-        Ok(self.map.backward_from(residual, dy)?.1)
+    fn backward_memo(&self, memo: &F::Memo, dy: &F::Output) -> Result<A> {
+        Ok(self.map.backward_memo(memo, dy)?.1)
     }
 }
 
-impl<P, A, F> Reverse<A> for Bound<F, P>
+impl<P, A, F> Reverse<A> for WithParameters<F, P>
 where
     P: Space,
     A: Space,
     F: Reverse<(P, A)>,
-    BoundComposite<F, P>: Reverse<A, Output = F::Output>,
+    WithParametersComposite<F, P>: Reverse<A, Output = F::Output>,
 {
-    type Rev = <BoundComposite<F, P> as Reverse<A>>::Rev;
+    type Rev = <WithParametersComposite<F, P> as Reverse<A>>::Rev;
     fn rev(&self) -> Self::Rev {
         self.composite().rev()
     }

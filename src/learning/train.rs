@@ -30,11 +30,11 @@ pub struct Examples<T> {
 
 impl<T: Real> Examples<T> {
     /// A dataset from input rows and target rows. Refuses no rows
-    /// ([`Error::Empty`]), different row counts ([`Error::Rows`]) and
+    /// ([`Error::Empty`]), different row counts ([`Error::RowCountMismatch`]) and
     /// non-finite values ([`Error::NonFinite`], naming the row).
     pub fn new(inputs: Array2<T>, targets: Array2<T>) -> Result<Self> {
         if inputs.nrows() != targets.nrows() {
-            return Err(Error::Rows {
+            return Err(Error::RowCountMismatch {
                 inputs: inputs.nrows(),
                 targets: targets.nrows(),
             });
@@ -98,14 +98,19 @@ impl<T: Real> Examples<T> {
 /// What the observer is told after every step.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Progress<T> {
-    /// Steps (parameter updates) taken so far, counting this one.
+    /// The position of this step among all steps of the run (the first
+    /// step is 0).
     pub step: usize,
-    /// The epoch of this step, counting from 1.
+    /// The epoch of this step (the first epoch is 0).
     pub epoch: usize,
     /// Mean loss over this step's batch, at the parameters before the update.
     pub loss: T,
     /// Whether this step ended its epoch.
     pub epoch_finished: bool,
+    /// On the step that ends an epoch: the mean loss of the epoch over all
+    /// its examples (each taken at the parameters of its own step), the
+    /// figure [`Trained::epoch_losses`] records.
+    pub epoch_loss: Option<T>,
     /// At the end of an epoch with early stopping: the mean loss over the
     /// validation rows, after the update.
     pub validation_loss: Option<T>,
@@ -136,15 +141,21 @@ pub struct Interrupted<P> {
     /// What went wrong; a non-finite loss, gradient or update is
     /// [`Error::Diverged`] naming the step.
     pub error: Error,
-    /// The step that failed, counting from 1 (0: before the first step).
-    pub step: usize,
+    /// The step that failed (the first step is 0), or `None` when the run
+    /// was refused before its first step (bad settings or start).
+    pub step: Option<usize>,
     /// The last good parameters.
     pub parameters: P,
 }
 
 impl<P> fmt::Display for Interrupted<P> {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
-        write!(f, "training stopped at step {}: {}", self.step, self.error)
+        // A divergence already names its step and epoch: say it once.
+        match (&self.error, self.step) {
+            (Error::Diverged { .. }, _) => write!(f, "training interrupted: {}", self.error),
+            (_, Some(step)) => write!(f, "training interrupted at step {step}: {}", self.error),
+            (_, None) => write!(f, "training refused before its first step: {}", self.error),
+        }
     }
 }
 
@@ -280,7 +291,7 @@ impl Training {
             Err(error) => {
                 return Err(Interrupted {
                     error,
-                    step: 0,
+                    step: None,
                     parameters: start,
                 });
             }
@@ -291,29 +302,30 @@ impl Training {
                     operation: "training",
                     detail: "in the starting parameters".to_string(),
                 },
-                step: 0,
+                step: None,
                 parameters: start,
             });
         }
 
         let mut params = start;
         let mut order: Vec<usize> = (0..train.len()).collect();
-        let mut step = 0;
+        let mut steps_taken = 0;
         let mut epoch_losses = Vec::with_capacity(self.epochs);
         let mut validation_losses = Vec::new();
         let mut best: Option<(T, P)> = None;
         let mut since_best = 0;
         let mut stopped_early = false;
 
-        for epoch in 1..=self.epochs {
+        for epoch in 0..self.epochs {
             order.shuffle(&mut rng);
             let batches = order.len().div_ceil(self.batch_size);
             let mut epoch_total = T::zero();
             for (b, rows) in order.chunks(self.batch_size).enumerate() {
-                step += 1;
+                let step = steps_taken;
+                steps_taken += 1;
                 let fail = |error: Error, parameters: P| Interrupted {
                     error,
-                    step,
+                    step: Some(step),
                     parameters,
                 };
                 let (batch_loss, gradient) =
@@ -351,11 +363,13 @@ impl Training {
                         Err(e) => return Err(fail(e, params)),
                     }
                 }
+                let epoch_loss = epoch_finished.then(|| epoch_total / count::<T>(order.len()));
                 observer(&Progress {
                     step,
                     epoch,
                     loss: batch_loss,
                     epoch_finished,
+                    epoch_loss,
                     validation_loss,
                 });
                 if let Some(v) = validation_loss {
@@ -370,7 +384,7 @@ impl Training {
             }
             epoch_losses.push(epoch_total / count::<T>(order.len()));
             let stall_epochs = self.hold_out.map_or(usize::MAX, |e| e.stall_epochs);
-            if since_best >= stall_epochs && epoch < self.epochs {
+            if since_best >= stall_epochs && epoch + 1 < self.epochs {
                 stopped_early = true;
                 break;
             }
@@ -379,7 +393,7 @@ impl Training {
         let epochs = epoch_losses.len();
         Ok(Trained {
             parameters: best.map_or(params, |(_, p)| p),
-            steps: step,
+            steps: steps_taken,
             epochs,
             stopped_early,
             epoch_losses,
@@ -434,10 +448,10 @@ where
     let mut gradient: Option<P> = None;
     for &i in rows {
         let (x, t) = data.example(i);
-        let (y, kept_model) = model.forward_keep(&(params.clone(), x))?;
-        let (l, kept_loss) = loss.forward_keep(&(y, t))?;
-        let (dy, _) = loss.backward_from(&kept_loss, &T::one())?;
-        let (dp, _) = model.backward_from(&kept_model, &dy)?;
+        let (y, kept_model) = model.forward_memo(&(params.clone(), x))?;
+        let (l, kept_loss) = loss.forward_memo(&(y, t))?;
+        let (dy, _) = loss.backward_memo(&kept_loss, &T::one())?;
+        let (dp, _) = model.backward_memo(&kept_model, &dy)?;
         total = total + l;
         match gradient.as_mut() {
             Some(g) => g.try_add_assign(&dp)?,

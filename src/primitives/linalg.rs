@@ -4,7 +4,7 @@
 //! [`Error::ShapeMismatch`](crate::Error::ShapeMismatch) naming both shapes.
 //! Nothing is broadcast.
 
-use crate::combinators::{Add, Fst, Pair, Snd, Then};
+use crate::combinators::{AddPair, Fst, Pair, Snd, Then};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Real, shape_tuple};
@@ -212,7 +212,8 @@ pub struct MatrixTranspose;
 pub struct Affine;
 
 /// `((W, b), x) -> W x + b` written with combinators.
-pub type AffineComposite = Then<Pair<Then<Pair<Then<Fst, Fst>, Snd>, MatVec>, Then<Fst, Snd>>, Add>;
+pub type AffineComposite =
+    Then<Pair<Then<Pair<Then<Fst, Fst>, Snd>, MatVec>, Then<Fst, Snd>>, AddPair>;
 
 /// The affine map as a composite of catalogue pieces; equal to [`Affine`].
 pub fn affine_composite() -> AffineComposite {
@@ -220,7 +221,7 @@ pub fn affine_composite() -> AffineComposite {
         .pair(Snd)
         .then(MatVec::plain())
         .pair(Fst.then(Snd))
-        .then(Add)
+        .then(AddPair)
 }
 
 impl Compose for MatVec {}
@@ -231,22 +232,19 @@ impl Compose for Affine {}
 
 impl<T: Real> Map<(Array2<T>, Array1<T>)> for MatVec {
     type Output = Array1<T>;
-    type Residual = (Array2<T>, Array1<T>);
+    type Memo = (Array2<T>, Array1<T>);
     fn forward(&self, (w, x): &(Array2<T>, Array1<T>)) -> Result<Array1<T>> {
         self.apply(w, x)
     }
-    fn forward_keep(&self, input: &(Array2<T>, Array1<T>)) -> Result<(Array1<T>, Self::Residual)> {
+    fn forward_memo(&self, input: &(Array2<T>, Array1<T>)) -> Result<(Array1<T>, Self::Memo)> {
         Ok((self.forward(input)?, input.clone()))
     }
-    fn backward_from(
-        &self,
-        (w, x): &Self::Residual,
-        dy: &Array1<T>,
-    ) -> Result<(Array2<T>, Array1<T>)> {
+    fn backward_memo(&self, (w, x): &Self::Memo, dy: &Array1<T>) -> Result<(Array2<T>, Array1<T>)> {
         let dx = MatVec {
             transposed: !self.transposed,
         }
-        .apply(w, dy)?;
+        .apply(w, dy)
+        .map_err(|e| e.in_output_change("matrix-vector product"))?;
         let dw = Outer {
             swapped: self.transposed,
         }
@@ -274,26 +272,24 @@ impl<T: Real> Reverse<(Array2<T>, Array1<T>)> for MatVec {
 
 impl<T: Real> Map<(Array1<T>, Array1<T>)> for Outer {
     type Output = Array2<T>;
-    type Residual = (Array1<T>, Array1<T>);
+    type Memo = (Array1<T>, Array1<T>);
     fn forward(&self, (a, b): &(Array1<T>, Array1<T>)) -> Result<Array2<T>> {
         Ok(self.apply(a, b))
     }
-    fn forward_keep(&self, input: &(Array1<T>, Array1<T>)) -> Result<(Array2<T>, Self::Residual)> {
+    fn forward_memo(&self, input: &(Array1<T>, Array1<T>)) -> Result<(Array2<T>, Self::Memo)> {
         Ok((self.forward(input)?, input.clone()))
     }
-    fn backward_from(
-        &self,
-        (a, b): &Self::Residual,
-        d: &Array2<T>,
-    ) -> Result<(Array1<T>, Array1<T>)> {
+    fn backward_memo(&self, (a, b): &Self::Memo, d: &Array2<T>) -> Result<(Array1<T>, Array1<T>)> {
         let da = MatVec {
             transposed: self.swapped,
         }
-        .apply(d, b)?;
+        .apply(d, b)
+        .map_err(|e| e.in_output_change("outer product"))?;
         let db = MatVec {
             transposed: !self.swapped,
         }
-        .apply(d, a)?;
+        .apply(d, a)
+        .map_err(|e| e.in_output_change("outer product"))?;
         Ok((da, db))
     }
 }
@@ -317,20 +313,20 @@ impl<T: Real> Reverse<(Array1<T>, Array1<T>)> for Outer {
 
 impl<T: Real> Map<(Array2<T>, Array2<T>)> for MatMul {
     type Output = Array2<T>;
-    type Residual = (Array2<T>, Array2<T>);
+    type Memo = (Array2<T>, Array2<T>);
     fn forward(&self, (a, b): &(Array2<T>, Array2<T>)) -> Result<Array2<T>> {
         self.apply(a, b)
     }
-    fn forward_keep(&self, input: &(Array2<T>, Array2<T>)) -> Result<(Array2<T>, Self::Residual)> {
+    fn forward_memo(&self, input: &(Array2<T>, Array2<T>)) -> Result<(Array2<T>, Self::Memo)> {
         Ok((self.forward(input)?, input.clone()))
     }
-    fn backward_from(
-        &self,
-        (a, b): &Self::Residual,
-        d: &Array2<T>,
-    ) -> Result<(Array2<T>, Array2<T>)> {
+    fn backward_memo(&self, (a, b): &Self::Memo, d: &Array2<T>) -> Result<(Array2<T>, Array2<T>)> {
         let (ga, gb) = self.grads();
-        Ok((ga.apply(d, b)?, gb.apply(d, a)?))
+        let wrong_change = |e: Error| e.in_output_change("matrix product");
+        Ok((
+            ga.apply(d, b).map_err(wrong_change)?,
+            gb.apply(d, a).map_err(wrong_change)?,
+        ))
     }
 }
 
@@ -350,11 +346,11 @@ impl<T: Real> Reverse<(Array2<T>, Array2<T>)> for MatMul {
 
 impl<T: Real> Map<Array2<T>> for MatrixTranspose {
     type Output = Array2<T>;
-    type Residual = ();
-    fn forward_keep(&self, w: &Array2<T>) -> Result<(Array2<T>, ())> {
+    type Memo = ();
+    fn forward_memo(&self, w: &Array2<T>) -> Result<(Array2<T>, ())> {
         Ok((w.t().as_standard_layout().into_owned(), ()))
     }
-    fn backward_from(&self, _: &(), dy: &Array2<T>) -> Result<Array2<T>> {
+    fn backward_memo(&self, _: &(), dy: &Array2<T>) -> Result<Array2<T>> {
         Ok(dy.t().as_standard_layout().into_owned())
     }
 }
@@ -372,7 +368,7 @@ type AffineInput<T> = ((Array2<T>, Array1<T>), Array1<T>);
 
 impl<T: Real> Map<AffineInput<T>> for Affine {
     type Output = Array1<T>;
-    type Residual = (Array2<T>, Array1<T>);
+    type Memo = (Array2<T>, Array1<T>);
     fn forward(&self, ((w, b), x): &AffineInput<T>) -> Result<Array1<T>> {
         let wx = MatVec::plain().apply(w, x)?;
         if wx.len() != b.len() {
@@ -384,13 +380,15 @@ impl<T: Real> Map<AffineInput<T>> for Affine {
         }
         Ok(wx + b)
     }
-    fn forward_keep(&self, input: &AffineInput<T>) -> Result<(Array1<T>, Self::Residual)> {
+    fn forward_memo(&self, input: &AffineInput<T>) -> Result<(Array1<T>, Self::Memo)> {
         let y = self.forward(input)?;
         let ((w, _), x) = input;
         Ok((y, (w.clone(), x.clone())))
     }
-    fn backward_from(&self, (w, x): &Self::Residual, dy: &Array1<T>) -> Result<AffineInput<T>> {
-        let dx = MatVec::transposed().apply(w, dy)?;
+    fn backward_memo(&self, (w, x): &Self::Memo, dy: &Array1<T>) -> Result<AffineInput<T>> {
+        let dx = MatVec::transposed()
+            .apply(w, dy)
+            .map_err(|e| e.in_output_change("affine map"))?;
         let dw = Outer::plain().apply(dy, x);
         Ok(((dw, dy.clone()), dx))
     }

@@ -12,8 +12,9 @@ pub use linalg::{
     OuterRev, affine_composite,
 };
 pub use pointwise::{
-    Abs, Clamp, Cos, Div, DivRev, Exp, Heaviside, InsideBand, Ln, Mul, MulRev, Neg, Powf, Powi,
-    Relu, SechSquared, Sigmoid, Signum, Sin, SlopeTimes, Softplus, Sqrt, Sub, Tanh,
+    Abs, Clamp, Cos, DivPair, DivPairRev, ElementwiseRev, Exp, Heaviside, InsideBand, Ln, MulPair,
+    MulPairRev, Neg, Powf, Powi, Relu, SechSquared, Sigmoid, Signum, Sin, Softplus, Sqrt, SubPair,
+    Tanh,
 };
-pub use reduce::{Dot, FillLike, FillLikeRev, SquaredNorm, Total, dot, squared_norm};
+pub use reduce::{Dot, ElementReduction, FillLike, FillLikeRev, SquaredNorm, dot, squared_norm};
 pub use softmax::{LogSoftmax, LogSoftmaxRev, LogSumExp, LogSumExpRev, Softmax, SoftmaxRev};

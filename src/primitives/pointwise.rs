@@ -13,7 +13,7 @@
 //! Each reverse derivative is `(x, dy) -> slope(x) * dy` with `slope` itself
 //! a primitive of this module, so reverse derivatives of every order exist.
 
-use crate::combinators::{Fst, Id, Pair, Scaling, Snd, Then, ZeroMap};
+use crate::combinators::{Fst, Id, MultiplyBy, Pair, Snd, Then, ZeroMap};
 use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
@@ -66,31 +66,31 @@ pub(crate) fn softplus<T: Real>(x: T) -> T {
 }
 
 /// `(x, dy) -> slope(x) * dy`, where `S` is the map computing `slope`.
-pub type SlopeTimes<S> = Then<Pair<Then<Fst, S>, Snd>, Mul>;
+pub type ElementwiseRev<S> = Then<Pair<Then<Fst, S>, Snd>, MulPair>;
 
 macro_rules! elementwise {
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
         impl<$($gen)*> Map<E> for $ty {
             type Output = E;
-            type Residual = E;
+            type Memo = E;
             fn forward(&self, x: &E) -> Result<E> {
                 Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
             }
-            fn forward_keep(&self, x: &E) -> Result<(E, E)> {
+            fn forward_memo(&self, x: &E) -> Result<(E, E)> {
                 Ok((self.forward(x)?, x.clone()))
             }
-            fn backward_from(&self, x: &E, dy: &E) -> Result<E> {
-                x.zip_elems(dy, <Self as Elementwise<E::Elem>>::NAME, |v, d| {
-                    Elementwise::<E::Elem>::slope(self, v) * d
-                })
+            fn backward_memo(&self, x: &E, dy: &E) -> Result<E> {
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                x.zip_elems(dy, name, |v, d| Elementwise::<E::Elem>::slope(self, v) * d)
+                    .map_err(|e| e.in_output_change(name))
             }
         }
 
         impl<$($gen)*> Reverse<E> for $ty {
-            type Rev = SlopeTimes<$slope_ty>;
+            type Rev = ElementwiseRev<$slope_ty>;
             fn rev(&self) -> Self::Rev {
                 let $s = self;
-                Fst.then($slope).pair(Snd).then(Mul)
+                Fst.then($slope).pair(Snd).then(MulPair)
             }
         }
     };
@@ -155,7 +155,7 @@ impl<T: Real> Elementwise<T> for Sqrt {
         real::<T>(0.5) / x.sqrt()
     }
 }
-elementwise!([E: Pointwise] Sqrt, slope map Powf<E::Elem> = |_s| Powf::scaled(real(0.5), real(-0.5)));
+elementwise!([E: Pointwise] Sqrt, slope map Powf<E::Elem> = |_s| Powf::with_coefficient(real(0.5), real(-0.5)));
 
 /// A scaled integer power `x -> c x^n` (with `c = 1` from [`Powi::new`]).
 ///
@@ -182,7 +182,7 @@ impl<T: Real> Powi<T> {
         Powi { coef: T::one(), n }
     }
     /// `x -> c x^n`.
-    pub fn scaled(coef: T, n: i32) -> Self {
+    pub fn with_coefficient(coef: T, n: i32) -> Self {
         Powi { coef, n }
     }
 }
@@ -203,7 +203,7 @@ impl<T: Real> Elementwise<T> for Powi<T> {
 
 impl<T: Real> Powi<T> {
     fn rev_slope(&self) -> Powi<T> {
-        Powi::scaled(self.coef * real::<T>(f64::from(self.n)), self.n - 1)
+        Powi::with_coefficient(self.coef * real::<T>(f64::from(self.n)), self.n - 1)
     }
 }
 elementwise!([T: Real, E: Pointwise<Elem = T>] Powi<T>, slope map Powi<T> = |s| s.rev_slope());
@@ -231,11 +231,11 @@ impl<T: Real> Powf<T> {
         Powf { coef: T::one(), p }
     }
     /// `x -> c x^p`.
-    pub fn scaled(coef: T, p: T) -> Self {
+    pub fn with_coefficient(coef: T, p: T) -> Self {
         Powf { coef, p }
     }
     fn rev_slope(&self) -> Powf<T> {
-        Powf::scaled(self.coef * self.p, self.p - T::one())
+        Powf::with_coefficient(self.coef * self.p, self.p - T::one())
     }
 }
 
@@ -335,8 +335,8 @@ impl<T: Real> Elementwise<T> for SechSquared {
     }
 }
 elementwise!([E: Pointwise] SechSquared,
-    slope map Then<Then<Pair<Tanh, SechSquared>, Mul>, Scaling<E::Elem>> =
-    |_s| Tanh.pair(SechSquared).then(Mul).then(Scaling(real(-2.0))));
+    slope map Then<Then<Pair<Tanh, SechSquared>, MulPair>, MultiplyBy<E::Elem>> =
+    |_s| Tanh.pair(SechSquared).then(MulPair).then(MultiplyBy(real(-2.0))));
 
 /// The logistic sigmoid `1 / (1 + e^-x)`, computed without overflow for
 /// large `|x|`. Reverse derivative: `s (1 - s) dy` with `s` the sigmoid,
@@ -360,8 +360,8 @@ impl<T: Real> Elementwise<T> for Sigmoid {
     }
 }
 elementwise!([E: Pointwise] Sigmoid,
-    slope map Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, Mul> =
-    |_s| Sigmoid.pair(Neg.then(Sigmoid)).then(Mul));
+    slope map Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, MulPair> =
+    |_s| Sigmoid.pair(Neg.then(Sigmoid)).then(MulPair));
 
 /// `x -> ln(1 + e^x)`, computed as `max(x, 0) + ln(1 + e^-|x|)` so that it
 /// neither overflows nor loses digits. Reverse derivative: `sigmoid(x) dy`.
@@ -563,11 +563,11 @@ impl Compose for Neg {}
 
 impl<E: Pointwise> Map<E> for Neg {
     type Output = E;
-    type Residual = ();
-    fn forward_keep(&self, x: &E) -> Result<(E, ())> {
+    type Memo = ();
+    fn forward_memo(&self, x: &E) -> Result<(E, ())> {
         Ok((x.map_elems(|v| -v), ()))
     }
-    fn backward_from(&self, _: &(), dy: &E) -> Result<E> {
+    fn backward_memo(&self, _: &(), dy: &E) -> Result<E> {
         Ok(dy.map_elems(|v| -v))
     }
 }
@@ -582,75 +582,78 @@ impl<E: Pointwise> Reverse<E> for Neg {
 impl<E: Pointwise> Linear<E> for Neg {}
 
 /// Elementwise subtraction `(a, b) -> a - b`, a linear map. Reverse
-/// derivative: `(dy, -dy)`. (Addition is the structural [`Add`](crate::Add).)
+/// derivative: `(dy, -dy)`. (Addition is the structural [`AddPair`](crate::AddPair).)
 ///
 /// ```
-/// use revdiff::{Map, Sub};
-/// assert_eq!(Sub.forward(&(5.0_f64, 3.0)).unwrap(), 2.0);
-/// assert_eq!(Sub.backward(&(5.0_f64, 3.0), &1.0).unwrap(), (1.0, -1.0));
+/// use revdiff::{Map, SubPair};
+/// assert_eq!(SubPair.forward(&(5.0_f64, 3.0)).unwrap(), 2.0);
+/// assert_eq!(SubPair.backward(&(5.0_f64, 3.0), &1.0).unwrap(), (1.0, -1.0));
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Sub;
+pub struct SubPair;
 
-impl Compose for Sub {}
+impl Compose for SubPair {}
 
-impl<E: Pointwise> Map<(E, E)> for Sub {
+impl<E: Pointwise> Map<(E, E)> for SubPair {
     type Output = E;
-    type Residual = ();
-    fn forward_keep(&self, (a, b): &(E, E)) -> Result<(E, ())> {
+    type Memo = ();
+    fn forward_memo(&self, (a, b): &(E, E)) -> Result<(E, ())> {
         Ok((a.zip_elems(b, "subtraction", |u, v| u - v)?, ()))
     }
-    fn backward_from(&self, _: &(), dy: &E) -> Result<(E, E)> {
+    fn backward_memo(&self, _: &(), dy: &E) -> Result<(E, E)> {
         Ok((dy.clone(), dy.map_elems(|v| -v)))
     }
 }
 
-impl<E: Pointwise> Reverse<(E, E)> for Sub {
+impl<E: Pointwise> Reverse<(E, E)> for SubPair {
     type Rev = Then<Snd, Pair<Id, Neg>>;
     fn rev(&self) -> Self::Rev {
         Snd.then(Id.pair(Neg))
     }
 }
 
-impl<E: Pointwise> Linear<(E, E)> for Sub {}
+impl<E: Pointwise> Linear<(E, E)> for SubPair {}
 
 /// Elementwise multiplication `(a, b) -> a b`. Reverse derivative:
 /// `(b dy, a dy)`.
 ///
 /// ```
-/// use revdiff::{Map, Mul};
-/// assert_eq!(Mul.backward(&(2.0_f64, 3.0), &1.0).unwrap(), (3.0, 2.0));
+/// use revdiff::{Map, MulPair};
+/// assert_eq!(MulPair.backward(&(2.0_f64, 3.0), &1.0).unwrap(), (3.0, 2.0));
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Mul;
+pub struct MulPair;
 
-impl Compose for Mul {}
+impl Compose for MulPair {}
 
-impl<E: Pointwise> Map<(E, E)> for Mul {
+impl<E: Pointwise> Map<(E, E)> for MulPair {
     type Output = E;
-    type Residual = (E, E);
+    type Memo = (E, E);
     fn forward(&self, (a, b): &(E, E)) -> Result<E> {
         a.zip_elems(b, "multiplication", |u, v| u * v)
     }
-    fn forward_keep(&self, x: &(E, E)) -> Result<(E, (E, E))> {
+    fn forward_memo(&self, x: &(E, E)) -> Result<(E, (E, E))> {
         Ok((self.forward(x)?, x.clone()))
     }
-    fn backward_from(&self, (a, b): &(E, E), dy: &E) -> Result<(E, E)> {
+    fn backward_memo(&self, (a, b): &(E, E), dy: &E) -> Result<(E, E)> {
         Ok((
-            b.zip_elems(dy, "multiplication", |u, v| u * v)?,
-            a.zip_elems(dy, "multiplication", |u, v| u * v)?,
+            b.zip_elems(dy, "multiplication", |u, v| u * v)
+                .map_err(|e| e.in_output_change("multiplication"))?,
+            a.zip_elems(dy, "multiplication", |u, v| u * v)
+                .map_err(|e| e.in_output_change("multiplication"))?,
         ))
     }
 }
 
 /// `((a, b), dy) -> (b dy, a dy)`.
-pub type MulRev = Pair<Then<Pair<Then<Fst, Snd>, Snd>, Mul>, Then<Pair<Then<Fst, Fst>, Snd>, Mul>>;
+pub type MulPairRev =
+    Pair<Then<Pair<Then<Fst, Snd>, Snd>, MulPair>, Then<Pair<Then<Fst, Fst>, Snd>, MulPair>>;
 
-impl<E: Pointwise> Reverse<(E, E)> for Mul {
-    type Rev = MulRev;
-    fn rev(&self) -> MulRev {
-        let da = Fst.then(Snd).pair(Snd).then(Mul);
-        let db = Fst.then(Fst).pair(Snd).then(Mul);
+impl<E: Pointwise> Reverse<(E, E)> for MulPair {
+    type Rev = MulPairRev;
+    fn rev(&self) -> MulPairRev {
+        let da = Fst.then(Snd).pair(Snd).then(MulPair);
+        let db = Fst.then(Fst).pair(Snd).then(MulPair);
         da.pair(db)
     }
 }
@@ -659,42 +662,45 @@ impl<E: Pointwise> Reverse<(E, E)> for Mul {
 /// derivative: `(dy / b, -(a / b) (dy / b))`.
 ///
 /// ```
-/// use revdiff::{Div, Map};
-/// assert_eq!(Div.backward(&(1.0_f64, 2.0), &1.0).unwrap(), (0.5, -0.25));
+/// use revdiff::{DivPair, Map};
+/// assert_eq!(DivPair.backward(&(1.0_f64, 2.0), &1.0).unwrap(), (0.5, -0.25));
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Div;
+pub struct DivPair;
 
-impl Compose for Div {}
+impl Compose for DivPair {}
 
-impl<E: Pointwise> Map<(E, E)> for Div {
+impl<E: Pointwise> Map<(E, E)> for DivPair {
     type Output = E;
     /// The divisor and the quotient.
-    type Residual = (E, E);
+    type Memo = (E, E);
     fn forward(&self, (a, b): &(E, E)) -> Result<E> {
         a.zip_elems(b, "division", |u, v| u / v)
     }
-    fn forward_keep(&self, x: &(E, E)) -> Result<(E, (E, E))> {
+    fn forward_memo(&self, x: &(E, E)) -> Result<(E, (E, E))> {
         let q = self.forward(x)?;
         Ok((q.clone(), (x.1.clone(), q)))
     }
-    fn backward_from(&self, (b, q): &(E, E), dy: &E) -> Result<(E, E)> {
-        let da = dy.zip_elems(b, "division", |d, v| d / v)?;
+    fn backward_memo(&self, (b, q): &(E, E), dy: &E) -> Result<(E, E)> {
+        // `b` first, so that a mismatch reports dy as the found shape.
+        let da = b
+            .zip_elems(dy, "division", |v, d| d / v)
+            .map_err(|e| e.in_output_change("division"))?;
         let db = da.zip_elems(q, "division", |d, v| -(d * v))?;
         Ok((da, db))
     }
 }
 
 /// `((a, b), dy) -> dy / b`.
-type DyOverB = Then<Pair<Snd, Then<Fst, Snd>>, Div>;
+type DyOverB = Then<Pair<Snd, Then<Fst, Snd>>, DivPair>;
 
 /// `((a, b), dy) -> (dy / b, -(dy / b) (a / b))`.
-pub type DivRev = Pair<DyOverB, Then<Then<Pair<DyOverB, Then<Fst, Div>>, Mul>, Neg>>;
+pub type DivPairRev = Pair<DyOverB, Then<Then<Pair<DyOverB, Then<Fst, DivPair>>, MulPair>, Neg>>;
 
-impl<E: Pointwise> Reverse<(E, E)> for Div {
-    type Rev = DivRev;
-    fn rev(&self) -> DivRev {
-        let dy_over_b = || Snd.pair(Fst.then(Snd)).then(Div);
-        dy_over_b().pair(dy_over_b().pair(Fst.then(Div)).then(Mul).then(Neg))
+impl<E: Pointwise> Reverse<(E, E)> for DivPair {
+    type Rev = DivPairRev;
+    fn rev(&self) -> DivPairRev {
+        let dy_over_b = || Snd.pair(Fst.then(Snd)).then(DivPair);
+        dy_over_b().pair(dy_over_b().pair(Fst.then(DivPair)).then(MulPair).then(Neg))
     }
 }

@@ -4,7 +4,7 @@
 use crate::combinators::{Duplicate, Fst, Pair, Snd, Then, ZeroMap};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
-use crate::primitives::Mul;
+use crate::primitives::MulPair;
 use crate::space::{Real, shape_tuple};
 use ndarray::{Array, Dimension};
 
@@ -16,27 +16,27 @@ use ndarray::{Array, Dimension};
 /// element count for the mean), which is [`FillLike`].
 ///
 /// ```
-/// use revdiff::{Map, Total};
+/// use revdiff::{Map, ElementReduction};
 /// use ndarray::array;
 /// let x = array![[1.0, 2.0], [3.0, 4.0]];
-/// assert_eq!(Total::sum().forward(&x).unwrap(), 10.0);
-/// assert_eq!(Total::mean().forward(&x).unwrap(), 2.5);
-/// assert_eq!(Total::mean().backward(&x, &1.0).unwrap(), array![[0.25, 0.25], [0.25, 0.25]]);
+/// assert_eq!(ElementReduction::sum().forward(&x).unwrap(), 10.0);
+/// assert_eq!(ElementReduction::mean().forward(&x).unwrap(), 2.5);
+/// assert_eq!(ElementReduction::mean().backward(&x, &1.0).unwrap(), array![[0.25, 0.25], [0.25, 0.25]]);
 /// ```
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Total {
+pub struct ElementReduction {
     /// Divide by the number of elements.
     pub mean: bool,
 }
 
-impl Total {
+impl ElementReduction {
     /// The sum of all elements.
     pub fn sum() -> Self {
-        Total { mean: false }
+        ElementReduction { mean: false }
     }
     /// The mean of all elements.
     pub fn mean() -> Self {
-        Total { mean: true }
+        ElementReduction { mean: true }
     }
     fn divisor<T: Real>(&self, len: usize) -> Result<T> {
         if !self.mean {
@@ -52,7 +52,7 @@ impl Total {
 }
 
 /// `(x, s) -> s` spread over an array shaped like `x` (divided by the
-/// element count of `x` when `mean`): the reverse derivative of [`Total`],
+/// element count of `x` when `mean`): the reverse derivative of [`ElementReduction`],
 /// linear in the pair.
 ///
 /// ```
@@ -79,7 +79,7 @@ impl FillLike {
 }
 
 /// The inner product of two arrays, `(a, b) -> sum a_i b_i`.
-pub type Dot = Then<Mul, Total>;
+pub type Dot = Then<MulPair, ElementReduction>;
 
 /// The inner product of two arrays of the same shape.
 ///
@@ -89,7 +89,7 @@ pub type Dot = Then<Mul, Total>;
 /// assert_eq!(dot().forward(&(array![1.0, 2.0], array![3.0, 4.0])).unwrap(), 11.0);
 /// ```
 pub fn dot() -> Dot {
-    Mul.then(Total::sum())
+    MulPair.then(ElementReduction::sum())
 }
 
 /// The squared Euclidean norm of an array, `x -> sum x_i^2`.
@@ -108,25 +108,25 @@ pub fn squared_norm() -> SquaredNorm {
     Duplicate.then(dot())
 }
 
-impl Compose for Total {}
+impl Compose for ElementReduction {}
 impl Compose for FillLike {}
 
-impl<T: Real, D: Dimension> Map<Array<T, D>> for Total {
+impl<T: Real, D: Dimension> Map<Array<T, D>> for ElementReduction {
     type Output = T;
-    type Residual = D;
+    type Memo = D;
     fn forward(&self, x: &Array<T, D>) -> Result<T> {
         Ok(x.sum() / self.divisor::<T>(x.len())?)
     }
-    fn forward_keep(&self, x: &Array<T, D>) -> Result<(T, D)> {
+    fn forward_memo(&self, x: &Array<T, D>) -> Result<(T, D)> {
         Ok((self.forward(x)?, x.raw_dim()))
     }
-    fn backward_from(&self, dim: &D, dy: &T) -> Result<Array<T, D>> {
+    fn backward_memo(&self, dim: &D, dy: &T) -> Result<Array<T, D>> {
         let fill = *dy / self.divisor::<T>(dim.size())?;
         Ok(Array::from_elem(dim.clone(), fill))
     }
 }
 
-impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Total {
+impl<T: Real, D: Dimension> Reverse<Array<T, D>> for ElementReduction {
     type Rev = FillLike;
     fn rev(&self) -> FillLike {
         FillLike { mean: self.mean }
@@ -135,43 +135,43 @@ impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Total {
 
 impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
     type Output = Array<T, D>;
-    type Residual = D;
+    type Memo = D;
     fn forward(&self, (x, s): &(Array<T, D>, T)) -> Result<Array<T, D>> {
-        let total = Total { mean: self.mean };
+        let total = ElementReduction { mean: self.mean };
         Ok(Array::from_elem(
             x.raw_dim(),
             *s / total.divisor::<T>(x.len())?,
         ))
     }
-    fn forward_keep(&self, input: &(Array<T, D>, T)) -> Result<(Array<T, D>, D)> {
+    fn forward_memo(&self, input: &(Array<T, D>, T)) -> Result<(Array<T, D>, D)> {
         Ok((self.forward(input)?, input.0.raw_dim()))
     }
-    fn backward_from(&self, dim: &D, dy: &Array<T, D>) -> Result<(Array<T, D>, T)> {
+    fn backward_memo(&self, dim: &D, dy: &Array<T, D>) -> Result<(Array<T, D>, T)> {
         if dy.raw_dim() != *dim {
-            return Err(Error::shape(
-                "reverse of a fill",
-                shape_tuple(dim.slice()),
-                shape_tuple(dy.shape()),
-            ));
+            return Err(Error::OutputChangeShape {
+                map: "fill like",
+                expected: shape_tuple(dim.slice()),
+                found: shape_tuple(dy.shape()),
+            });
         }
         Ok((
             Array::zeros(dim.clone()),
-            Total { mean: self.mean }.forward(dy)?,
+            ElementReduction { mean: self.mean }.forward(dy)?,
         ))
     }
 }
 
 /// `((x, s), D) -> (0, total(D))`.
-pub type FillLikeRev = Pair<Then<Then<Fst, Fst>, ZeroMap>, Then<Snd, Total>>;
+pub type FillLikeRev = Pair<Then<Then<Fst, Fst>, ZeroMap>, Then<Snd, ElementReduction>>;
 
 impl<T: Real, D: Dimension> Reverse<(Array<T, D>, T)> for FillLike {
     type Rev = FillLikeRev;
     fn rev(&self) -> FillLikeRev {
         Fst.then(Fst)
             .then(ZeroMap)
-            .pair(Snd.then(Total { mean: self.mean }))
+            .pair(Snd.then(ElementReduction { mean: self.mean }))
     }
 }
 
-impl<T: Real, D: Dimension> Linear<Array<T, D>> for Total {}
+impl<T: Real, D: Dimension> Linear<Array<T, D>> for ElementReduction {}
 impl<T: Real, D: Dimension> Linear<(Array<T, D>, T)> for FillLike {}

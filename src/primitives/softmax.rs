@@ -5,7 +5,7 @@
 use crate::combinators::{Fst, Pair, Snd, Then};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map, Reverse};
-use crate::primitives::{FillLike, Mul, Sub, Total};
+use crate::primitives::{ElementReduction, FillLike, MulPair, SubPair};
 use crate::space::Real;
 use ndarray::{Array, Dimension};
 
@@ -70,35 +70,35 @@ impl Compose for LogSoftmax {}
 
 impl<T: Real, D: Dimension> Map<Array<T, D>> for LogSumExp {
     type Output = T;
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, x: &Array<T, D>) -> Result<(T, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, x: &Array<T, D>) -> Result<(T, Array<T, D>)> {
         let (s, lse) = softmax_parts("log-sum-exp", x)?;
         Ok((lse, s))
     }
-    fn backward_from(&self, s: &Array<T, D>, dy: &T) -> Result<Array<T, D>> {
+    fn backward_memo(&self, s: &Array<T, D>, dy: &T) -> Result<Array<T, D>> {
         Ok(s * *dy)
     }
 }
 
 /// `(x, dy) -> softmax(x) filled-dy`.
-pub type LogSumExpRev = Then<Pair<Then<Fst, Softmax>, FillLike>, Mul>;
+pub type LogSumExpRev = Then<Pair<Then<Fst, Softmax>, FillLike>, MulPair>;
 
 impl<T: Real, D: Dimension> Reverse<Array<T, D>> for LogSumExp {
     type Rev = LogSumExpRev;
     fn rev(&self) -> LogSumExpRev {
-        Fst.then(Softmax).pair(FillLike::sum()).then(Mul)
+        Fst.then(Softmax).pair(FillLike::sum()).then(MulPair)
     }
 }
 
 impl<T: Real, D: Dimension> Map<Array<T, D>> for Softmax {
     type Output = Array<T, D>;
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
         let (s, _) = softmax_parts("softmax", x)?;
         Ok((s.clone(), s))
     }
-    fn backward_from(&self, s: &Array<T, D>, dy: &Array<T, D>) -> Result<Array<T, D>> {
-        crate::space::same_shape("reverse of softmax", s, dy)?;
+    fn backward_memo(&self, s: &Array<T, D>, dy: &Array<T, D>) -> Result<Array<T, D>> {
+        crate::space::same_shape("softmax", s, dy).map_err(|e| e.in_output_change("softmax"))?;
         let sdy = s * dy;
         let total = sdy.sum();
         Ok(sdy - s * total)
@@ -106,51 +106,69 @@ impl<T: Real, D: Dimension> Map<Array<T, D>> for Softmax {
 }
 
 /// `(x, dy) -> s dy` with `s = softmax(x)`.
-type SoftmaxTimesDy = Then<Pair<Then<Fst, Softmax>, Snd>, Mul>;
+type SoftmaxTimesDy = Then<Pair<Then<Fst, Softmax>, Snd>, MulPair>;
 
 /// `(x, dy) -> s dy - s <s, dy>`.
 pub type SoftmaxRev = Then<
     Pair<
         SoftmaxTimesDy,
-        Then<Pair<Then<Fst, Softmax>, Then<Pair<Fst, Then<SoftmaxTimesDy, Total>>, FillLike>>, Mul>,
+        Then<
+            Pair<
+                Then<Fst, Softmax>,
+                Then<Pair<Fst, Then<SoftmaxTimesDy, ElementReduction>>, FillLike>,
+            >,
+            MulPair,
+        >,
     >,
-    Sub,
+    SubPair,
 >;
 
 impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Softmax {
     type Rev = SoftmaxRev;
     fn rev(&self) -> SoftmaxRev {
-        let s_dy = || Fst.then(Softmax).pair(Snd).then(Mul);
-        let spread = Fst.pair(s_dy().then(Total::sum())).then(FillLike::sum());
+        let s_dy = || Fst.then(Softmax).pair(Snd).then(MulPair);
+        let spread = Fst
+            .pair(s_dy().then(ElementReduction::sum()))
+            .then(FillLike::sum());
         s_dy()
-            .pair(Fst.then(Softmax).pair(spread).then(Mul))
-            .then(Sub)
+            .pair(Fst.then(Softmax).pair(spread).then(MulPair))
+            .then(SubPair)
     }
 }
 
 impl<T: Real, D: Dimension> Map<Array<T, D>> for LogSoftmax {
     type Output = Array<T, D>;
-    type Residual = Array<T, D>;
-    fn forward_keep(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
+    type Memo = Array<T, D>;
+    fn forward_memo(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
         let (s, lse) = softmax_parts("log-softmax", x)?;
         Ok((x.mapv(|v| v - lse), s))
     }
-    fn backward_from(&self, s: &Array<T, D>, dy: &Array<T, D>) -> Result<Array<T, D>> {
-        crate::space::same_shape("reverse of log-softmax", s, dy)?;
+    fn backward_memo(&self, s: &Array<T, D>, dy: &Array<T, D>) -> Result<Array<T, D>> {
+        crate::space::same_shape("log-softmax", s, dy)
+            .map_err(|e| e.in_output_change("log-softmax"))?;
         Ok(dy - &(s * dy.sum()))
     }
 }
 
 /// `(x, dy) -> dy - softmax(x) sum(dy)`.
 pub type LogSoftmaxRev = Then<
-    Pair<Snd, Then<Pair<Then<Fst, Softmax>, Then<Pair<Fst, Then<Snd, Total>>, FillLike>>, Mul>>,
-    Sub,
+    Pair<
+        Snd,
+        Then<
+            Pair<Then<Fst, Softmax>, Then<Pair<Fst, Then<Snd, ElementReduction>>, FillLike>>,
+            MulPair,
+        >,
+    >,
+    SubPair,
 >;
 
 impl<T: Real, D: Dimension> Reverse<Array<T, D>> for LogSoftmax {
     type Rev = LogSoftmaxRev;
     fn rev(&self) -> LogSoftmaxRev {
-        let spread = Fst.pair(Snd.then(Total::sum())).then(FillLike::sum());
-        Snd.pair(Fst.then(Softmax).pair(spread).then(Mul)).then(Sub)
+        let spread = Fst
+            .pair(Snd.then(ElementReduction::sum()))
+            .then(FillLike::sum());
+        Snd.pair(Fst.then(Softmax).pair(spread).then(MulPair))
+            .then(SubPair)
     }
 }
