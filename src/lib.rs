@@ -4,7 +4,7 @@
 //! A map `f: A -> B` ([`Map`]) comes with its reverse derivative
 //! `R[f]: A x B -> A`, the transposed Jacobian at a point applied to a
 //! change of the output. Maps compose ([`Compose::then`]), pair up
-//! ([`Compose::pair`]), act side by side ([`Compose::cross`]), add
+//! ([`Compose::pair`]), act side by side ([`Compose::alongside`]), add
 //! ([`Compose::plus`]) and scale ([`Compose::scaled`]); the reverse
 //! derivative of every composite follows from those of its parts, with no
 //! re-derivation.

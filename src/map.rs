@@ -188,7 +188,11 @@ pub trait Linear<A: Space>: Reverse<A> {
 ///
 /// It has no required items: a hand-written map opts in with
 /// `impl Compose for MyMap {}`. The methods do not depend on the input
-/// space, which is why they live here rather than on [`Map`].
+/// space, which is why they live here rather than on [`Map`]. They check at
+/// the composition that the other side is a map of the library (`Compose`);
+/// whether the two fit (one's output is the other's input) depends on the
+/// input type, which a composite learns only where it is applied, so that
+/// is checked there, with a message naming the likely fix.
 #[diagnostic::on_unimplemented(
     message = "`{Self}` is not a map of this library",
     label = "a map must implement `Compose` and `Map`",
@@ -199,6 +203,7 @@ pub trait Compose {
     fn then<G>(self, g: G) -> Then<Self, G>
     where
         Self: Sized,
+        G: Compose,
     {
         Then::new(self, g)
     }
@@ -207,6 +212,7 @@ pub trait Compose {
     fn pair<G>(self, g: G) -> Pair<Self, G>
     where
         Self: Sized,
+        G: Compose,
     {
         Pair::new(self, g)
     }
@@ -215,6 +221,7 @@ pub trait Compose {
     fn alongside<G>(self, g: G) -> Alongside<Self, G>
     where
         Self: Sized,
+        G: Compose,
     {
         Alongside::new(self, g)
     }
@@ -223,6 +230,7 @@ pub trait Compose {
     fn plus<G>(self, g: G) -> Plus<Self, G>
     where
         Self: Sized,
+        G: Compose,
     {
         Plus::new(self, g)
     }
@@ -233,6 +241,7 @@ pub trait Compose {
     fn reversed_through<C>(self, composite: C) -> ReversedThrough<Self, C>
     where
         Self: Sized,
+        C: Compose,
     {
         ReversedThrough::new(self, composite)
     }

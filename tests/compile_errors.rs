@@ -1,4 +1,4 @@
-//! The compile errors of the five most common mistakes, checked against the
+//! The compile errors of the most common mistakes, checked against the
 //! messages in tests/ui/*.stderr so that they cannot silently get worse.
 //! After an intended change of a message, regenerate them with
 //! `TRYBUILD=overwrite cargo test --test compile_errors` and review the diff.

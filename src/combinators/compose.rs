@@ -63,7 +63,7 @@ impl<F, G> Pair<F, G> {
 
 /// The product `f x g`, acting on pairs: `(a, c) -> (f(a), g(c))`.
 ///
-/// Created by [`Compose::cross`].
+/// Created by [`Compose::alongside`].
 ///
 /// ```
 /// use revdiff::{Compose, Exp, Map, Sin};

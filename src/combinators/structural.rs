@@ -71,7 +71,7 @@ pub fn duplicate() -> Duplicate {
 }
 
 /// The addition of a space, `(a, b) -> a + b`, on any [`Space`]. Created by
-/// [`add`]; its backward copies the change to both slots.
+/// [`add_pair`]; its backward copies the change to both slots.
 ///
 /// ```
 /// use revdiff::{add_pair, Map};

@@ -52,6 +52,7 @@ pub trait Parametrised: Compose {
     fn then_parametrised<G>(self, g: G) -> ThenParametrised<Self, G>
     where
         Self: Sized,
+        G: Compose,
     {
         ThenParametrised {
             first: self,
@@ -64,6 +65,7 @@ pub trait Parametrised: Compose {
     fn reparametrised<R>(self, r: R) -> Reparametrised<Self, R>
     where
         Self: Sized,
+        R: Compose,
     {
         Reparametrised {
             map: self,
@@ -153,7 +155,7 @@ impl<T: Compose> Parametrised for T {}
 /// let y = model.forward(&(params, array![0.5])).unwrap();
 /// assert!((y[0] - 0.5_f64.tanh()).abs() < 1e-15);
 /// ```
-pub fn parameter_free<F>(f: F) -> Then<Snd, F> {
+pub fn parameter_free<F: Compose>(f: F) -> Then<Snd, F> {
     Snd.then(f)
 }
 
