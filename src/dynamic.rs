@@ -139,7 +139,7 @@ struct Stage<T> {
 /// let err = chain.push_affine(Array2::zeros((5, 3)), Array1::zeros(5)).unwrap_err();
 /// assert_eq!(
 ///     err.to_string(),
-///     "stage 5 of the chain (affine (5, 3)) expects input of shape (3,), but stage 4 produces shape (2,)"
+///     "stage 4 of the chain (affine (5, 3)) expects input of shape (3,), but the output of stage 3 has shape (2,)"
 /// );
 /// assert_eq!(chain.len(), 4); // the chain is as it was
 ///
