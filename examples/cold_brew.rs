@@ -18,7 +18,7 @@
 //! Run with `cargo run --release --example cold_brew [OUTPUT.svg]`; the plot
 //! goes to `target/cold_brew_fit.svg` by default.
 
-use ndarray::{Array1, Array2, array};
+use ndarray::{Array, Array1, Array2, Dimension, array};
 use plotters::prelude::*;
 use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
@@ -30,30 +30,31 @@ use revdiff::{
 use std::error::Error as StdError;
 
 /// The user's primitive `((h, n), t) -> t^n / (h^n + t^n)` for every
-/// element of `t`, computed as `sigmoid(n ln(t / h))` so that it neither
+/// element of `t` (a vector of times, or a batch of them as a matrix of
+/// rows: the map is elementwise, so one impl serves both), computed as `sigmoid(n ln(t / h))` so that it neither
 /// overflows nor loses digits. Domain: `t > 0`, `h > 0`.
 #[derive(Clone, Debug)]
 struct Rise;
 
 impl Compose for Rise {}
 
-type RiseInput = ((f64, f64), Array1<f64>);
+type RiseInput<D> = ((f64, f64), Array<f64, D>);
 
 /// What the backward pass needs: `n`, `h`, `ln(t / h)`, `t`, and the slope
 /// `f (1 - f)` of the sigmoid at each element.
 #[derive(Clone, Debug)]
-struct RiseKept {
+struct RiseKept<D: Dimension> {
     n: f64,
     h: f64,
-    log_ratio: Array1<f64>,
-    t: Array1<f64>,
-    slope: Array1<f64>,
+    log_ratio: Array<f64, D>,
+    t: Array<f64, D>,
+    slope: Array<f64, D>,
 }
 
-impl Map<RiseInput> for Rise {
-    type Output = Array1<f64>;
-    type Memo = RiseKept;
-    fn forward_memo(&self, ((h, n), t): &RiseInput) -> Result<(Array1<f64>, RiseKept)> {
+impl<D: Dimension> Map<RiseInput<D>> for Rise {
+    type Output = Array<f64, D>;
+    type Memo = RiseKept<D>;
+    fn forward_memo(&self, ((h, n), t): &RiseInput<D>) -> Result<(Array<f64, D>, RiseKept<D>)> {
         let log_ratio = t.mapv(|ti| (ti / h).ln());
         let f = log_ratio.mapv(|l| 1.0 / (1.0 + (-n * l).exp()));
         let slope = f.mapv(|fi| fi * (1.0 - fi));
@@ -66,7 +67,7 @@ impl Map<RiseInput> for Rise {
         };
         Ok((f, kept))
     }
-    fn backward_memo(&self, k: &RiseKept, dy: &Array1<f64>) -> Result<RiseInput> {
+    fn backward_memo(&self, k: &RiseKept<D>, dy: &Array<f64, D>) -> Result<RiseInput<D>> {
         // f = sigmoid(z), z = n ln(t / h): dz/dh = -n / h, dz/dn = ln(t / h), dz/dt = n / t.
         let dz = &k.slope * dy;
         let dh = -k.n / k.h * dz.sum();

@@ -344,7 +344,8 @@ impl<T: Real> Map<ArrayD<T>> for FixedAffine<T> {
         ))
     }
     fn backward_memo(&self, r: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        let (_, dx) = Affine.backward_memo(r, &as_vector(dy)?)?;
+        let (_, dx) =
+            Map::<((Array2<T>, Array1<T>), Array1<T>)>::backward_memo(&Affine, r, &as_vector(dy)?)?;
         Ok(dx.into_dyn())
     }
 }

@@ -74,7 +74,7 @@ pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use learning::*;
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
-pub use space::{Euclidean, Pointwise, Real, Scalable, Space};
+pub use space::{Euclidean, Pointwise, Real, RunVisitor, Scalable, Space};
 
 /// The README's code, compiled and run as doc-tests.
 #[cfg(doctest)]

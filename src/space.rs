@@ -139,6 +139,10 @@ pub trait Scalable<S>: Space {
     fn scale(&self, s: S) -> Self;
 }
 
+/// What [`Euclidean::zip_runs_mut`] calls for each run: the flat position
+/// of the run's first coordinate, the run of `self` and the run of `other`.
+pub type RunVisitor<'v, R> = dyn FnMut(usize, &mut [R], &[R]) + 'v;
+
 /// A real space with an inner product and a flat list of coordinates.
 ///
 /// Coordinates are listed in a fixed order (tuple components left to right,
@@ -197,6 +201,43 @@ pub trait Euclidean<R: Real>: Scalable<R> {
     /// Whether every coordinate is finite.
     fn all_finite(&self) -> bool {
         self.coordinates().iter().all(|c| c.is_finite())
+    }
+
+    /// Walks the coordinates of `self` (mutably) and of `other` together, in
+    /// coordinate order and in runs that are contiguous in both: `visit`
+    /// gets the flat position of each run's first coordinate (counted from
+    /// `offset`) and the two runs. Returns the position after the last run.
+    /// The shapes must agree, or nothing is visited and the result is an
+    /// error.
+    ///
+    /// This is how optimisers update parameters in place, with no flat
+    /// copies. The default goes through flat copies (correct for any space);
+    /// the crate's spaces visit their own memory.
+    fn zip_runs_mut(
+        &mut self,
+        other: &Self,
+        offset: usize,
+        visit: &mut RunVisitor<'_, R>,
+    ) -> Result<usize> {
+        let mut mine = self.coordinates();
+        let theirs = other.coordinates();
+        if mine.len() != theirs.len() {
+            return Err(Error::CoordinateCount {
+                operation: "walking two values together",
+                expected: mine.len(),
+                found: theirs.len(),
+            });
+        }
+        visit(offset, &mut mine, &theirs);
+        *self = self.rebuild_from_coordinates(&mine)?;
+        Ok(offset + theirs.len())
+    }
+
+    /// Overwrites `self` with `other`, reusing `self`'s memory. The shapes
+    /// must agree.
+    fn copy_from(&mut self, other: &Self) -> Result<()> {
+        self.zip_runs_mut(other, 0, &mut |_, a, b| a.copy_from_slice(b))?;
+        Ok(())
     }
 
     /// The squared Euclidean norm `<self, self>`.
@@ -265,6 +306,15 @@ macro_rules! real_scalar_space {
             }
             fn all_finite(&self) -> bool {
                 self.is_finite()
+            }
+            fn zip_runs_mut(
+                &mut self,
+                other: &Self,
+                offset: usize,
+                visit: &mut RunVisitor<'_, $t>,
+            ) -> Result<usize> {
+                visit(offset, std::slice::from_mut(self), std::slice::from_ref(other));
+                Ok(offset + 1)
             }
         }
         impl Pointwise for $t {
@@ -374,6 +424,26 @@ impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
     fn all_finite(&self) -> bool {
         self.iter().all(|v| v.is_finite())
     }
+    fn zip_runs_mut(
+        &mut self,
+        other: &Self,
+        offset: usize,
+        visit: &mut RunVisitor<'_, T>,
+    ) -> Result<usize> {
+        same_shape("walking two arrays together", self, other)?;
+        let n = self.len();
+        match (self.as_slice_mut(), other.as_slice()) {
+            (Some(a), Some(b)) => visit(offset, a, b),
+            // Not both in standard layout: one coordinate at a time, still
+            // in logical row-major order.
+            _ => {
+                for (i, (a, b)) in self.iter_mut().zip(other.iter()).enumerate() {
+                    visit(offset + i, std::slice::from_mut(a), std::slice::from_ref(b));
+                }
+            }
+        }
+        Ok(offset + n)
+    }
 }
 
 impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
@@ -459,6 +529,28 @@ impl<S: Euclidean<R>, R: Real, const N: usize> Euclidean<R> for [S; N] {
             expected: N,
             found: 0,
         })
+    }
+    fn zip_runs_mut(
+        &mut self,
+        other: &Self,
+        offset: usize,
+        visit: &mut RunVisitor<'_, R>,
+    ) -> Result<usize> {
+        // Check every part first, so that a refusal visits nothing.
+        for (a, b) in self.iter().zip(other) {
+            if a.dimension() != b.dimension() {
+                return Err(Error::CoordinateCount {
+                    operation: "walking two fixed-size arrays together",
+                    expected: a.dimension(),
+                    found: b.dimension(),
+                });
+            }
+        }
+        let mut at = offset;
+        for (a, b) in self.iter_mut().zip(other) {
+            at = a.zip_runs_mut(b, at, visit)?;
+        }
+        Ok(at)
     }
 }
 
@@ -552,6 +644,24 @@ macro_rules! tuple_space {
             }
             fn all_finite(&self) -> bool {
                 true $(&& self.$idx.all_finite())+
+            }
+            fn zip_runs_mut(
+                &mut self,
+                other: &Self,
+                offset: usize,
+                visit: &mut RunVisitor<'_, R>,
+            ) -> Result<usize> {
+                // Check every part first, so that a refusal visits nothing.
+                $(if self.$idx.dimension() != other.$idx.dimension() {
+                    return Err(Error::CoordinateCount {
+                        operation: "walking two tuples together",
+                        expected: self.$idx.dimension(),
+                        found: other.$idx.dimension(),
+                    });
+                })+
+                let at = offset;
+                $(let at = self.$idx.zip_runs_mut(&other.$idx, at, visit)?;)+
+                Ok(at)
             }
         }
     };

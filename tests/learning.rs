@@ -81,7 +81,7 @@ fn loss_values_match_their_definitions() {
         1e-15,
     );
 
-    // Alongside-entropy with a one-hot target is minus the log of the softmax.
+    // Cross-entropy with a one-hot target is minus the log of the softmax.
     let z = array![0.3, -1.2, 2.5];
     let onehot = array![0.0, 1.0, 0.0];
     let softmax_1 = (-1.2_f64).exp() / z.iter().map(|v: &f64| v.exp()).sum::<f64>();
@@ -658,24 +658,33 @@ fn the_observer_sees_every_step_in_order_and_each_epoch_end() {
             &mut GradientDescent::new(0.1).unwrap(),
             start(),
             &data,
-            |p| seen.push(*p),
+            |p| {
+                seen.push((
+                    p.step,
+                    p.epoch,
+                    p.epoch_finished,
+                    p.loss,
+                    p.validation_loss,
+                    p.parameters.clone(),
+                ))
+            },
         )
         .unwrap();
     // 10 rows in batches of 4: 3 steps an epoch.
     assert_eq!(run.steps, 9);
     assert_eq!(
-        seen.iter().map(|p| p.step).collect::<Vec<_>>(),
+        seen.iter().map(|p| p.0).collect::<Vec<_>>(),
         (0..9).collect::<Vec<_>>()
     );
     assert_eq!(
-        seen.iter().map(|p| p.epoch).collect::<Vec<_>>(),
+        seen.iter().map(|p| p.1).collect::<Vec<_>>(),
         vec![0, 0, 0, 1, 1, 1, 2, 2, 2]
     );
-    assert_eq!(seen.iter().filter(|p| p.epoch_finished).count(), 3);
-    assert!(
-        seen.iter()
-            .all(|p| p.validation_loss.is_none() && p.loss.is_finite())
-    );
+    assert_eq!(seen.iter().filter(|p| p.2).count(), 3);
+    assert!(seen.iter().all(|p| p.4.is_none() && p.3.is_finite()));
+    // The observer sees the parameters after each step: the last are the result.
+    assert_eq!(seen.last().unwrap().5, run.parameters);
+    assert_ne!(seen[0].5, start());
     assert_eq!(run.epoch_losses.len(), 3);
     assert!(run.epoch_losses[2] < run.epoch_losses[0]);
 }
@@ -704,16 +713,16 @@ fn the_same_seed_gives_the_same_run_and_another_seed_another() {
 
 #[test]
 fn a_non_finite_loss_stops_the_run_naming_the_step_and_keeping_the_last_good_parameters() {
-    // (w, x) -> ln(w x): one large step sends w below zero, and the next
-    // loss is NaN. One full batch a step, so step 2 is in epoch 2.
-    let model = MulPair.then(Ln);
+    // (w, x) -> ln(w x), row by row: one large step sends w below zero,
+    // and the next loss is NaN. One full batch a step, so step 1 is in epoch 1.
+    let model = Rowwise::new(MulPair.then(Ln));
     let data = Examples::new(array![[1.0], [2.0]], array![[-5.0], [-5.0]]).unwrap();
     let trainer = Training::new(5, 2).unwrap();
     let mut one_step = GradientDescent::new(10.0).unwrap();
     let after_one = trainer
         .run(
             &model,
-            &SquaredError::new(),
+            &RowMean::new(SquaredError::new()),
             &mut one_step,
             array![1.0],
             &data,
@@ -729,22 +738,28 @@ fn a_non_finite_loss_stops_the_run_naming_the_step_and_keeping_the_last_good_par
         }
     );
     assert_eq!(after_one.step, Some(1));
-    // The parameters returned are those after step 1, which are finite and
-    // are what one step from the start gives.
+    // The parameters after step 0 are finite but give a NaN loss (w < 0), so
+    // they are not returned: the start is the most recent with a finite loss.
     let mut fresh = GradientDescent::new(10.0).unwrap();
     let one = Training::new(1, 2)
         .unwrap()
         .run(
             &model,
-            &SquaredError::new(),
+            &RowMean::new(SquaredError::new()),
             &mut fresh,
             array![1.0],
             &data,
             |_| {},
         )
         .unwrap();
-    assert_eq!(after_one.parameters, one.parameters);
-    assert!(after_one.parameters[0] < 0.0);
+    assert!(one.parameters[0] < 0.0);
+    assert_eq!(after_one.parameters, array![1.0]);
+    let input = (after_one.parameters.clone(), data.inputs().clone());
+    let predicted = model.forward(&input).unwrap();
+    let loss: f64 = RowMean::new(SquaredError::new())
+        .forward(&(predicted, data.targets().clone()))
+        .unwrap();
+    assert!(loss.is_finite());
     // The message names the step once, counting from 0.
     assert_eq!(
         after_one.to_string(),
@@ -755,13 +770,13 @@ fn a_non_finite_loss_stops_the_run_naming_the_step_and_keeping_the_last_good_par
 #[test]
 fn a_non_finite_gradient_stops_the_run_at_the_first_step_with_the_start() {
     // sqrt(w x) at w = 0: the loss is finite, its slope is not.
-    let model = MulPair.then(Sqrt);
+    let model = Rowwise::new(MulPair.then(Sqrt));
     let data = Examples::new(array![[1.0]], array![[1.0]]).unwrap();
     let err = Training::new(1, 1)
         .unwrap()
         .run(
             &model,
-            &SquaredError::new(),
+            &RowMean::new(SquaredError::new()),
             &mut Adam::new(0.1).unwrap(),
             array![0.0],
             &data,
@@ -783,7 +798,7 @@ fn a_non_finite_gradient_stops_the_run_at_the_first_step_with_the_start() {
         .unwrap()
         .run(
             &model,
-            &SquaredError::new(),
+            &RowMean::new(SquaredError::new()),
             &mut Adam::new(0.1).unwrap(),
             array![f64::NAN],
             &data,

@@ -32,7 +32,7 @@ use crate::primitives::{
     Clamp, Dot, ElementReduction, LogSumExp, MulPair, Powi, Softplus, SubPair, dot,
 };
 use crate::space::{Real, same_shape};
-use ndarray::{Array, Dimension, Zip};
+use ndarray::{Array, Axis, Dimension, Ix1, Zip};
 
 /// A prediction and its target, arrays of the same shape.
 type Pairs<T, D> = (Array<T, D>, Array<T, D>);
@@ -89,12 +89,16 @@ impl Default for SquaredError {
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct MeanSquaredError;
 
-/// Alongside-entropy of the softmax of logits `z` against a target distribution
+/// Cross-entropy of the softmax of logits `z` against a target distribution
 /// `t`: `(z, t) -> -sum_i t_i log softmax(z)_i`, computed as
 /// `sum(t) logsumexp(z) - <t, z>`, finite for logits of any size.
 ///
 /// Reverse derivative: `((sum(t) softmax(z) - t) dl, (logsumexp(z) - z) dl)`.
-/// An empty pair of arrays is an [`Error::Empty`]. See the
+/// An empty pair of arrays is an [`Error::Empty`].
+///
+/// On a matrix, each row is one example's logits and the rows' losses add
+/// up (softmax is taken per row, never across a batch). The reverse
+/// derivative as a map ([`Reverse`]) is for one example, a vector. See the
 /// [module example](self).
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct LogitCrossEntropy;
@@ -295,25 +299,41 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
 
 impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
     type Output = T;
-    /// `(sum(t) softmax(z) - t, logsumexp(z) - z)`: the change per unit `dl`.
+    /// `(sum(t) softmax(z) - t, logsumexp(z) - z)` per row: the change per unit `dl`.
     type Memo = Pairs<T, D>;
     fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
         let (z, t) = input;
         same_shape("cross-entropy on logits", z, t)?;
         nonempty("cross-entropy on logits", z)?;
-        let m = z.fold(T::neg_infinity(), |m, &v| m.max(v));
-        let e = z.mapv(|v| (v - m).exp());
-        let total = e.sum();
-        let lse = m + total.ln();
-        let mass = t.sum();
-        let value = mass * lse
-            - Zip::from(z)
-                .and(t)
-                .fold(T::zero(), |acc, &a, &b| acc + a * b);
-        let dz = Zip::from(&e)
-            .and(t)
-            .map_collect(|&ei, &ti| mass * ei / total - ti);
-        let dt = z.mapv(|v| lse - v);
+        // Each lane along the last axis is one example's logits: a vector is
+        // one example, the rows of a matrix are a batch, whose losses add.
+        let last = Axis(z.ndim() - 1);
+        let mut dz = Array::zeros(z.raw_dim());
+        let mut dt = Array::zeros(z.raw_dim());
+        let mut value = T::zero();
+        for (((zl, tl), mut dzl), mut dtl) in z
+            .lanes(last)
+            .into_iter()
+            .zip(t.lanes(last))
+            .zip(dz.lanes_mut(last))
+            .zip(dt.lanes_mut(last))
+        {
+            let m = zl.fold(T::neg_infinity(), |m, &v| m.max(v));
+            let total = zl.fold(T::zero(), |acc, &v| acc + (v - m).exp());
+            let lse = m + total.ln();
+            let mass = tl.sum();
+            value = value + mass * lse
+                - Zip::from(&zl)
+                    .and(&tl)
+                    .fold(T::zero(), |acc, &a, &b| acc + a * b);
+            Zip::from(&mut dzl)
+                .and(&zl)
+                .and(&tl)
+                .for_each(|d, &zi, &ti| *d = mass * (zi - m).exp() / total - ti);
+            Zip::from(&mut dtl)
+                .and(&zl)
+                .for_each(|d, &zi| *d = lse - zi);
+        }
         Ok((value, (dz, dt)))
     }
     fn backward_memo(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
@@ -365,10 +385,13 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for Huber<T> {
 
 macro_rules! reverse_through_composite {
     ($ty:ty, $composite:ty, [$($gen:tt)*]) => {
-        impl<$($gen)*> Reverse<Pairs<T, D>> for $ty {
-            type Rev = <$composite as Reverse<Pairs<T, D>>>::Rev;
+        reverse_through_composite!($ty, $composite, [$($gen)*], D);
+    };
+    ($ty:ty, $composite:ty, [$($gen:tt)*], $dim:ty) => {
+        impl<$($gen)*> Reverse<Pairs<T, $dim>> for $ty {
+            type Rev = <$composite as Reverse<Pairs<T, $dim>>>::Rev;
             fn rev(&self) -> Self::Rev {
-                Reverse::<Pairs<T, D>>::rev(&self.composite())
+                Reverse::<Pairs<T, $dim>>::rev(&self.composite())
             }
         }
     };
@@ -376,7 +399,10 @@ macro_rules! reverse_through_composite {
 
 reverse_through_composite!(SquaredError, SquaredErrorComposite<T>, [T: Real, D: Dimension]);
 reverse_through_composite!(MeanSquaredError, MeanSquaredErrorComposite, [T: Real, D: Dimension]);
-reverse_through_composite!(LogitCrossEntropy, LogitCrossEntropyComposite, [T: Real, D: Dimension]);
+// On a batch the loss is a sum of per-row log-sum-exps, which the
+// composite (one log-sum-exp over the whole array) is not: second order is
+// for single examples.
+reverse_through_composite!(LogitCrossEntropy, LogitCrossEntropyComposite, [T: Real], Ix1);
 reverse_through_composite!(
     LogitBinaryCrossEntropy,
     LogitBinaryCrossEntropyComposite,

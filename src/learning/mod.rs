@@ -13,6 +13,7 @@ pub mod least_squares;
 pub mod loss;
 pub mod optimise;
 pub mod parametrised;
+pub mod rows;
 pub mod schedule;
 pub mod train;
 
@@ -25,5 +26,6 @@ pub use optimise::{Adagrad, Adam, GradientDescent, Momentum, Nesterov, Optimiser
 pub use parametrised::{
     Parametrised, Reparametrised, ThenParametrised, WithParameters, parameter_free,
 };
+pub use rows::{RowMean, Rowwise};
 pub use schedule::Schedule;
-pub use train::{Examples, Interrupted, Progress, Trained, Training};
+pub use train::{Examples, Interrupted, ObserverVerdict, Progress, Trained, Training};

@@ -16,8 +16,10 @@ use crate::space::{Euclidean, Real};
 
 /// A stateful update rule for parameters, given their gradient.
 ///
-/// Implement [`Optimiser::step_coordinates`]; [`Optimiser::update`] does the
-/// flattening, the checks and the rebuilding.
+/// Implement [`begin_update`](Optimiser::begin_update) (state and step
+/// count) and [`step_run`](Optimiser::step_run) (the rule, on one run of
+/// coordinates); [`update_in_place`](Optimiser::update_in_place) does the
+/// checks and walks the parameters' own memory, so an update copies nothing.
 ///
 /// # Example
 ///
@@ -44,9 +46,15 @@ use crate::space::{Euclidean, Real};
     note = "the optimisers are `GradientDescent`, `Momentum`, `Nesterov`, `Adagrad`, `RmsProp` and `Adam`; pass one by `&mut`, with the same float type as the data"
 )]
 pub trait Optimiser<R: Real> {
-    /// Moves `params` in place, given the gradient at them (same length).
-    /// Implementations count the step.
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()>;
+    /// Starts an update of `dimension` coordinates: makes the state on first
+    /// use, checks its size after that, and counts the step. Called once per
+    /// update, before [`step_run`](Optimiser::step_run).
+    fn begin_update(&mut self, dimension: usize) -> Result<()>;
+
+    /// Moves one run of coordinates in place, given their gradient; `offset`
+    /// is the flat position of the run's first coordinate, which locates its
+    /// state. Runs of one update never overlap.
+    fn step_run(&mut self, offset: usize, params: &mut [R], gradient: &[R]);
 
     /// Number of updates made so far.
     fn steps_taken(&self) -> usize;
@@ -54,56 +62,8 @@ pub trait Optimiser<R: Real> {
     /// Forgets the state and the step count, as if newly made.
     fn reset(&mut self);
 
-    /// The parameters after one update with `gradient`. Returns an error,
-    /// with the state unchanged, if the gradient is shaped differently from
-    /// the parameters or is not finite.
-    fn update<P: Euclidean<R>>(&mut self, params: &P, gradient: &P) -> Result<P>
-    where
-        Self: Sized,
-    {
-        let mut coords = params.coordinates();
-        let grad = gradient.coordinates();
-        if grad.len() != coords.len() {
-            return Err(Error::CoordinateCount {
-                operation: "optimiser update (gradient against parameters)",
-                expected: coords.len(),
-                found: grad.len(),
-            });
-        }
-        if let Some(i) = grad.iter().position(|g| !g.is_finite()) {
-            return Err(Error::NonFinite {
-                operation: "optimiser update",
-                detail: format!("{} at gradient coordinate {i}", grad[i]),
-            });
-        }
-        self.step_coordinates(&mut coords, &grad)?;
-        params.rebuild_from_coordinates(&coords)
-    }
-}
-
-/// State vectors of one length, made at the first update.
-#[derive(Clone, Debug, PartialEq)]
-struct State<R, const K: usize> {
-    vectors: [Vec<R>; K],
-    steps: usize,
-}
-
-impl<R: Real, const K: usize> State<R, K> {
-    fn new() -> Self {
-        State {
-            vectors: std::array::from_fn(|_| Vec::new()),
-            steps: 0,
-        }
-    }
-
-    /// Makes the state on first use and checks lengths; returns the rate of
-    /// this step and the 1-based step number.
-    fn begin(
-        &mut self,
-        schedule: &Schedule<R>,
-        params: &[R],
-        gradient: &[R],
-    ) -> Result<(R, usize)> {
+    /// Moves flat `params` in place, given the gradient at them (same length).
+    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
         if params.len() != gradient.len() {
             return Err(Error::CoordinateCount {
                 operation: "optimiser step (gradient against parameters)",
@@ -111,25 +71,103 @@ impl<R: Real, const K: usize> State<R, K> {
                 found: gradient.len(),
             });
         }
+        self.begin_update(params.len())?;
+        self.step_run(0, params, gradient);
+        Ok(())
+    }
+
+    /// Updates `params` in place with `gradient`, with no copies: the
+    /// optimiser walks both values' memory together
+    /// ([`Euclidean::zip_runs_mut`]). Returns an error, with parameters and
+    /// state unchanged, if the gradient is shaped differently from the
+    /// parameters or is not finite.
+    fn update_in_place<P: Euclidean<R>>(&mut self, params: &mut P, gradient: &P) -> Result<()>
+    where
+        Self: Sized,
+    {
+        let n = params.dimension();
+        if gradient.dimension() != n {
+            return Err(Error::CoordinateCount {
+                operation: "optimiser update (gradient against parameters)",
+                expected: n,
+                found: gradient.dimension(),
+            });
+        }
+        if !gradient.all_finite() {
+            let coords = gradient.coordinates();
+            let i = coords.iter().position(|g| !g.is_finite()).unwrap_or(0);
+            return Err(Error::NonFinite {
+                operation: "optimiser update",
+                detail: format!("{} at gradient coordinate {i}", coords[i]),
+            });
+        }
+        // Shapes are checked before the step is counted.
+        params.zip_runs_mut(gradient, 0, &mut |_, _, _| {})?;
+        self.begin_update(n)?;
+        params.zip_runs_mut(gradient, 0, &mut |at, p, g| self.step_run(at, p, g))?;
+        Ok(())
+    }
+
+    /// The parameters after one update with `gradient`, as a new value;
+    /// see [`update_in_place`](Optimiser::update_in_place).
+    fn update<P: Euclidean<R>>(&mut self, params: &P, gradient: &P) -> Result<P>
+    where
+        Self: Sized,
+    {
+        let mut next = params.clone();
+        self.update_in_place(&mut next, gradient)?;
+        Ok(next)
+    }
+}
+
+/// State vectors of one length, made at the first update, and the rate and
+/// step number of the update in progress.
+#[derive(Clone, Debug, PartialEq)]
+struct State<R, const K: usize> {
+    vectors: [Vec<R>; K],
+    steps: usize,
+    rate: R,
+}
+
+impl<R: Real, const K: usize> State<R, K> {
+    fn new() -> Self {
+        State {
+            vectors: std::array::from_fn(|_| Vec::new()),
+            steps: 0,
+            rate: R::zero(),
+        }
+    }
+
+    /// Makes the state on first use, checks its length after that, counts
+    /// the step and sets its rate.
+    fn begin(&mut self, schedule: &Schedule<R>, dimension: usize) -> Result<()> {
         if self.steps == 0 {
             for v in &mut self.vectors {
-                *v = vec![R::zero(); params.len()];
+                *v = vec![R::zero(); dimension];
             }
-        } else if K > 0 && self.vectors[0].len() != params.len() {
+        } else if K > 0 && self.vectors[0].len() != dimension {
             return Err(Error::CoordinateCount {
                 operation: "optimiser step (parameters against the optimiser's state)",
                 expected: self.vectors[0].len(),
-                found: params.len(),
+                found: dimension,
             });
         }
-        let rate = schedule.rate_at(self.steps);
+        self.rate = schedule.rate_at(self.steps);
         self.steps += 1;
-        Ok((rate, self.steps))
+        Ok(())
+    }
+
+    /// State vector `k` over the run at `offset` of length `len`.
+    fn run(&mut self, k: usize, offset: usize, len: usize) -> &mut [R] {
+        &mut self.vectors[k][offset..offset + len]
     }
 }
 
 macro_rules! bookkeeping {
     () => {
+        fn begin_update(&mut self, dimension: usize) -> Result<()> {
+            self.state.begin(&self.schedule, dimension)
+        }
         fn steps_taken(&self) -> usize {
             self.state.steps
         }
@@ -201,12 +239,11 @@ impl<R: Real> GradientDescent<R> {
 }
 
 impl<R: Real> Optimiser<R> for GradientDescent<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-        let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
+    fn step_run(&mut self, _: usize, params: &mut [R], gradient: &[R]) {
+        let rate = self.state.rate;
         for (p, g) in params.iter_mut().zip(gradient) {
             *p = *p - rate * *g;
         }
-        Ok(())
     }
     bookkeeping!();
 }
@@ -261,16 +298,14 @@ impl<R: Real> Velocity<R> {
     }
 
     /// `v <- mu v + g`, then a step along `v` or, looking ahead, along `g + mu v`.
-    fn step(&mut self, params: &mut [R], gradient: &[R], look_ahead: bool) -> Result<()> {
-        let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
-        let mu = self.momentum;
-        let [v] = &mut self.state.vectors;
+    fn step(&mut self, offset: usize, params: &mut [R], gradient: &[R], look_ahead: bool) {
+        let (rate, mu) = (self.state.rate, self.momentum);
+        let v = self.state.run(0, offset, params.len());
         for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
             *v = mu * *v + *g;
             let direction = if look_ahead { *g + mu * *v } else { *v };
             *p = *p - rate * direction;
         }
-        Ok(())
     }
 }
 
@@ -291,8 +326,12 @@ macro_rules! momentum_rule {
         }
 
         impl<R: Real> Optimiser<R> for $ty<R> {
-            fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-                self.velocity.step(params, gradient, $look_ahead)
+            fn begin_update(&mut self, dimension: usize) -> Result<()> {
+                let v = &mut self.velocity;
+                v.state.begin(&v.schedule, dimension)
+            }
+            fn step_run(&mut self, offset: usize, params: &mut [R], gradient: &[R]) {
+                self.velocity.step(offset, params, gradient, $look_ahead)
             }
             fn steps_taken(&self) -> usize {
                 self.velocity.state.steps
@@ -338,11 +377,10 @@ impl<R: Real> Adagrad<R> {
 }
 
 impl<R: Real> Optimiser<R> for Adagrad<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-        let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
-        let [s] = &mut self.state.vectors;
-        root_scaled_step(params, gradient, s, (rate, self.epsilon), |s, g| s + g * g);
-        Ok(())
+    fn step_run(&mut self, offset: usize, params: &mut [R], gradient: &[R]) {
+        let (rate, epsilon) = (self.state.rate, self.epsilon);
+        let s = self.state.run(0, offset, params.len());
+        root_scaled_step(params, gradient, s, (rate, epsilon), |s, g| s + g * g);
     }
     bookkeeping!();
 }
@@ -385,14 +423,12 @@ impl<R: Real> RmsProp<R> {
 }
 
 impl<R: Real> Optimiser<R> for RmsProp<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-        let (rate, _) = self.state.begin(&self.schedule, params, gradient)?;
-        let [s] = &mut self.state.vectors;
-        let keep = self.decay;
-        root_scaled_step(params, gradient, s, (rate, self.epsilon), |s, g| {
+    fn step_run(&mut self, offset: usize, params: &mut [R], gradient: &[R]) {
+        let (rate, epsilon, keep) = (self.state.rate, self.epsilon, self.decay);
+        let s = self.state.run(0, offset, params.len());
+        root_scaled_step(params, gradient, s, (rate, epsilon), |s, g| {
             keep * s + (R::one() - keep) * g * g
         });
-        Ok(())
     }
     bookkeeping!();
 }
@@ -443,13 +479,15 @@ impl<R: Real> Adam<R> {
 }
 
 impl<R: Real> Optimiser<R> for Adam<R> {
-    fn step_coordinates(&mut self, params: &mut [R], gradient: &[R]) -> Result<()> {
-        let (rate, t) = self.state.begin(&self.schedule, params, gradient)?;
-        let t = i32::try_from(t).unwrap_or(i32::MAX);
+    fn step_run(&mut self, offset: usize, params: &mut [R], gradient: &[R]) {
+        let (rate, epsilon) = (self.state.rate, self.epsilon);
+        let t = i32::try_from(self.state.steps).unwrap_or(i32::MAX);
         let (b1, b2) = (self.beta1, self.beta2);
         let correction1 = R::one() - b1.powi(t);
         let correction2 = R::one() - b2.powi(t);
+        let len = params.len();
         let [m, v] = &mut self.state.vectors;
+        let (m, v) = (&mut m[offset..offset + len], &mut v[offset..offset + len]);
         for (((p, g), m), v) in params
             .iter_mut()
             .zip(gradient)
@@ -460,9 +498,8 @@ impl<R: Real> Optimiser<R> for Adam<R> {
             *v = b2 * *v + (R::one() - b2) * *g * *g;
             let m_hat = *m / correction1;
             let v_hat = *v / correction2;
-            *p = *p - rate * m_hat / (v_hat.sqrt() + self.epsilon);
+            *p = *p - rate * m_hat / (v_hat.sqrt() + epsilon);
         }
-        Ok(())
     }
     bookkeeping!();
 }

@@ -11,6 +11,7 @@ use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
 use std::borrow::Cow;
 use std::fmt;
+use std::ops::ControlFlow;
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
@@ -97,23 +98,46 @@ impl<T: Real> Examples<T> {
 
 /// What the observer is told after every step.
 #[derive(Clone, Copy, Debug, PartialEq)]
-pub struct Progress<T> {
+pub struct Progress<'a, T, P> {
     /// The position of this step among all steps of the run (the first
     /// step is 0).
     pub step: usize,
     /// The epoch of this step (the first epoch is 0).
     pub epoch: usize,
-    /// Mean loss over this step's batch, at the parameters before the update.
+    /// The loss of this step's batch, at the parameters before the update.
     pub loss: T,
     /// Whether this step ended its epoch.
     pub epoch_finished: bool,
-    /// On the step that ends an epoch: the mean loss of the epoch over all
-    /// its examples (each taken at the parameters of its own step), the
-    /// figure [`Trained::epoch_losses`] records.
+    /// On the step that ends an epoch: the epoch's loss, the mean of its
+    /// batch losses weighted by their row counts (each taken at the
+    /// parameters of its own step), the figure [`Trained::epoch_losses`]
+    /// records.
     pub epoch_loss: Option<T>,
-    /// At the end of an epoch with early stopping: the mean loss over the
+    /// At the end of an epoch with early stopping: the loss over the
     /// validation rows, after the update.
     pub validation_loss: Option<T>,
+    /// The parameters after this step's update.
+    pub parameters: &'a P,
+}
+
+/// What an observer's return value says about the run: `()` lets it go
+/// on; [`ControlFlow::Break`] stops it after the step just reported, with
+/// [`Trained::stopped_by_observer`] set.
+pub trait ObserverVerdict {
+    /// Whether the run should stop now.
+    fn stops(&self) -> bool;
+}
+
+impl ObserverVerdict for () {
+    fn stops(&self) -> bool {
+        false
+    }
+}
+
+impl ObserverVerdict for ControlFlow<()> {
+    fn stops(&self) -> bool {
+        self.is_break()
+    }
 }
 
 /// A finished training run.
@@ -124,18 +148,21 @@ pub struct Trained<P, T> {
     pub parameters: P,
     /// Parameter updates made.
     pub steps: usize,
-    /// Epochs run.
+    /// Epochs run (an epoch the observer stopped counts).
     pub epochs: usize,
     /// Whether early stopping ended the run before the last epoch.
     pub stopped_early: bool,
-    /// Mean training loss of each epoch, over its examples.
+    /// Whether the observer stopped the run.
+    pub stopped_by_observer: bool,
+    /// The loss of each finished epoch: the mean of its batch losses
+    /// weighted by their row counts.
     pub epoch_losses: Vec<T>,
     /// Validation loss after each epoch (empty without early stopping).
     pub validation_losses: Vec<T>,
 }
 
-/// A training run that could not go on; no work is lost: `parameters` are the
-/// last good ones (those before the refused update).
+/// A training run that could not go on. No work is lost: `parameters` are
+/// the most recent good ones, whose loss over the training rows is finite.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Interrupted<P> {
     /// What went wrong; a non-finite loss, gradient or update is
@@ -144,7 +171,9 @@ pub struct Interrupted<P> {
     /// The step that failed (the first step is 0), or `None` when the run
     /// was refused before its first step (bad settings or start).
     pub step: Option<usize>,
-    /// The last good parameters.
+    /// The most recent parameters with a finite loss over the training
+    /// rows: those before the failing step when they qualify, else those at
+    /// the end of the last finished epoch, else the start.
     pub parameters: P,
 }
 
@@ -260,54 +289,65 @@ impl Training {
         Ok(self)
     }
 
-    /// Trains `model: P x R^n -> B` on `data` under `loss: B x R^k -> T`,
-    /// starting from `start`; `observer` is called after every step.
+    /// Trains `model: P x (batch of input rows) -> B` on `data` under
+    /// `loss: B x (batch of target rows) -> T`, starting from `start`;
+    /// `observer` sees every step and the parameters after it, and can stop
+    /// the run by returning [`ControlFlow::Break`].
     ///
-    /// Each step averages the loss and the parameter gradient over a batch
-    /// (one forward and one backward pass per row) and hands the gradient to
-    /// the optimiser. A non-finite loss, gradient or updated parameter stops
-    /// the run with [`Error::Diverged`]; any error comes back as
-    /// [`Interrupted`] holding the last good parameters.
-    pub fn run<T, P, B, M, L, O>(
+    /// Each step sends one minibatch through the model as one batch (a
+    /// matrix whose rows are examples): one forward and one backward pass,
+    /// whose parameter change is the gradient of the batch's loss as the
+    /// loss map defines it ([`MeanSquaredError`](crate::MeanSquaredError)
+    /// averages over the batch, [`SquaredError`](crate::SquaredError) sums
+    /// over it). The optimiser updates the parameters in place. A model
+    /// written for one example trains through [`Rowwise`](crate::Rowwise),
+    /// a per-example loss through [`RowMean`](crate::RowMean).
+    ///
+    /// A non-finite loss, gradient or updated parameter stops the run with
+    /// [`Error::Diverged`]; any error comes back as [`Interrupted`] holding
+    /// the most recent parameters with a finite training loss.
+    pub fn run<T, P, B, M, L, O, V>(
         &self,
         model: &M,
         loss: &L,
         optimiser: &mut O,
         start: P,
         data: &Examples<T>,
-        mut observer: impl FnMut(&Progress<T>),
+        mut observer: impl FnMut(&Progress<'_, T, P>) -> V,
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
         T: Real,
         P: Euclidean<T>,
         B: Space,
-        M: Map<(P, Array1<T>), Output = B>,
-        L: Map<(B, Array1<T>), Output = T>,
+        M: Map<(P, Array2<T>), Output = B>,
+        L: Map<(B, Array2<T>), Output = T>,
         O: Optimiser<T>,
+        V: ObserverVerdict,
     {
+        let refuse = |error, parameters| Interrupted {
+            error,
+            step: None,
+            parameters,
+        };
         let mut rng = StdRng::seed_from_u64(self.seed);
         let (train, validation) = match self.split(data, &mut rng) {
             Ok(parts) => parts,
-            Err(error) => {
-                return Err(Interrupted {
-                    error,
-                    step: None,
-                    parameters: start,
-                });
-            }
+            Err(error) => return Err(refuse(error, start)),
         };
         if !start.all_finite() {
-            return Err(Interrupted {
-                error: Error::NonFinite {
-                    operation: "training",
-                    detail: "in the starting parameters".to_string(),
-                },
-                step: None,
-                parameters: start,
-            });
+            let error = Error::NonFinite {
+                operation: "training",
+                detail: "in the starting parameters".to_string(),
+            };
+            return Err(refuse(error, start));
         }
 
-        let mut params = start;
+        // The fallbacks for an interrupted run, made once: the start and a
+        // copy refreshed (in place) at the end of every epoch.
+        let kept_start = start.clone();
+        let mut epoch_snapshot = start.clone();
+        let mut batch = Batch::new(&train);
+        let mut input: (P, Array2<T>) = (start, Array2::zeros((0, train.inputs.ncols())));
         let mut order: Vec<usize> = (0..train.len()).collect();
         let mut steps_taken = 0;
         let mut epoch_losses = Vec::with_capacity(self.epochs);
@@ -315,6 +355,7 @@ impl Training {
         let mut best: Option<(T, P)> = None;
         let mut since_best = 0;
         let mut stopped_early = false;
+        let mut stopped_by_observer = false;
 
         for epoch in 0..self.epochs {
             order.shuffle(&mut rng);
@@ -323,79 +364,99 @@ impl Training {
             for (b, rows) in order.chunks(self.batch_size).enumerate() {
                 let step = steps_taken;
                 steps_taken += 1;
-                let fail = |error: Error, parameters: P| Interrupted {
-                    error,
-                    step: Some(step),
-                    parameters,
-                };
-                let (batch_loss, gradient) =
-                    match batch_gradient(model, loss, &params, &train, rows) {
-                        Ok(lg) => lg,
-                        Err(e) => return Err(fail(e, params)),
-                    };
                 let diverged = |quantity| Error::Diverged {
                     step,
                     epoch,
                     quantity,
                 };
+                // `fresh`: whether the parameters in `input` are those
+                // before this step (nothing has moved them yet).
+                let fail = |error: Error, input: (P, Array2<T>), fresh: bool| {
+                    let candidates = [
+                        fresh.then_some(input.0),
+                        Some(epoch_snapshot.clone()),
+                        Some(kept_start.clone()),
+                    ];
+                    Interrupted {
+                        error,
+                        step: Some(step),
+                        parameters: first_with_finite_loss(model, loss, &train, self, candidates)
+                            .unwrap_or_else(|| kept_start.clone()),
+                    }
+                };
+                batch.gather(&train, rows, &mut input.1);
+                let (batch_loss, gradient) = match batch.gradient(model, loss, &input) {
+                    Ok(lg) => lg,
+                    Err(e) => return Err(fail(e, input, true)),
+                };
                 if !batch_loss.is_finite() {
-                    return Err(fail(diverged("loss"), params));
+                    return Err(fail(diverged("loss"), input, true));
                 }
                 if !gradient.all_finite() {
-                    return Err(fail(diverged("gradient"), params));
+                    return Err(fail(diverged("gradient"), input, true));
                 }
-                let updated = match optimiser.update(&params, &gradient) {
-                    Ok(p) => p,
-                    Err(e) => return Err(fail(e, params)),
-                };
-                if !updated.all_finite() {
-                    return Err(fail(diverged("updated parameters"), params));
+                if let Err(e) = optimiser.update_in_place(&mut input.0, &gradient) {
+                    return Err(fail(e, input, true));
                 }
-                params = updated;
+                if !input.0.all_finite() {
+                    return Err(fail(diverged("updated parameters"), input, false));
+                }
                 epoch_total = epoch_total + batch_loss * count::<T>(rows.len());
 
                 let epoch_finished = b + 1 == batches;
                 let mut validation_loss = None;
                 if let (true, Some(valid)) = (epoch_finished, &validation) {
-                    match mean_loss(model, loss, &params, valid) {
+                    match mean_loss(model, loss, &input.0, valid, self.batch_size) {
                         Ok(v) if v.is_finite() => validation_loss = Some(v),
-                        Ok(_) => return Err(fail(diverged("validation loss"), params)),
-                        Err(e) => return Err(fail(e, params)),
+                        Ok(_) => return Err(fail(diverged("validation loss"), input, false)),
+                        Err(e) => return Err(fail(e, input, false)),
                     }
                 }
                 let epoch_loss = epoch_finished.then(|| epoch_total / count::<T>(order.len()));
-                observer(&Progress {
+                let verdict = observer(&Progress {
                     step,
                     epoch,
                     loss: batch_loss,
                     epoch_finished,
                     epoch_loss,
                     validation_loss,
+                    parameters: &input.0,
                 });
                 if let Some(v) = validation_loss {
                     validation_losses.push(v);
                     if best.as_ref().is_none_or(|(b, _)| v < *b) {
-                        best = Some((v, params.clone()));
+                        best = Some((v, input.0.clone()));
                         since_best = 0;
                     } else {
                         since_best += 1;
                     }
                 }
+                if let Some(mean) = epoch_loss {
+                    epoch_losses.push(mean);
+                    // Same shape, so this only copies.
+                    let _ = epoch_snapshot.copy_from(&input.0);
+                }
+                if verdict.stops() {
+                    stopped_by_observer = true;
+                    break;
+                }
             }
-            epoch_losses.push(epoch_total / count::<T>(order.len()));
             let stall_epochs = self.hold_out.map_or(usize::MAX, |e| e.stall_epochs);
+            if stopped_by_observer {
+                break;
+            }
             if since_best >= stall_epochs && epoch + 1 < self.epochs {
                 stopped_early = true;
                 break;
             }
         }
 
-        let epochs = epoch_losses.len();
         Ok(Trained {
-            parameters: best.map_or(params, |(_, p)| p),
+            parameters: best.map_or(input.0, |(_, p)| p),
             steps: steps_taken,
-            epochs,
+            epochs: epoch_losses.len().max(usize::from(stopped_by_observer)),
             stopped_early,
+            stopped_by_observer,
             epoch_losses,
             validation_losses,
         })
@@ -429,56 +490,111 @@ fn count<T: Real>(n: usize) -> T {
     T::from(n).expect("row counts fit every real type")
 }
 
-/// Mean loss and mean parameter gradient over the given rows.
-fn batch_gradient<T, P, B, M, L>(
+/// The batch buffers of a run, reused from step to step.
+struct Batch<T> {
+    targets: Array2<T>,
+}
+
+impl<T: Real> Batch<T> {
+    fn new(data: &Examples<T>) -> Self {
+        Batch {
+            targets: Array2::zeros((0, data.targets.ncols())),
+        }
+    }
+
+    /// Copies the given rows of the inputs into `inputs` and of the targets
+    /// into the kept target buffer, reallocating only when the batch size
+    /// changes (the last batch of an epoch may be smaller).
+    fn gather(&mut self, data: &Examples<T>, rows: &[usize], inputs: &mut Array2<T>) {
+        gather_rows(&data.inputs, rows, inputs);
+        gather_rows(&data.targets, rows, &mut self.targets);
+    }
+
+    /// The batch loss and its parameter gradient: one forward and one
+    /// backward pass of the model and of the loss.
+    fn gradient<P, B, M, L>(
+        &mut self,
+        model: &M,
+        loss: &L,
+        input: &(P, Array2<T>),
+    ) -> Result<(T, P)>
+    where
+        P: Euclidean<T>,
+        B: Space,
+        M: Map<(P, Array2<T>), Output = B>,
+        L: Map<(B, Array2<T>), Output = T>,
+    {
+        let (y, model_memo) = model.forward_memo(input)?;
+        // The targets move into the loss's input and back: no copy.
+        let targets = std::mem::replace(&mut self.targets, Array2::zeros((0, 0)));
+        let pair = (y, targets);
+        let result = loss.forward_memo(&pair);
+        self.targets = pair.1;
+        let (l, loss_memo) = result?;
+        let (dy, _) = loss.backward_memo(&loss_memo, &T::one())?;
+        let (dp, _) = model.backward_memo(&model_memo, &dy)?;
+        Ok((l, dp))
+    }
+}
+
+fn gather_rows<T: Real>(from: &Array2<T>, rows: &[usize], into: &mut Array2<T>) {
+    if into.dim() != (rows.len(), from.ncols()) {
+        *into = Array2::zeros((rows.len(), from.ncols()));
+    }
+    for (mut row, &r) in into.rows_mut().into_iter().zip(rows) {
+        row.assign(&from.row(r));
+    }
+}
+
+/// The mean loss per row over all of `data`, in batches: each batch's loss
+/// weighted by its row count.
+fn mean_loss<T, P, B, M, L>(
     model: &M,
     loss: &L,
     params: &P,
     data: &Examples<T>,
-    rows: &[usize],
-) -> Result<(T, P)>
-where
-    T: Real,
-    P: Euclidean<T>,
-    B: Space,
-    M: Map<(P, Array1<T>), Output = B>,
-    L: Map<(B, Array1<T>), Output = T>,
-{
-    let mut total = T::zero();
-    let mut gradient: Option<P> = None;
-    for &i in rows {
-        let (x, t) = data.example(i);
-        let (y, kept_model) = model.forward_memo(&(params.clone(), x))?;
-        let (l, kept_loss) = loss.forward_memo(&(y, t))?;
-        let (dy, _) = loss.backward_memo(&kept_loss, &T::one())?;
-        let (dp, _) = model.backward_memo(&kept_model, &dy)?;
-        total = total + l;
-        match gradient.as_mut() {
-            Some(g) => g.try_add_assign(&dp)?,
-            None => gradient = Some(dp),
-        }
-    }
-    let n = count::<T>(rows.len());
-    let gradient = gradient.ok_or(Error::Empty {
-        operation: "training batch",
-    })?;
-    Ok((total / n, gradient.scale(T::one() / n)))
-}
-
-/// Mean loss over all rows of `data`, forward passes only.
-fn mean_loss<T, P, B, M, L>(model: &M, loss: &L, params: &P, data: &Examples<T>) -> Result<T>
+    batch_size: usize,
+) -> Result<T>
 where
     T: Real,
     P: Space,
     B: Space,
-    M: Map<(P, Array1<T>), Output = B>,
-    L: Map<(B, Array1<T>), Output = T>,
+    M: Map<(P, Array2<T>), Output = B>,
+    L: Map<(B, Array2<T>), Output = T>,
 {
+    let rows: Vec<usize> = (0..data.len()).collect();
+    let mut input = (params.clone(), Array2::zeros((0, data.inputs.ncols())));
+    let mut targets = Array2::zeros((0, data.targets.ncols()));
     let mut total = T::zero();
-    for i in 0..data.len() {
-        let (x, t) = data.example(i);
-        let y = model.forward(&(params.clone(), x))?;
-        total = total + loss.forward(&(y, t))?;
+    for chunk in rows.chunks(batch_size) {
+        gather_rows(&data.inputs, chunk, &mut input.1);
+        gather_rows(&data.targets, chunk, &mut targets);
+        let y = model.forward(&input)?;
+        let pair = (y, targets);
+        let l = loss.forward(&pair);
+        targets = pair.1;
+        total = total + l? * count::<T>(chunk.len());
     }
     Ok(total / count::<T>(data.len()))
+}
+
+/// The first candidate whose mean training loss is finite.
+fn first_with_finite_loss<T, P, B, M, L, const N: usize>(
+    model: &M,
+    loss: &L,
+    data: &Examples<T>,
+    training: &Training,
+    candidates: [Option<P>; N],
+) -> Option<P>
+where
+    T: Real,
+    P: Space,
+    B: Space,
+    M: Map<(P, Array2<T>), Output = B>,
+    L: Map<(B, Array2<T>), Output = T>,
+{
+    candidates
+        .into_iter()
+        .flatten()
+        .find(|p| mean_loss(model, loss, p, data, training.batch_size).is_ok_and(|l| l.is_finite()))
 }

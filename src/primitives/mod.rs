@@ -2,11 +2,16 @@
 //! softmax. Each reverse derivative is assembled from primitives of this
 //! catalogue and combinators, so every order exists.
 
+mod batch;
 mod linalg;
 pub(crate) mod pointwise;
 mod reduce;
 mod softmax;
 
+pub use batch::{
+    AffineBatch, AffineBatchComposite, ColumnSums, RepeatRows, RepeatRowsRev,
+    affine_batch_composite,
+};
 pub use linalg::{
     Affine, AffineComposite, MatMul, MatMulRev, MatVec, MatVecRev, MatrixTranspose, Outer,
     OuterRev, affine_composite,

@@ -69,6 +69,37 @@ pub(crate) fn softplus<T: Real>(x: T) -> T {
 pub type ElementwiseRev<S> = Then<Pair<Then<Fst, S>, Snd>, MulPair>;
 
 macro_rules! elementwise {
+    // Maps whose slope is cheap from the output keep the output, not the
+    // input: the backward pass then recomputes nothing.
+    ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr,
+     slope from output |$y:ident| $from_output:expr) => {
+        impl<$($gen)*> Map<E> for $ty {
+            type Output = E;
+            type Memo = E;
+            fn forward(&self, x: &E) -> Result<E> {
+                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
+            }
+            fn forward_memo(&self, x: &E) -> Result<(E, E)> {
+                let y = self.forward(x)?;
+                Ok((y.clone(), y))
+            }
+            fn backward_memo(&self, y: &E, dy: &E) -> Result<E> {
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                y.zip_elems(dy, name, |$y, d| $from_output * d)
+                    .map_err(|e| e.in_output_change(name))
+            }
+        }
+        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
+    };
+    (@reverse [$($gen:tt)*] $ty:ty, $slope_ty:ty, |$s:ident| $slope:expr) => {
+        impl<$($gen)*> Reverse<E> for $ty {
+            type Rev = ElementwiseRev<$slope_ty>;
+            fn rev(&self) -> Self::Rev {
+                let $s = self;
+                Fst.then($slope).pair(Snd).then(MulPair)
+            }
+        }
+    };
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
         impl<$($gen)*> Map<E> for $ty {
             type Output = E;
@@ -85,14 +116,7 @@ macro_rules! elementwise {
                     .map_err(|e| e.in_output_change(name))
             }
         }
-
-        impl<$($gen)*> Reverse<E> for $ty {
-            type Rev = ElementwiseRev<$slope_ty>;
-            fn rev(&self) -> Self::Rev {
-                let $s = self;
-                Fst.then($slope).pair(Snd).then(MulPair)
-            }
-        }
+        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
 }
 
@@ -312,7 +336,8 @@ impl<T: Real> Elementwise<T> for Tanh {
         SechSquared.value(x)
     }
 }
-elementwise!([E: Pointwise] Tanh, slope map SechSquared = |_s| SechSquared);
+elementwise!([E: Pointwise] Tanh, slope map SechSquared = |_s| SechSquared,
+    slope from output |t| <E::Elem as num_traits::One>::one() - t * t);
 
 /// `x -> sech(x)^2 = 1 - tanh(x)^2`, the slope of [`Tanh`]. Reverse
 /// derivative: `-2 sech(x)^2 tanh(x) dy`.

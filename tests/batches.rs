@@ -1,0 +1,258 @@
+//! Models on batches (rows are examples), the per-row liftings, and the
+//! training loop that sends each minibatch through the model at once.
+
+use ndarray::{Array1, Array2, array};
+use revdiff::laws::Checker;
+use revdiff::laws::strategies::{matrices, vectors};
+use revdiff::*;
+use std::ops::ControlFlow;
+
+fn near(a: &Array2<f64>, b: &Array2<f64>, tol: f64) -> bool {
+    a.shape() == b.shape() && a.iter().zip(b).all(|(x, y)| (x - y).abs() <= tol)
+}
+
+#[test]
+fn the_batched_affine_map_is_the_per_row_map_on_every_row() {
+    let w = array![[1.0, -2.0, 0.5], [0.0, 3.0, 1.0]];
+    let b = array![0.25, -1.0];
+    let x = array![
+        [1.0, 2.0, 3.0],
+        [-1.0, 0.5, 2.0],
+        [0.0, 0.0, 1.0],
+        [4.0, -3.0, 0.0]
+    ];
+    let batched = Affine
+        .forward(&((w.clone(), b.clone()), x.clone()))
+        .unwrap();
+    for (i, row) in x.rows().into_iter().enumerate() {
+        let one = Affine
+            .forward(&((w.clone(), b.clone()), row.to_owned()))
+            .unwrap();
+        assert_eq!(batched.row(i), one);
+    }
+    // The backward pass: the parameter change is the sum of the rows' changes.
+    let dy = array![[1.0, 0.0], [0.5, -1.0], [0.0, 2.0], [1.0, 1.0]];
+    let ((dw, db), dx) = Affine
+        .backward(&((w.clone(), b.clone()), x.clone()), &dy)
+        .unwrap();
+    let mut sum_dw = Array2::zeros((2, 3));
+    let mut sum_db = Array1::zeros(2);
+    for i in 0..4 {
+        let ((dwi, dbi), dxi) = Affine
+            .backward(
+                &((w.clone(), b.clone()), x.row(i).to_owned()),
+                &dy.row(i).to_owned(),
+            )
+            .unwrap();
+        sum_dw += &dwi;
+        sum_db += &dbi;
+        assert_eq!(dx.row(i), dxi);
+    }
+    assert!(near(&dw, &sum_dw, 1e-12));
+    assert!((&db - &sum_db).iter().all(|v| v.abs() < 1e-12));
+}
+
+#[test]
+fn the_batched_affine_map_and_its_pieces_obey_the_laws_at_two_orders() {
+    let checker = Checker::new().cases(64).unwrap();
+    let inputs = (
+        (matrices(3, 4, -2.0, 2.0), vectors(3, -2.0, 2.0)),
+        matrices(5, 4, -2.0, 2.0),
+    );
+    checker.reverse(&Affine, inputs.clone()).assert_clean();
+    checker
+        .same_reverse(&Affine, &affine_batch_composite(), inputs)
+        .assert_clean();
+    checker
+        .reverse(&ColumnSums, matrices(4, 3, -3.0, 3.0))
+        .assert_clean();
+    checker
+        .reverse(
+            &RepeatRows,
+            (matrices(4, 3, -3.0, 3.0), vectors(3, -3.0, 3.0)),
+        )
+        .assert_clean();
+}
+
+#[test]
+fn batch_shapes_that_do_not_fit_are_errors_naming_them() {
+    let params = (Array2::<f64>::zeros((2, 3)), Array1::zeros(2));
+    let err = Affine
+        .forward(&(params.clone(), Array2::zeros((4, 5))))
+        .unwrap_err();
+    assert!(err.to_string().contains("(4, 5)"), "{err}");
+    let err = Affine
+        .backward(&(params, Array2::zeros((4, 3))), &Array2::zeros((4, 3)))
+        .unwrap_err();
+    assert!(matches!(err, Error::OutputChangeShape { .. }), "{err}");
+}
+
+#[test]
+fn cross_entropy_on_a_batch_is_the_sum_of_its_rows() {
+    let z: Array2<f64> = array![[2.0, -1.0, 0.5], [900.0, 0.0, -900.0]];
+    let t = array![[0.0, 1.0, 0.0], [0.2, 0.3, 0.5]];
+    let (whole, (dz, dt)) = LogitCrossEntropy
+        .forward_memo(&(z.clone(), t.clone()))
+        .unwrap();
+    let mut total = 0.0_f64;
+    for i in 0..2 {
+        let pair = (z.row(i).to_owned(), t.row(i).to_owned());
+        total += LogitCrossEntropy.forward(&pair).unwrap();
+        let (dzi, dti) = LogitCrossEntropy.backward(&pair, &1.0).unwrap();
+        assert_eq!(dz.row(i), dzi);
+        assert_eq!(dt.row(i), dti);
+    }
+    assert!((whole - total).abs() < 1e-12 * total.abs());
+    assert!(whole.is_finite());
+}
+
+/// The parameters of 2 -> 3 (tanh) -> 1.
+type Params = ((Array2<f64>, Array1<f64>), (Array2<f64>, Array1<f64>));
+
+/// The model 2 -> 3 (tanh) -> 1 and its starting parameters.
+fn small_network() -> (ThenParametrised<Then<Affine, Tanh>, Affine>, Params) {
+    let model = Affine.then(Tanh).then_parametrised(Affine);
+    let start = (
+        (
+            array![[0.3, -0.2], [0.1, 0.4], [-0.5, 0.2]],
+            array![0.0, 0.1, -0.1],
+        ),
+        (array![[0.5, -0.3, 0.2]], array![0.05]),
+    );
+    (model, start)
+}
+
+fn wave(n: usize) -> Examples<f64> {
+    let x = Array2::from_shape_fn((n, 2), |(i, j)| ((i * 7 + j * 3) % 11) as f64 / 5.0 - 1.0);
+    let y = Array2::from_shape_fn((n, 1), |(i, _)| {
+        (x[[i, 0]] * 1.5).sin() * 0.5 + x[[i, 1]] * 0.25
+    });
+    Examples::new(x, y).unwrap()
+}
+
+#[test]
+fn batched_and_per_row_training_give_the_same_parameters() {
+    let (model, start) = small_network();
+    let data = wave(30);
+    let train = |batched: bool| {
+        let training = Training::new(20, 8).unwrap().seed(5);
+        let mut adam = Adam::new(0.02).unwrap();
+        if batched {
+            training.run(
+                &model,
+                &MeanSquaredError,
+                &mut adam,
+                start.clone(),
+                &data,
+                |_| {},
+            )
+        } else {
+            training.run(
+                &Rowwise::new(model),
+                &RowMean::new(MeanSquaredError),
+                &mut adam,
+                start.clone(),
+                &data,
+                |_| {},
+            )
+        }
+        .unwrap()
+    };
+    let (fast, slow) = (train(true), train(false));
+    assert_eq!(fast.steps, slow.steps);
+    let (a, b) = (fast.parameters.coordinates(), slow.parameters.coordinates());
+    let moved = a
+        .iter()
+        .zip(start.coordinates())
+        .map(|(p, q)| (p - q).abs())
+        .fold(0.0, f64::max);
+    assert!(moved > 1e-2, "training moved the parameters by {moved}");
+    for (p, q) in a.iter().zip(&b) {
+        assert!((p - q).abs() < 1e-10, "{p} against {q}");
+    }
+    for (l, m) in fast.epoch_losses.iter().zip(&slow.epoch_losses) {
+        assert!((l - m).abs() < 1e-12 * l.abs().max(1.0));
+    }
+    assert!(fast.epoch_losses.last() < fast.epoch_losses.first());
+}
+
+#[test]
+fn reusing_buffers_changes_no_result() {
+    let (model, start) = small_network();
+    let data = wave(20);
+    let run = || {
+        Training::new(3, 6)
+            .unwrap()
+            .run(
+                &model,
+                &MeanSquaredError,
+                &mut Adam::new(0.05).unwrap(),
+                start.clone(),
+                &data,
+                |_| {},
+            )
+            .unwrap()
+    };
+    // The same run twice, bit for bit.
+    assert_eq!(run(), run());
+    // Updating in place equals updating into a new value, for every rule.
+    let gradient = (
+        (Array2::from_elem((3, 2), 0.5), array![1.0, -2.0, 0.25]),
+        (array![[0.1, -0.1, 3.0]], array![-0.5]),
+    );
+    type InPlace = Box<dyn FnMut(&mut Params, &Params)>;
+    type Fresh = Box<dyn FnMut(&Params, &Params) -> Params>;
+    let mut rules: Vec<(InPlace, Fresh)> = Vec::new();
+    macro_rules! both {
+        ($make:expr) => {{
+            let (mut a, mut b) = ($make, $make);
+            rules.push((
+                Box::new(move |p: &mut Params, g: &Params| a.update_in_place(p, g).unwrap()),
+                Box::new(move |p: &Params, g: &Params| b.update(p, g).unwrap()),
+            ));
+        }};
+    }
+    both!(GradientDescent::new(0.1).unwrap());
+    both!(Momentum::new(0.1, 0.9).unwrap());
+    both!(Nesterov::new(0.1, 0.9).unwrap());
+    both!(Adagrad::new(0.1).unwrap());
+    both!(RmsProp::new(0.1).unwrap());
+    both!(Adam::new(0.1).unwrap());
+    for (in_place, fresh) in &mut rules {
+        let mut p = start.clone();
+        let mut q = start.clone();
+        for _ in 0..3 {
+            in_place(&mut p, &gradient);
+            q = fresh(&q, &gradient);
+        }
+        assert_eq!(p, q);
+        assert_ne!(p, start);
+    }
+}
+
+#[test]
+fn the_observer_can_stop_the_run() {
+    let (model, start) = small_network();
+    let data = wave(20);
+    let run = Training::new(10, 5)
+        .unwrap()
+        .run(
+            &model,
+            &MeanSquaredError,
+            &mut Adam::new(0.05).unwrap(),
+            start,
+            &data,
+            |p| {
+                if p.step == 5 {
+                    ControlFlow::Break(())
+                } else {
+                    ControlFlow::Continue(())
+                }
+            },
+        )
+        .unwrap();
+    assert!(run.stopped_by_observer && !run.stopped_early);
+    assert_eq!(run.steps, 6);
+    // Steps 0..=3 finish epoch 0; the stop came in epoch 1.
+    assert_eq!((run.epoch_losses.len(), run.epochs), (1, 1));
+}
