@@ -1,0 +1,179 @@
+//! The hand-written baselines the library is measured against: the same
+//! multilayer perceptron, loss and Adam written directly in ndarray, as
+//! efficiently as ndarray allows (products into buffers allocated once,
+//! elementwise updates in place, no input change for the first layer).
+//!
+//! Shared by `benches/against_hand_written.rs` and
+//! `examples/against_hand_written.rs` through `#[path]`.
+
+#![allow(dead_code)]
+
+use ndarray::linalg::general_mat_mul;
+use ndarray::{Array1, Array2, Zip};
+use revdiff::Real;
+
+/// Layer widths of the measured network: 256 -> 256 (tanh) -> 256 (tanh) -> 10.
+pub const WIDTHS: [usize; 4] = [256, 256, 256, 10];
+/// Rows per batch.
+pub const BATCH: usize = 128;
+
+/// One affine layer's weights `(out, in)` and bias `(out,)`.
+pub type Layer<T> = (Array2<T>, Array1<T>);
+/// The library's parameter layout for the network: `((l1, l2), l3)`.
+pub type Params<T> = ((Layer<T>, Layer<T>), Layer<T>);
+
+fn real<T: Real>(v: f64) -> T {
+    T::from(v).unwrap()
+}
+
+/// Deterministic starting parameters, scaled by `1 / sqrt(fan in)`.
+pub fn start<T: Real>() -> Params<T> {
+    let layer = |k: usize| -> Layer<T> {
+        let (out, inp) = (WIDTHS[k + 1], WIDTHS[k]);
+        let scale = 1.0 / (inp as f64).sqrt();
+        let w = Array2::from_shape_fn((out, inp), |(i, j)| {
+            real::<T>(((i * 31 + j * 17 + k * 7) % 23) as f64 / 11.5 - 1.0) * real::<T>(scale)
+        });
+        (w, Array1::from_shape_fn(out, |i| real((i % 5) as f64 * 0.01)))
+    };
+    ((layer(0), layer(1)), layer(2))
+}
+
+/// Deterministic data: `rows` inputs of width 256 and targets of width 10.
+pub fn data<T: Real>(rows: usize) -> (Array2<T>, Array2<T>) {
+    let x = Array2::from_shape_fn((rows, WIDTHS[0]), |(i, j)| {
+        real(((i * 13 + j * 29) % 37) as f64 / 18.5 - 1.0)
+    });
+    let t = Array2::from_shape_fn((rows, WIDTHS[3]), |(i, j)| {
+        real(((i * 7 + j * 3) % 11) as f64 / 11.0)
+    });
+    (x, t)
+}
+
+/// Buffers for one batch, allocated once.
+pub struct Network<T> {
+    pub params: [Layer<T>; 3],
+    grads: [Layer<T>; 3],
+    acts: [Array2<T>; 3],
+    dacts: [Array2<T>; 2],
+    dy: Array2<T>,
+    adam_m: Vec<T>,
+    adam_v: Vec<T>,
+    steps: i32,
+}
+
+impl<T: Real> Network<T> {
+    pub fn new(p: &Params<T>) -> Self {
+        let ((l1, l2), l3) = p.clone();
+        let params = [l1, l2, l3];
+        let grads = params
+            .clone()
+            .map(|(w, b)| (Array2::zeros(w.raw_dim()), Array1::zeros(b.len())));
+        let n: usize = params.iter().map(|(w, b)| w.len() + b.len()).sum();
+        Network {
+            params,
+            grads,
+            acts: [1, 2, 3].map(|k| Array2::zeros((BATCH, WIDTHS[k]))),
+            dacts: [1, 2].map(|k| Array2::zeros((BATCH, WIDTHS[k]))),
+            dy: Array2::zeros((BATCH, WIDTHS[3])),
+            adam_m: vec![T::zero(); n],
+            adam_v: vec![T::zero(); n],
+            steps: 0,
+        }
+    }
+
+    /// The forward pass into the activation buffers; returns nothing.
+    pub fn forward(&mut self, x: &Array2<T>) {
+        for k in 0..3 {
+            let (w, b) = &self.params[k];
+            let (before, rest) = self.acts.split_at_mut(k);
+            let out = &mut rest[0];
+            let dim = out.raw_dim();
+            out.assign(&b.broadcast(dim).unwrap());
+            let input = if k == 0 { x.view() } else { before[k - 1].view() };
+            general_mat_mul(T::one(), &input, &w.t(), T::one(), out);
+            if k < 2 {
+                out.mapv_inplace(|v| v.tanh());
+            }
+        }
+    }
+
+    /// Mean squared error against `t` and its gradient into the grad
+    /// buffers (forward included).
+    pub fn gradient(&mut self, x: &Array2<T>, t: &Array2<T>) -> T {
+        self.forward(x);
+        let n: T = real((BATCH * WIDTHS[3]) as f64);
+        let mut total = T::zero();
+        Zip::from(&mut self.dy)
+            .and(&self.acts[2])
+            .and(t)
+            .for_each(|d, &y, &t| {
+                let r = y - t;
+                total = total + r * r;
+                *d = real::<T>(2.0) * r / n;
+            });
+        // Layer 3, then 2, then 1: `upstream` is the change of the layer's
+        // output before its activation; the first layer's input change is
+        // skipped.
+        for k in (0..3).rev() {
+            let (lower, upper) = self.dacts.split_at_mut(k);
+            let upstream: &Array2<T> = if k == 2 { &self.dy } else { &upper[0] };
+            let input = if k == 0 { x.view() } else { self.acts[k - 1].view() };
+            let (gw, gb) = &mut self.grads[k];
+            general_mat_mul(T::one(), &upstream.t(), &input, T::zero(), gw);
+            gb.fill(T::zero());
+            for row in upstream.rows() {
+                Zip::from(&mut *gb).and(&row).for_each(|g, &r| *g = *g + r);
+            }
+            if k > 0 {
+                let target = &mut lower[k - 1];
+                general_mat_mul(T::one(), upstream, &self.params[k].0, T::zero(), target);
+                Zip::from(target)
+                    .and(&self.acts[k - 1])
+                    .for_each(|d, &a| *d = *d * (T::one() - a * a));
+            }
+        }
+        total / n
+    }
+
+    /// The last gradient, in the library's parameter layout.
+    pub fn gradient_as_params(&self) -> Params<T> {
+        let [l1, l2, l3] = self.grads.clone();
+        ((l1, l2), l3)
+    }
+
+    /// Adam (Kingma and Ba, 2015), learning rate `lr`, in place.
+    pub fn adam(&mut self, lr: T) {
+        self.steps += 1;
+        let (b1, b2, eps): (T, T, T) = (real(0.9), real(0.999), real(1e-8));
+        let (c1, c2) = (T::one() - b1.powi(self.steps), T::one() - b2.powi(self.steps));
+        let mut at = 0;
+        for ((w, b), (gw, gb)) in self.params.iter_mut().zip(&self.grads) {
+            for (p, g) in [
+                (w.as_slice_mut().unwrap(), gw.as_slice().unwrap()),
+                (b.as_slice_mut().unwrap(), gb.as_slice().unwrap()),
+            ] {
+                let m = &mut self.adam_m[at..at + p.len()];
+                let v = &mut self.adam_v[at..at + p.len()];
+                for (((p, g), m), v) in p.iter_mut().zip(g).zip(m).zip(v) {
+                    *m = b1 * *m + (T::one() - b1) * *g;
+                    *v = b2 * *v + (T::one() - b2) * *g * *g;
+                    *p = *p - lr * (*m / c1) / ((*v / c2).sqrt() + eps);
+                }
+                at += p.len();
+            }
+        }
+    }
+}
+
+/// Floating-point operations of one training step (matrix products only):
+/// forward 2 n k m per layer, backward twice that (less the first layer's
+/// input change).
+pub fn step_flops() -> f64 {
+    let mut total = 0.0;
+    for k in 0..3 {
+        let per = 2.0 * (BATCH * WIDTHS[k] * WIDTHS[k + 1]) as f64;
+        total += per * if k == 0 { 2.0 } else { 3.0 };
+    }
+    total
+}

@@ -1,0 +1,374 @@
+//! The library against hand-written ndarray code doing the same math, in
+//! one process, the two sides alternating (7 rounds, medians), and its
+//! composition costs. Ends with one line per measure:
+//! `measure<TAB>ratio<TAB>target<TAB>ok|over`.
+//!
+//! `cargo run --release --example against_hand_written` (add `-- quick` for
+//! fewer repetitions, as CI does).
+
+#[path = "../benches/support/hand_written.rs"]
+mod hand_written;
+
+use hand_written::{BATCH, Network, Params, WIDTHS, data, start, step_flops};
+use ndarray::{Array1, Array2, ArrayD};
+use rand::SeedableRng;
+use rand::rngs::StdRng;
+use rand::seq::SliceRandom;
+use revdiff::{
+    Adam, Affine, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Parametrised, Real, Sin,
+    Tanh, Then, Training,
+};
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::hint::black_box;
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::time::Instant;
+
+/// Counts heap allocations, so that allocations per step are measured.
+struct Counting;
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+// SAFETY is not ours to claim: the crate forbids unsafe code, but a global
+// allocator needs `unsafe impl`. It only forwards to the system allocator.
+#[allow(unsafe_code)]
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::Relaxed);
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        unsafe { System.dealloc(ptr, layout) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+/// Median seconds per call of each side, the sides alternating.
+fn race(rounds: usize, reps: usize, mut a: impl FnMut(), mut b: impl FnMut()) -> (f64, f64) {
+    let (mut ta, mut tb) = (Vec::new(), Vec::new());
+    a();
+    b();
+    for _ in 0..rounds {
+        let t = Instant::now();
+        for _ in 0..reps {
+            a();
+        }
+        ta.push(t.elapsed().as_secs_f64() / reps as f64);
+        let t = Instant::now();
+        for _ in 0..reps {
+            b();
+        }
+        tb.push(t.elapsed().as_secs_f64() / reps as f64);
+    }
+    (median(ta), median(tb))
+}
+
+fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    v[v.len() / 2]
+}
+
+struct Line {
+    measure: String,
+    value: f64,
+    target: &'static str,
+    ok: bool,
+}
+
+fn at_most(measure: impl Into<String>, value: f64, limit: f64, target: &'static str) -> Line {
+    Line {
+        measure: measure.into(),
+        value,
+        target,
+        ok: value <= limit,
+    }
+}
+
+/// Steps per measured training run, and rows of data for it.
+const STEPS_PER_EPOCH: usize = 8;
+
+fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut Vec<Line>) {
+    let model = Affine
+        .then(Tanh)
+        .then_parametrised(Affine.then(Tanh))
+        .then_parametrised(Affine);
+    let rows = BATCH * STEPS_PER_EPOCH;
+    let (x, t) = data::<T>(rows);
+    let examples = Examples::new(x.clone(), t.clone()).unwrap();
+    let p0: Params<T> = start();
+    let lr = T::from(1e-3).unwrap();
+
+    // One training run of `epochs` epochs on each side.
+    let training = Training::new(epochs, BATCH).unwrap();
+    let library = || {
+        let mut adam = Adam::new(lr).unwrap();
+        black_box(
+            training
+                .run(&model, &MeanSquaredError, &mut adam, p0.clone(), &examples, |_| {})
+                .unwrap(),
+        );
+    };
+    let mut net = Network::new(&p0);
+    let mut order: Vec<usize> = (0..rows).collect();
+    let mut rng = StdRng::seed_from_u64(0);
+    let mut xb = Array2::<T>::zeros((BATCH, WIDTHS[0]));
+    let mut tb = Array2::<T>::zeros((BATCH, WIDTHS[3]));
+    let by_hand = || {
+        for _ in 0..epochs {
+            order.shuffle(&mut rng);
+            for chunk in order.chunks(BATCH) {
+                for (i, &r) in chunk.iter().enumerate() {
+                    xb.row_mut(i).assign(&x.row(r));
+                    tb.row_mut(i).assign(&t.row(r));
+                }
+                black_box(net.gradient(&xb, &tb));
+                net.adam(lr);
+            }
+        }
+    };
+    let (lib, hand) = race(rounds, 1, library, by_hand);
+    let steps = (epochs * STEPS_PER_EPOCH) as f64;
+    lines.push(at_most(
+        format!("training step {name}, library / hand-written"),
+        lib / hand,
+        1.05,
+        "<= 1.05",
+    ));
+    if name == "f32" {
+        lines.push(Line {
+            measure: "effective GFLOP/s of an f32 training step (matrix products)".into(),
+            value: step_flops() * steps / lib / 1e9,
+            target: ">= 100",
+            ok: step_flops() * steps / lib / 1e9 >= 100.0,
+        });
+    }
+
+    // The gradient alone, one batch.
+    let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
+    let tbatch: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
+    let input = (p0.clone(), xb.clone());
+    let loss_pair = |y: Array2<T>| (y, tbatch.clone());
+    let lib_gradient = || {
+        let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
+        let pair = loss_pair(y);
+        let (_, loss_memo) = MeanSquaredError.forward_memo(&pair).unwrap();
+        let (dy, _) = MeanSquaredError.backward_memo(&loss_memo, &T::one()).unwrap();
+        black_box(Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap());
+    };
+    let mut net = Network::new(&p0);
+    let hand_gradient = || {
+        black_box(net.gradient(&xb, &tbatch));
+    };
+    // Both sides compute the same gradient (checked, not assumed).
+    {
+        use revdiff::Euclidean;
+        let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
+        let (l, loss_memo) = MeanSquaredError.forward_memo(&(y, tbatch.clone())).unwrap();
+        let (dy, _) = MeanSquaredError.backward_memo(&loss_memo, &T::one()).unwrap();
+        let (dp, _) = Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap();
+        let mut check = Network::new(&p0);
+        let hand_loss = check.gradient(&xb, &tbatch);
+        let (a, b) = (dp.coordinates(), check.gradient_as_params().coordinates());
+        let scale = b.iter().fold(T::zero(), |m, v| m.max(v.abs()));
+        let worst = a.iter().zip(&b).fold(T::zero(), |m, (p, q)| m.max((*p - *q).abs()));
+        let tol = T::from(1e-4).unwrap();
+        assert!(worst <= tol * scale, "{name}: gradients differ by {worst} (scale {scale})");
+        assert!((l - hand_loss).abs() <= tol * l.abs(), "{name}: losses {l} and {hand_loss}");
+    }
+    let (lib, hand) = race(rounds, 5, lib_gradient, hand_gradient);
+    lines.push(at_most(
+        format!("gradient {name}, library / hand-written"),
+        lib / hand,
+        1.05,
+        "<= 1.05",
+    ));
+
+    // Backward against forward, the library's own passes.
+    let (_, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
+    let dy = Array2::<T>::ones((BATCH, WIDTHS[3]));
+    let (back, fwd) = race(
+        rounds,
+        5,
+        || {
+            black_box(
+                Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap(),
+            );
+        },
+        || {
+            black_box(Map::<(Params<T>, Array2<T>)>::forward(&model, &input).unwrap());
+        },
+    );
+    lines.push(at_most(
+        format!("backward / forward {name}, library"),
+        back / fwd,
+        2.2,
+        "<= 2.2",
+    ));
+
+    // Heap allocations per step after warm-up: the difference between runs
+    // of two lengths, per extra step.
+    if name == "f64" {
+        let count = |epochs: usize| {
+            let training = Training::new(epochs, BATCH).unwrap();
+            let mut adam = Adam::new(lr).unwrap();
+            let before = ALLOCATIONS.load(Ordering::Relaxed);
+            black_box(
+                training
+                    .run(&model, &MeanSquaredError, &mut adam, p0.clone(), &examples, |_| {})
+                    .unwrap(),
+            );
+            ALLOCATIONS.load(Ordering::Relaxed) - before
+        };
+        let (short, long) = (count(1), count(3));
+        let per_step = (long - short) as f64 / (2 * STEPS_PER_EPOCH) as f64;
+        lines.push(Line {
+            measure: "heap allocations per training step after warm-up".into(),
+            value: per_step,
+            target: "0",
+            ok: per_step == 0.0,
+        });
+    }
+}
+
+/// `f` then `f`: chains of 2^k stages with a type of depth k.
+fn double<F: Compose + Clone>(f: F) -> Then<F, F> {
+    f.clone().then(f)
+}
+
+fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
+    let x = 0.7_f64;
+    let s8 = double(double(double(Sin)));
+    let s1024 = double(double(double(double(double(double(double(s8)))))));
+    let (t8, t1024) = race(
+        rounds,
+        2000,
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
+        || {
+            black_box(s1024.backward(black_box(&x), &1.0).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "time per stage, static scalar chain, n = 1024 / n = 8",
+        (t1024 / 1024.0) / (t8 / 8.0),
+        1.2,
+        "<= 1.2",
+    ));
+
+    // Run-time chains: the same sine stages over one-element arrays.
+    let run_time = |n: usize, width: usize| {
+        let mut chain = Chain::<f64>::new(&[width]);
+        for _ in 0..n {
+            chain.push_elementwise("sin", Sin).unwrap();
+        }
+        chain
+    };
+    let (c10, c10k) = (run_time(10, 1), run_time(10_000, 1));
+    let xd = ArrayD::from_elem(vec![1], 0.7);
+    let (t10, t10k) = race(
+        rounds,
+        10,
+        || {
+            black_box(c10.backward(&xd, &xd).unwrap());
+        },
+        || {
+            black_box(c10k.backward(&xd, &xd).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "time per stage, run-time chain, n = 10,000 / n = 10",
+        (t10k / 10_000.0) / (t10 / 10.0),
+        1.2,
+        "<= 1.2",
+    ));
+    let c8 = run_time(8, 1);
+    let (dynamic, fixed) = race(
+        rounds,
+        2000,
+        || {
+            black_box(c8.backward(&xd, &xd).unwrap());
+        },
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "dynamic / static, scalar chains of 8 stages",
+        dynamic / fixed,
+        1.5,
+        "<= 1.5",
+    ));
+    let mut boxed: Boxed<f64, f64> = Boxed::new(Sin);
+    for _ in 1..8 {
+        boxed = Boxed::new(boxed.then(Sin));
+    }
+    let (nested, _) = race(
+        rounds,
+        2000,
+        || {
+            black_box(boxed.backward(black_box(&x), &1.0).unwrap());
+        },
+        || {},
+    );
+    lines.push(at_most(
+        "nested boxed / static, scalar chains of 8 stages",
+        nested / fixed,
+        1.5,
+        "<= 1.5",
+    ));
+
+    // 256-wide arrays: run-time chain against the static composite.
+    let wide = Array1::<f64>::linspace(-1.0, 1.0, 256);
+    let wide_d = wide.clone().into_dyn();
+    let c8w = run_time(8, 256);
+    let (dynamic, fixed) = race(
+        rounds,
+        200,
+        || {
+            black_box(c8w.backward(&wide_d, &wide_d).unwrap());
+        },
+        || {
+            black_box(s8.backward(black_box(&wide), &wide).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "dynamic / static, 8 stages on 256-wide arrays",
+        dynamic / fixed,
+        1.02,
+        "<= 1.02",
+    ));
+}
+
+fn main() {
+    let quick = std::env::args().any(|a| a == "quick");
+    let (rounds, epochs) = if quick { (3, 1) } else { (7, 4) };
+    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+    println!(
+        "revdiff against hand-written ndarray code: {} rounds, medians, {threads} cores",
+        rounds
+    );
+    println!(
+        "network {} -> {} (tanh) -> {} (tanh) -> {}, batches of {BATCH}, mean squared error, Adam\n",
+        WIDTHS[0], WIDTHS[1], WIDTHS[2], WIDTHS[3]
+    );
+    let mut lines = Vec::new();
+    training_lines::<f64>("f64", rounds, epochs, &mut lines);
+    training_lines::<f32>("f32", rounds, epochs, &mut lines);
+    chain_lines(rounds, &mut lines);
+    lines.push(Line {
+        measure: "data-parallel speed-up on 2 cores, batch 1,024 (not built yet)".into(),
+        value: f64::NAN,
+        target: ">= 1.7",
+        ok: false,
+    });
+    for l in &lines {
+        println!(
+            "{}\t{:.3}\t{}\t{}",
+            l.measure,
+            l.value,
+            l.target,
+            if l.ok { "ok" } else { "over" }
+        );
+    }
+}
