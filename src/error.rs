@@ -117,6 +117,18 @@ pub enum Error {
         /// Rows of the targets.
         targets: usize,
     },
+    /// A CSV file could not be read as examples: a value that is not a
+    /// number, a row of the wrong length, a named column that is missing, or
+    /// malformed CSV.
+    #[error("CSV {location}: {problem}")]
+    Csv {
+        /// Where: `row 3, column 2 ("width")`, or `header`. Rows count the
+        /// data rows from 0 (the header is not a data row); columns count
+        /// from 0.
+        location: String,
+        /// What was wrong there.
+        problem: String,
+    },
     /// Training met a non-finite loss, gradient or parameter.
     #[error("training step {step} (epoch {epoch}): the {quantity} is not finite")]
     Diverged {

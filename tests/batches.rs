@@ -256,3 +256,25 @@ fn the_observer_can_stop_the_run() {
     // Steps 0..=3 finish epoch 0; the stop came in epoch 1.
     assert_eq!((run.epoch_losses.len(), run.epochs), (1, 1));
 }
+
+#[test]
+fn examples_read_from_csv_and_bad_files_say_where() {
+    let good = "a, b, y\n1, 2, 3\n4, 5, 6\n";
+    let data = Examples::<f64>::read_csv(good.as_bytes(), &["b", "a"], &["y"]).unwrap();
+    assert_eq!(data.inputs(), &array![[2.0, 1.0], [5.0, 4.0]]);
+    assert_eq!(data.targets(), &array![[3.0], [6.0]]);
+    let f32_data = Examples::<f32>::read_csv(good.as_bytes(), &["a"], &["y"]).unwrap();
+    assert_eq!(f32_data.targets()[[1, 0]], 6.0_f32);
+
+    let cases: [(&str, &str); 5] = [
+        ("a,b,y\n1,2,3\n", "CSV header: no column named \"c\""),
+        ("a,c,y\n1,2,3\n4,x,6\n", "CSV row 1, column 1 (\"c\"): cannot read \"x\" as a number"),
+        ("a,c,y\n1,2,3\n4,5\n", "CSV row 1"),
+        ("a,c,y\n1,NaN,3\n", "non-finite value NaN at row 0, column 1 (\"c\")"),
+        ("a,c,y\n", "no data rows"),
+    ];
+    for (text, expected) in cases {
+        let err = Examples::<f64>::read_csv(text.as_bytes(), &["a", "c"], &["y"]).unwrap_err();
+        assert!(err.to_string().contains(expected), "{text:?}: {err}");
+    }
+}

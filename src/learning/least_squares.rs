@@ -265,6 +265,7 @@ where
 
 /// Why a fit stopped.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 #[non_exhaustive]
 pub enum Stop {
     /// The step was small against the parameters.
@@ -327,6 +328,7 @@ impl fmt::Display for Stop {
 
 /// The result of a least-squares fit.
 #[derive(Clone, Debug, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 pub struct FitReport<P, R> {
     /// The fitted parameters.
     pub parameters: P,

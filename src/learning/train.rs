@@ -60,6 +60,103 @@ impl<T: Real> Examples<T> {
         Ok(Examples { inputs, targets })
     }
 
+    /// Reads examples from CSV text with a header row: the columns named in
+    /// `inputs` become the input rows and those in `targets` the target rows,
+    /// in the order named; other columns are ignored. Every value must parse
+    /// as a finite number.
+    ///
+    /// Errors name the place: a missing column ([`Error::Csv`] at the
+    /// header), a value that is not a number or a row of the wrong length
+    /// ([`Error::Csv`] with the data row, counted from 0, and the column), a
+    /// non-finite value ([`Error::NonFinite`]), or no data rows
+    /// ([`Error::Empty`]).
+    ///
+    /// ```
+    /// use revdiff::Examples;
+    ///
+    /// let text = "width,height,mass\n1.0,2.0,0.5\n2.0,1.5,0.75\n";
+    /// let data = Examples::<f64>::read_csv(text.as_bytes(), &["width", "height"], &["mass"]).unwrap();
+    /// assert_eq!(data.len(), 2);
+    /// assert_eq!(data.targets()[[1, 0]], 0.75);
+    ///
+    /// let bad = "width,height,mass\n1.0,two,0.5\n";
+    /// let err = Examples::<f64>::read_csv(bad.as_bytes(), &["width", "height"], &["mass"]).unwrap_err();
+    /// assert_eq!(err.to_string(), "CSV row 0, column 1 (\"height\"): cannot read \"two\" as a number");
+    /// ```
+    pub fn read_csv(
+        reader: impl std::io::Read,
+        inputs: &[&str],
+        targets: &[&str],
+    ) -> Result<Self> {
+        let mut csv = csv::ReaderBuilder::new()
+            .has_headers(true)
+            .trim(csv::Trim::All)
+            .from_reader(reader);
+        let header = csv.headers().map_err(|e| Error::Csv {
+            location: "header".to_string(),
+            problem: e.to_string(),
+        })?;
+        let names: Vec<String> = header.iter().map(str::to_string).collect();
+        let find = |wanted: &[&str]| -> Result<Vec<usize>> {
+            wanted
+                .iter()
+                .map(|w| {
+                    names.iter().position(|n| n == w).ok_or_else(|| Error::Csv {
+                        location: "header".to_string(),
+                        problem: format!("no column named \"{w}\" (the columns are {names:?})"),
+                    })
+                })
+                .collect()
+        };
+        let (input_columns, target_columns) = (find(inputs)?, find(targets)?);
+        let (mut x, mut t) = (Vec::new(), Vec::new());
+        let mut rows = 0;
+        for (row, record) in csv.records().enumerate() {
+            let record = record.map_err(|e| Error::Csv {
+                location: format!("row {row}"),
+                problem: e.to_string(),
+            })?;
+            let value = |column: usize| -> Result<T> {
+                let text = record.get(column).ok_or_else(|| Error::Csv {
+                    location: format!("row {row}"),
+                    problem: format!("{} fields, but column {column} was asked for", record.len()),
+                })?;
+                let place = format!("row {row}, column {column} (\"{}\")", names[column]);
+                let v: f64 = text.parse().map_err(|_| Error::Csv {
+                    location: place.clone(),
+                    problem: format!("cannot read \"{text}\" as a number"),
+                })?;
+                if !v.is_finite() {
+                    return Err(Error::NonFinite {
+                        operation: "reading examples from CSV",
+                        detail: format!("{text} at {place}"),
+                    });
+                }
+                T::from(v).ok_or_else(|| Error::Csv {
+                    location: place,
+                    problem: format!("{text} does not fit the element type"),
+                })
+            };
+            for &c in &input_columns {
+                x.push(value(c)?);
+            }
+            for &c in &target_columns {
+                t.push(value(c)?);
+            }
+            rows += 1;
+        }
+        if rows == 0 {
+            return Err(Error::Empty {
+                operation: "reading examples from CSV (no data rows)",
+            });
+        }
+        let shaped = |v: Vec<T>, width: usize| {
+            Array2::from_shape_vec((rows, width), v)
+                .map_err(|e| Error::shape("reading examples from CSV", "rows", e))
+        };
+        Examples::new(shaped(x, input_columns.len())?, shaped(t, target_columns.len())?)
+    }
+
     /// Number of examples (at least 1).
     pub fn len(&self) -> usize {
         self.inputs.nrows()
@@ -142,6 +239,7 @@ impl ObserverVerdict for ControlFlow<()> {
 
 /// A finished training run.
 #[derive(Clone, Debug, PartialEq)]
+#[cfg_attr(feature = "serde", derive(serde::Serialize, serde::Deserialize))]
 pub struct Trained<P, T> {
     /// The parameters: the last ones, or with early stopping those with the
     /// lowest validation loss.
