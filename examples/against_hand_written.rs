@@ -104,7 +104,14 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         let mut adam = Adam::new(lr).unwrap();
         black_box(
             training
-                .run(&model, &MeanSquaredError, &mut adam, p0.clone(), &examples, |_| {})
+                .run(
+                    &model,
+                    &MeanSquaredError,
+                    &mut adam,
+                    p0.clone(),
+                    &examples,
+                    |_| {},
+                )
                 .unwrap(),
         );
     };
@@ -152,7 +159,9 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
         let pair = loss_pair(y);
         let (_, loss_memo) = MeanSquaredError.forward_memo(&pair).unwrap();
-        let (dy, _) = MeanSquaredError.backward_memo(&loss_memo, &T::one()).unwrap();
+        let (dy, _) = MeanSquaredError
+            .backward_memo(&loss_memo, &T::one())
+            .unwrap();
         black_box(Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap());
     };
     let mut net = Network::new(&p0);
@@ -164,16 +173,27 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         use revdiff::Euclidean;
         let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
         let (l, loss_memo) = MeanSquaredError.forward_memo(&(y, tbatch.clone())).unwrap();
-        let (dy, _) = MeanSquaredError.backward_memo(&loss_memo, &T::one()).unwrap();
+        let (dy, _) = MeanSquaredError
+            .backward_memo(&loss_memo, &T::one())
+            .unwrap();
         let (dp, _) = Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap();
         let mut check = Network::new(&p0);
         let hand_loss = check.gradient(&xb, &tbatch);
         let (a, b) = (dp.coordinates(), check.gradient_as_params().coordinates());
         let scale = b.iter().fold(T::zero(), |m, v| m.max(v.abs()));
-        let worst = a.iter().zip(&b).fold(T::zero(), |m, (p, q)| m.max((*p - *q).abs()));
+        let worst = a
+            .iter()
+            .zip(&b)
+            .fold(T::zero(), |m, (p, q)| m.max((*p - *q).abs()));
         let tol = T::from(1e-4).unwrap();
-        assert!(worst <= tol * scale, "{name}: gradients differ by {worst} (scale {scale})");
-        assert!((l - hand_loss).abs() <= tol * l.abs(), "{name}: losses {l} and {hand_loss}");
+        assert!(
+            worst <= tol * scale,
+            "{name}: gradients differ by {worst} (scale {scale})"
+        );
+        assert!(
+            (l - hand_loss).abs() <= tol * l.abs(),
+            "{name}: losses {l} and {hand_loss}"
+        );
     }
     let (lib, hand) = race(rounds, 5, lib_gradient, hand_gradient);
     lines.push(at_most(
@@ -190,9 +210,7 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         rounds,
         5,
         || {
-            black_box(
-                Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap(),
-            );
+            black_box(Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap());
         },
         || {
             black_box(Map::<(Params<T>, Array2<T>)>::forward(&model, &input).unwrap());
@@ -214,7 +232,14 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
             let before = ALLOCATIONS.load(Ordering::Relaxed);
             black_box(
                 training
-                    .run(&model, &MeanSquaredError, &mut adam, p0.clone(), &examples, |_| {})
+                    .run(
+                        &model,
+                        &MeanSquaredError,
+                        &mut adam,
+                        p0.clone(),
+                        &examples,
+                        |_| {},
+                    )
                     .unwrap(),
             );
             ALLOCATIONS.load(Ordering::Relaxed) - before

@@ -39,7 +39,10 @@ fn main() -> Result<(), Box<dyn Error>> {
 
     let model = Affine.then(Tanh).then_parametrised(Affine);
     let start: Params = (
-        (array![[0.2, 0.0], [0.1, -0.05], [0.0, 0.1]], array![0.0, 0.0, 0.0]),
+        (
+            array![[0.2, 0.0], [0.1, -0.05], [0.0, 0.1]],
+            array![0.0, 0.0, 0.0],
+        ),
         (array![[1.0, 1.0, 1.0]], array![0.0]),
     );
     let run = Training::new(300, 16)?.seed(3).run(
@@ -63,7 +66,10 @@ fn main() -> Result<(), Box<dyn Error>> {
     let before = model.forward(&(run.parameters.clone(), x.clone()))?;
     let after = model.forward(&(read.parameters.clone(), x.clone()))?;
     assert_eq!(before, after, "the model read back predicts the same");
-    println!("saved {} bytes of JSON; read back equal, same predictions", saved.len());
+    println!(
+        "saved {} bytes of JSON; read back equal, same predictions",
+        saved.len()
+    );
 
     // A least-squares fit report the same way: rise = a + b pressure.
     let line = fst()

@@ -117,6 +117,12 @@ pub enum Error {
         /// Rows of the targets.
         targets: usize,
     },
+    /// A shard of a sharded training step did not finish.
+    #[error("sharded training: {detail}")]
+    ShardFailed {
+        /// What happened.
+        detail: String,
+    },
     /// A CSV file could not be read as examples: a value that is not a
     /// number, a row of the wrong length, a named column that is missing, or
     /// malformed CSV.

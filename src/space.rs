@@ -28,7 +28,7 @@
 //! ```
 
 use crate::error::{Error, Result};
-use ndarray::{Array, Dimension, ScalarOperand};
+use ndarray::{Array, Dimension, ScalarOperand, Zip};
 use num_traits::Float;
 use std::fmt::{Debug, Display, LowerExp};
 
@@ -253,7 +253,7 @@ pub trait Pointwise: Euclidean<Self::Elem> {
     type Elem: Real;
 
     /// Applies `f` to every element.
-    fn map_elems(&self, f: impl Fn(Self::Elem) -> Self::Elem) -> Self;
+    fn map_elems(&self, f: impl Fn(Self::Elem) -> Self::Elem + Sync + Send) -> Self;
 
     /// Combines two values of the same shape element by element; `operation`
     /// names the caller in the error when the shapes differ.
@@ -261,7 +261,7 @@ pub trait Pointwise: Euclidean<Self::Elem> {
         &self,
         other: &Self,
         operation: &'static str,
-        f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem,
+        f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem + Sync + Send,
     ) -> Result<Self>;
 }
 
@@ -319,10 +319,10 @@ macro_rules! real_scalar_space {
         }
         impl Pointwise for $t {
             type Elem = $t;
-            fn map_elems(&self, f: impl Fn($t) -> $t) -> Self {
+            fn map_elems(&self, f: impl Fn($t) -> $t + Sync + Send) -> Self {
                 f(*self)
             }
-            fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn($t, $t) -> $t) -> Result<Self> {
+            fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn($t, $t) -> $t + Sync + Send) -> Result<Self> {
                 Ok(f(*self, *other))
             }
         }
@@ -446,21 +446,33 @@ impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
     }
 }
 
+/// Elementwise maps over arrays at least this long split across cores
+/// (with the `threads` feature): below it, handing work to other threads
+/// costs more than it saves.
+#[cfg(feature = "threads")]
+const PARALLEL_FROM: usize = 1 << 15;
+
 impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
     type Elem = T;
-    fn map_elems(&self, f: impl Fn(T) -> T) -> Self {
+    fn map_elems(&self, f: impl Fn(T) -> T + Sync + Send) -> Self {
+        #[cfg(feature = "threads")]
+        if self.len() >= PARALLEL_FROM {
+            return Zip::from(self).par_map_collect(|&v| f(v));
+        }
         self.mapv(f)
     }
     fn zip_elems(
         &self,
         other: &Self,
         operation: &'static str,
-        f: impl Fn(T, T) -> T,
+        f: impl Fn(T, T) -> T + Sync + Send,
     ) -> Result<Self> {
         same_shape(operation, self, other)?;
-        let mut out = self.clone();
-        out.zip_mut_with(other, |a, b| *a = f(*a, *b));
-        Ok(out)
+        #[cfg(feature = "threads")]
+        if self.len() >= PARALLEL_FROM {
+            return Ok(Zip::from(self).and(other).par_map_collect(|&a, &b| f(a, b)));
+        }
+        Ok(Zip::from(self).and(other).map_collect(|&a, &b| f(a, b)))
     }
 }
 
@@ -559,10 +571,15 @@ where
     T: Pointwise<Elem = T>,
 {
     type Elem = T;
-    fn map_elems(&self, f: impl Fn(T) -> T) -> Self {
+    fn map_elems(&self, f: impl Fn(T) -> T + Sync + Send) -> Self {
         self.map(f)
     }
-    fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn(T, T) -> T) -> Result<Self> {
+    fn zip_elems(
+        &self,
+        other: &Self,
+        _: &'static str,
+        f: impl Fn(T, T) -> T + Sync + Send,
+    ) -> Result<Self> {
         Ok(std::array::from_fn(|i| f(self[i], other[i])))
     }
 }

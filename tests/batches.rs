@@ -268,13 +268,89 @@ fn examples_read_from_csv_and_bad_files_say_where() {
 
     let cases: [(&str, &str); 5] = [
         ("a,b,y\n1,2,3\n", "CSV header: no column named \"c\""),
-        ("a,c,y\n1,2,3\n4,x,6\n", "CSV row 1, column 1 (\"c\"): cannot read \"x\" as a number"),
+        (
+            "a,c,y\n1,2,3\n4,x,6\n",
+            "CSV row 1, column 1 (\"c\"): cannot read \"x\" as a number",
+        ),
         ("a,c,y\n1,2,3\n4,5\n", "CSV row 1"),
-        ("a,c,y\n1,NaN,3\n", "non-finite value NaN at row 0, column 1 (\"c\")"),
+        (
+            "a,c,y\n1,NaN,3\n",
+            "non-finite value NaN at row 0, column 1 (\"c\")",
+        ),
         ("a,c,y\n", "no data rows"),
     ];
     for (text, expected) in cases {
         let err = Examples::<f64>::read_csv(text.as_bytes(), &["a", "c"], &["y"]).unwrap_err();
         assert!(err.to_string().contains(expected), "{text:?}: {err}");
     }
+}
+
+#[test]
+fn sharded_gradients_equal_unsharded_ones() {
+    let (model, start) = small_network();
+    let data = wave(37);
+    let training = Training::new(4, 10).unwrap().seed(2);
+    let whole = training
+        .run(
+            &model,
+            &MeanSquaredError,
+            &mut Adam::new(0.02).unwrap(),
+            start.clone(),
+            &data,
+            |_| {},
+        )
+        .unwrap();
+    for shards in [1, 2, 3, 16] {
+        let split = training
+            .run_sharded(
+                &model,
+                &MeanSquaredError,
+                &mut Adam::new(0.02).unwrap(),
+                start.clone(),
+                &data,
+                shards,
+                &mut ShardSum,
+                |_| {},
+            )
+            .unwrap();
+        assert_eq!(split.steps, whole.steps);
+        // Additivity: the same up to the order of summation.
+        for (p, q) in split
+            .parameters
+            .coordinates()
+            .iter()
+            .zip(whole.parameters.coordinates())
+        {
+            assert!((p - q).abs() < 1e-10, "{shards} shards: {p} against {q}");
+        }
+    }
+    let err = training
+        .run_sharded(
+            &model,
+            &MeanSquaredError,
+            &mut Adam::new(0.02).unwrap(),
+            start,
+            &data,
+            0,
+            &mut ShardSum,
+            |_| {},
+        )
+        .unwrap_err();
+    assert!(matches!(
+        err.error,
+        Error::InvalidSetting { name: "shards", .. }
+    ));
+}
+
+#[test]
+fn large_elementwise_maps_split_across_cores_give_the_same_values() {
+    let x: Array1<f64> = Array1::linspace(-5.0, 5.0, 100_000);
+    let y = Tanh.forward(&x).unwrap();
+    assert!(y.iter().zip(&x).all(|(a, b)| *a == b.tanh()));
+    let d = Tanh.backward(&x, &x).unwrap();
+    assert!(
+        d.iter()
+            .zip(&x)
+            .all(|(a, b)| *a == (1.0 - b.tanh() * b.tanh()) * b)
+    );
 }

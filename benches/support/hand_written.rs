@@ -34,7 +34,10 @@ pub fn start<T: Real>() -> Params<T> {
         let w = Array2::from_shape_fn((out, inp), |(i, j)| {
             real::<T>(((i * 31 + j * 17 + k * 7) % 23) as f64 / 11.5 - 1.0) * real::<T>(scale)
         });
-        (w, Array1::from_shape_fn(out, |i| real((i % 5) as f64 * 0.01)))
+        (
+            w,
+            Array1::from_shape_fn(out, |i| real((i % 5) as f64 * 0.01)),
+        )
     };
     ((layer(0), layer(1)), layer(2))
 }
@@ -90,7 +93,11 @@ impl<T: Real> Network<T> {
             let out = &mut rest[0];
             let dim = out.raw_dim();
             out.assign(&b.broadcast(dim).unwrap());
-            let input = if k == 0 { x.view() } else { before[k - 1].view() };
+            let input = if k == 0 {
+                x.view()
+            } else {
+                before[k - 1].view()
+            };
             general_mat_mul(T::one(), &input, &w.t(), T::one(), out);
             if k < 2 {
                 out.mapv_inplace(|v| v.tanh());
@@ -118,7 +125,11 @@ impl<T: Real> Network<T> {
         for k in (0..3).rev() {
             let (lower, upper) = self.dacts.split_at_mut(k);
             let upstream: &Array2<T> = if k == 2 { &self.dy } else { &upper[0] };
-            let input = if k == 0 { x.view() } else { self.acts[k - 1].view() };
+            let input = if k == 0 {
+                x.view()
+            } else {
+                self.acts[k - 1].view()
+            };
             let (gw, gb) = &mut self.grads[k];
             general_mat_mul(T::one(), &upstream.t(), &input, T::zero(), gw);
             gb.fill(T::zero());
@@ -146,7 +157,10 @@ impl<T: Real> Network<T> {
     pub fn adam(&mut self, lr: T) {
         self.steps += 1;
         let (b1, b2, eps): (T, T, T) = (real(0.9), real(0.999), real(1e-8));
-        let (c1, c2) = (T::one() - b1.powi(self.steps), T::one() - b2.powi(self.steps));
+        let (c1, c2) = (
+            T::one() - b1.powi(self.steps),
+            T::one() - b2.powi(self.steps),
+        );
         let mut at = 0;
         for ((w, b), (gw, gb)) in self.params.iter_mut().zip(&self.grads) {
             for (p, g) in [

@@ -28,4 +28,7 @@ pub use parametrised::{
 };
 pub use rows::{RowMean, Rowwise};
 pub use schedule::Schedule;
-pub use train::{Examples, Interrupted, ObserverVerdict, Progress, Trained, Training};
+pub use train::{
+    Examples, GradientReduction, Interrupted, ObserverVerdict, Progress, RowBlocks, ShardSum,
+    Trained, Training,
+};

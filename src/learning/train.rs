@@ -5,13 +5,14 @@ use crate::error::{Error, Result};
 use crate::learning::optimise::Optimiser;
 use crate::map::Map;
 use crate::space::{Euclidean, Real, Space};
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2, Axis, Slice};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
 use std::borrow::Cow;
 use std::fmt;
 use std::ops::ControlFlow;
+use std::sync::mpsc;
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
@@ -83,11 +84,7 @@ impl<T: Real> Examples<T> {
     /// let err = Examples::<f64>::read_csv(bad.as_bytes(), &["width", "height"], &["mass"]).unwrap_err();
     /// assert_eq!(err.to_string(), "CSV row 0, column 1 (\"height\"): cannot read \"two\" as a number");
     /// ```
-    pub fn read_csv(
-        reader: impl std::io::Read,
-        inputs: &[&str],
-        targets: &[&str],
-    ) -> Result<Self> {
+    pub fn read_csv(reader: impl std::io::Read, inputs: &[&str], targets: &[&str]) -> Result<Self> {
         let mut csv = csv::ReaderBuilder::new()
             .has_headers(true)
             .trim(csv::Trim::All)
@@ -154,7 +151,10 @@ impl<T: Real> Examples<T> {
             Array2::from_shape_vec((rows, width), v)
                 .map_err(|e| Error::shape("reading examples from CSV", "rows", e))
         };
-        Examples::new(shaped(x, input_columns.len())?, shaped(t, target_columns.len())?)
+        Examples::new(
+            shaped(x, input_columns.len())?,
+            shaped(t, target_columns.len())?,
+        )
     }
 
     /// Number of examples (at least 1).
@@ -411,7 +411,114 @@ impl Training {
         optimiser: &mut O,
         start: P,
         data: &Examples<T>,
+        observer: impl FnMut(&Progress<'_, T, P>) -> V,
+    ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
+    where
+        T: Real,
+        P: Euclidean<T>,
+        B: Space,
+        M: Map<(P, Array2<T>), Output = B>,
+        L: Map<(B, Array2<T>), Output = T>,
+        O: Optimiser<T>,
+        V: ObserverVerdict,
+    {
+        self.run_core(
+            model,
+            loss,
+            optimiser,
+            start,
+            data,
+            observer,
+            |batch, input| batch.gradient(model, loss, input),
+        )
+    }
+
+    /// [`run`](Training::run) with each minibatch split into `shards`
+    /// contiguous groups of rows whose passes run on their own threads: the
+    /// model's forward passes run in parallel, the loss sees the whole
+    /// batch, the backward passes run in parallel, and `reduction` sums the
+    /// shards' parameter gradients.
+    ///
+    /// Reverse derivatives are additive, so the sum of the shards' gradients
+    /// is the batch's gradient, for any loss, up to the order of summation
+    /// (rounding only). This needs a model that treats rows independently,
+    /// as every batched map of the crate does. Each shard keeps its own copy
+    /// of the parameters, refreshed in place every step.
+    ///
+    /// ```
+    /// use revdiff::{Adam, Affine, Compose, Examples, MeanSquaredError, Parametrised, ShardSum, Tanh, Training};
+    /// use ndarray::{array, Array2};
+    ///
+    /// let x = Array2::from_shape_fn((64, 2), |(i, j)| (i * (j + 1)) as f64 / 64.0);
+    /// let y = x.sum_axis(ndarray::Axis(1)).insert_axis(ndarray::Axis(1));
+    /// let data = Examples::new(x, y).unwrap();
+    /// let model = Affine.then(Tanh).then_parametrised(Affine);
+    /// let start = ((array![[0.1, 0.2], [0.3, -0.1]], array![0.0, 0.0]), (array![[1.0, 1.0]], array![0.0]));
+    /// let training = Training::new(5, 16).unwrap();
+    /// let whole = training.run(&model, &MeanSquaredError, &mut Adam::new(0.01).unwrap(), start.clone(), &data, |_| {}).unwrap();
+    /// let split = training
+    ///     .run_sharded(&model, &MeanSquaredError, &mut Adam::new(0.01).unwrap(), start, &data, 2, &mut ShardSum, |_| {})
+    ///     .unwrap();
+    /// let (a, b) = (&whole.parameters.1 .0, &split.parameters.1 .0);
+    /// assert!((a - b).iter().all(|d| d.abs() < 1e-12));
+    /// ```
+    #[allow(clippy::too_many_arguments)]
+    pub fn run_sharded<T, P, B, M, L, O, V, R>(
+        &self,
+        model: &M,
+        loss: &L,
+        optimiser: &mut O,
+        start: P,
+        data: &Examples<T>,
+        shards: usize,
+        reduction: &mut R,
+        observer: impl FnMut(&Progress<'_, T, P>) -> V,
+    ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
+    where
+        T: Real,
+        P: Euclidean<T> + Send + Sync,
+        B: Space + RowBlocks + Send,
+        M: Map<(P, Array2<T>), Output = B> + Sync,
+        L: Map<(B, Array2<T>), Output = T>,
+        O: Optimiser<T>,
+        V: ObserverVerdict,
+        R: GradientReduction<P>,
+    {
+        if shards == 0 {
+            let error = Error::InvalidSetting {
+                name: "shards",
+                value: "0".to_string(),
+                reason: "must be at least 1",
+            };
+            return Err(Interrupted {
+                error,
+                step: None,
+                parameters: start,
+            });
+        }
+        let mut inputs: Vec<(P, Array2<T>)> = Vec::new();
+        self.run_core(
+            model,
+            loss,
+            optimiser,
+            start,
+            data,
+            observer,
+            |batch, input| {
+                batch.sharded_gradient(model, loss, input, shards, &mut inputs, reduction)
+            },
+        )
+    }
+
+    fn run_core<T, P, B, M, L, O, V>(
+        &self,
+        model: &M,
+        loss: &L,
+        optimiser: &mut O,
+        start: P,
+        data: &Examples<T>,
         mut observer: impl FnMut(&Progress<'_, T, P>) -> V,
+        mut gradient: impl FnMut(&mut Batch<T>, &(P, Array2<T>)) -> Result<(T, P)>,
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
         T: Real,
@@ -483,7 +590,7 @@ impl Training {
                     }
                 };
                 batch.gather(&train, rows, &mut input.1);
-                let (batch_loss, gradient) = match batch.gradient(model, loss, &input) {
+                let (batch_loss, gradient) = match gradient(&mut batch, &input) {
                     Ok(lg) => lg,
                     Err(e) => return Err(fail(e, input, true)),
                 };
@@ -632,6 +739,197 @@ impl<T: Real> Batch<T> {
         let (dy, _) = loss.backward_memo(&loss_memo, &T::one())?;
         let (dp, _) = model.backward_memo(&model_memo, &dy)?;
         Ok((l, dp))
+    }
+}
+
+impl<T: Real> Batch<T> {
+    /// The batch loss and its parameter gradient, the model's passes split
+    /// over `count` shards on their own threads; `inputs` are the shards'
+    /// kept inputs (parameters and rows), reused from step to step.
+    fn sharded_gradient<P, B, M, L, R>(
+        &mut self,
+        model: &M,
+        loss: &L,
+        input: &(P, Array2<T>),
+        count: usize,
+        inputs: &mut Vec<(P, Array2<T>)>,
+        reduction: &mut R,
+    ) -> Result<(T, P)>
+    where
+        P: Euclidean<T> + Send + Sync,
+        B: Space + RowBlocks + Send,
+        M: Map<(P, Array2<T>), Output = B> + Sync,
+        L: Map<(B, Array2<T>), Output = T>,
+        R: GradientReduction<P>,
+    {
+        let rows = input.1.nrows();
+        let count = count.min(rows).max(1);
+        let per = rows.div_ceil(count);
+        let ranges: Vec<(usize, usize)> = (0..count)
+            .map(|k| (k * per, ((k + 1) * per).min(rows)))
+            .filter(|(a, b)| a < b)
+            .collect();
+        inputs.truncate(ranges.len());
+        while inputs.len() < ranges.len() {
+            inputs.push((input.0.clone(), Array2::zeros((0, input.1.ncols()))));
+        }
+        for ((p, x), &(a, b)) in inputs.iter_mut().zip(&ranges) {
+            p.copy_from(&input.0)?;
+            let part = input.1.slice_axis(Axis(0), Slice::from(a..b));
+            if x.dim() != part.dim() {
+                *x = part.to_owned();
+            } else {
+                x.assign(&part);
+            }
+        }
+        // One thread per shard keeps its shard's memo for the whole step
+        // (forward, then backward), so memos never cross threads.
+        let targets = &mut self.targets;
+        let ranges = &ranges;
+        let (l, gradients) = std::thread::scope(|scope| -> Result<(T, Vec<P>)> {
+            let mut outputs_from = Vec::with_capacity(inputs.len());
+            let mut changes_to = Vec::with_capacity(inputs.len());
+            let mut handles = Vec::with_capacity(inputs.len());
+            for shard in inputs.iter() {
+                let (output_tx, output_rx) = mpsc::channel::<Result<B>>();
+                let (change_tx, change_rx) = mpsc::channel::<B>();
+                outputs_from.push(output_rx);
+                changes_to.push(change_tx);
+                handles.push(scope.spawn(move || -> Result<Option<P>> {
+                    let (y, memo) = match model.forward_memo(shard) {
+                        Ok(done) => done,
+                        Err(e) => {
+                            let _ = output_tx.send(Err(e));
+                            return Ok(None);
+                        }
+                    };
+                    let _ = output_tx.send(Ok(y));
+                    // No change comes when another shard or the loss failed.
+                    let Ok(dy) = change_rx.recv() else {
+                        return Ok(None);
+                    };
+                    model.backward_memo(&memo, &dy).map(|(dp, _)| Some(dp))
+                }));
+            }
+            let mut outputs = Vec::with_capacity(inputs.len());
+            let mut failure = None;
+            for from in &outputs_from {
+                match from.recv() {
+                    Ok(Ok(y)) => outputs.push(y),
+                    Ok(Err(e)) => failure = failure.or(Some(e)),
+                    Err(_) => failure = failure.or(Some(panicked())),
+                }
+            }
+            let loss_part = match failure {
+                Some(e) => Err(e),
+                None => shard_loss::<T, B, L>(loss, &outputs, targets),
+            };
+            let (l, dy) = match loss_part {
+                Ok(done) => done,
+                Err(e) => {
+                    drop(changes_to);
+                    for h in handles {
+                        let _ = h.join();
+                    }
+                    return Err(e);
+                }
+            };
+            for (to, &(a, b)) in changes_to.iter().zip(ranges) {
+                let _ = to.send(dy.row_block(a, b));
+            }
+            drop(changes_to);
+            let mut gradients = Vec::with_capacity(handles.len());
+            for h in handles {
+                match h.join() {
+                    Ok(Ok(Some(dp))) => gradients.push(dp),
+                    Ok(Ok(None)) => return Err(panicked()),
+                    Ok(Err(e)) => return Err(e),
+                    Err(_) => return Err(panicked()),
+                }
+            }
+            Ok((l, gradients))
+        })?;
+        Ok((l, reduction.reduce(gradients)?))
+    }
+}
+
+/// Values made of rows, one per example, that can be cut into blocks of
+/// rows and joined again: what sharded training needs of a model's output.
+pub trait RowBlocks: Sized {
+    /// The parts, one after the other along the rows.
+    fn join_rows(parts: &[Self]) -> Result<Self>;
+    /// Rows `start..end`.
+    fn row_block(&self, start: usize, end: usize) -> Self;
+}
+
+impl<T: Real, D: ndarray::RemoveAxis> RowBlocks for ndarray::Array<T, D> {
+    fn join_rows(parts: &[Self]) -> Result<Self> {
+        let views: Vec<_> = parts.iter().map(|p| p.view()).collect();
+        ndarray::concatenate(Axis(0), &views)
+            .map_err(|e| Error::shape("joining blocks of rows", "blocks with equal rows", e))
+    }
+    fn row_block(&self, start: usize, end: usize) -> Self {
+        self.slice_axis(Axis(0), Slice::from(start..end)).to_owned()
+    }
+}
+
+/// The error for a shard whose thread ended without an answer (a panic in
+/// the model).
+fn panicked() -> Error {
+    Error::ShardFailed {
+        detail: "a shard's thread ended without a result (the model panicked)".to_string(),
+    }
+}
+
+/// The loss of the joined shard outputs and its change, cut back into the
+/// whole batch's output change.
+fn shard_loss<T: Real, B: Space + RowBlocks, L: Map<(B, Array2<T>), Output = T>>(
+    loss: &L,
+    outputs: &[B],
+    targets: &mut Array2<T>,
+) -> Result<(T, B)> {
+    let y = B::join_rows(outputs)?;
+    // The targets move into the loss's input and back: no copy.
+    let pair = (y, std::mem::replace(targets, Array2::zeros((0, 0))));
+    let result = loss.forward_memo(&pair);
+    *targets = pair.1;
+    let (l, memo) = result?;
+    let (dy, _) = loss.backward_memo(&memo, &T::one())?;
+    Ok((l, dy))
+}
+
+/// How the parameter gradients of a minibatch's shards become the
+/// minibatch's gradient: by default their sum ([`ShardSum`]).
+///
+/// This is the seam for training across processes: an implementation can
+/// sum its own shards, then combine the result with the other processes'
+/// (an allreduce) before the optimiser step. Each process then takes the
+/// same step.
+///
+/// ```
+/// use revdiff::{GradientReduction, ShardSum};
+/// let total = ShardSum.reduce(vec![1.0_f64, 2.0, 3.5]).unwrap();
+/// assert_eq!(total, 6.5);
+/// ```
+pub trait GradientReduction<P> {
+    /// Combines the shards' gradients, given in shard order (at least one).
+    fn reduce(&mut self, shards: Vec<P>) -> Result<P>;
+}
+
+/// The sum of the shards' gradients, added in shard order.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct ShardSum;
+
+impl<P: Space> GradientReduction<P> for ShardSum {
+    fn reduce(&mut self, shards: Vec<P>) -> Result<P> {
+        let mut parts = shards.into_iter();
+        let mut total = parts.next().ok_or(Error::Empty {
+            operation: "summing shard gradients",
+        })?;
+        for part in parts {
+            total.try_add_assign(&part)?;
+        }
+        Ok(total)
     }
 }
 
