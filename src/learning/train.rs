@@ -510,6 +510,7 @@ impl Training {
         )
     }
 
+    #[allow(clippy::too_many_arguments)]
     fn run_core<T, P, B, M, L, O, V>(
         &self,
         model: &M,
