@@ -122,6 +122,13 @@ pub trait Space: Clone + Debug {
         Ok(())
     }
 
+    /// `Ok` if `other` has the shape of `self`, else the error that adding
+    /// them would give. The default tries the sum; the crate's spaces
+    /// compare shapes without computing anything.
+    fn check_same_shape(&self, other: &Self) -> Result<()> {
+        self.try_add(other).map(|_| ())
+    }
+
     /// The shape, printed for error messages: `scalar`, `(3, 4)`, `((2,), scalar)`.
     fn shape_string(&self) -> String;
 
@@ -279,6 +286,9 @@ macro_rules! real_scalar_space {
             fn shape_string(&self) -> String {
                 "scalar".to_string()
             }
+            fn check_same_shape(&self, _: &Self) -> Result<()> {
+                Ok(())
+            }
         }
         impl Scalable<$t> for $t {
             fn scale(&self, s: $t) -> Self {
@@ -376,6 +386,9 @@ impl<T: Real, D: Dimension> Space for Array<T, D> {
     }
     fn shape_string(&self) -> String {
         shape_tuple(self.shape())
+    }
+    fn check_same_shape(&self, other: &Self) -> Result<()> {
+        same_shape("adding arrays", self, other)
     }
     fn value_string(&self) -> String {
         // ndarray's Display nests rows over lines; one line reads better in
@@ -491,9 +504,7 @@ impl<S: Space, const N: usize> Space for [S; N] {
     }
     fn try_add_assign(&mut self, other: &Self) -> Result<()> {
         // Check every slot first so that a refusal leaves `self` unchanged.
-        for (a, b) in self.iter().zip(other) {
-            a.try_add(b)?;
-        }
+        self.check_same_shape(other)?;
         for (a, b) in self.iter_mut().zip(other) {
             a.try_add_assign(b)?;
         }
@@ -505,9 +516,101 @@ impl<S: Space, const N: usize> Space for [S; N] {
             None => "[; 0]".to_string(),
         }
     }
+    fn check_same_shape(&self, other: &Self) -> Result<()> {
+        self.iter()
+            .zip(other)
+            .try_for_each(|(a, b)| a.check_same_shape(b))
+    }
     fn value_string(&self) -> String {
         let parts: Vec<String> = self.iter().map(Space::value_string).collect();
         format!("[{}]", parts.join(", "))
+    }
+}
+
+/// A list of values of one space, for parameters whose count is known only
+/// at run time (the stages of a run-time model). Lists of different
+/// lengths do not add.
+impl<S: Space> Space for Vec<S> {
+    type Shape = Vec<S::Shape>;
+    fn shape(&self) -> Self::Shape {
+        self.iter().map(Space::shape).collect()
+    }
+    fn zero_of(shape: &Self::Shape) -> Self {
+        shape.iter().map(S::zero_of).collect()
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        let mut out = self.clone();
+        out.try_add_assign(other)?;
+        Ok(out)
+    }
+    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+        self.check_same_shape(other)?;
+        for (a, b) in self.iter_mut().zip(other) {
+            a.try_add_assign(b)?;
+        }
+        Ok(())
+    }
+    fn check_same_shape(&self, other: &Self) -> Result<()> {
+        if self.len() != other.len() {
+            return Err(Error::shape(
+                "adding lists",
+                format!("a list of {}", self.len()),
+                format!("a list of {}", other.len()),
+            ));
+        }
+        self.iter()
+            .zip(other)
+            .try_for_each(|(a, b)| a.check_same_shape(b))
+    }
+    fn shape_string(&self) -> String {
+        let parts: Vec<String> = self.iter().map(Space::shape_string).collect();
+        format!("[{}]", parts.join(", "))
+    }
+    fn value_string(&self) -> String {
+        let parts: Vec<String> = self.iter().map(Space::value_string).collect();
+        format!("[{}]", parts.join(", "))
+    }
+}
+
+impl<S: Scalable<K>, K: Copy> Scalable<K> for Vec<S> {
+    fn scale(&self, s: K) -> Self {
+        self.iter().map(|v| v.scale(s)).collect()
+    }
+}
+
+impl<S: Euclidean<R>, R: Real> Euclidean<R> for Vec<S> {
+    fn inner(&self, other: &Self) -> Result<R> {
+        self.check_same_shape(other)?;
+        self.iter()
+            .zip(other)
+            .try_fold(R::zero(), |acc, (a, b)| Ok(acc + a.inner(b)?))
+    }
+    fn dimension(&self) -> usize {
+        self.iter().map(|s| s.dimension()).sum()
+    }
+    fn write_coordinates(&self, out: &mut Vec<R>) {
+        for s in self {
+            s.write_coordinates(out);
+        }
+    }
+    fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self> {
+        self.iter().map(|s| s.read_coordinates(coords)).collect()
+    }
+    fn all_finite(&self) -> bool {
+        self.iter().all(|s| s.all_finite())
+    }
+    fn zip_runs_mut(
+        &mut self,
+        other: &Self,
+        offset: usize,
+        visit: &mut RunVisitor<'_, R>,
+    ) -> Result<usize> {
+        self.check_same_shape(other)?;
+        let mut at = offset;
+        for (a, b) in self.iter_mut().zip(other) {
+            at = a.zip_runs_mut(b, at, visit)?;
+        }
+        Ok(at)
     }
 }
 
@@ -628,7 +731,7 @@ macro_rules! tuple_space {
             }
             fn try_add_assign(&mut self, other: &Self) -> Result<()> {
                 // Check every component first so that a refusal leaves `self` unchanged.
-                $(self.$idx.try_add(&other.$idx)?;)+
+                self.check_same_shape(other)?;
                 $(self.$idx.try_add_assign(&other.$idx)?;)+
                 Ok(())
             }
@@ -639,6 +742,10 @@ macro_rules! tuple_space {
             fn value_string(&self) -> String {
                 let parts = [$(self.$idx.value_string()),+];
                 format!("({})", parts.join(", "))
+            }
+            fn check_same_shape(&self, other: &Self) -> Result<()> {
+                $(self.$idx.check_same_shape(&other.$idx)?;)+
+                Ok(())
             }
         }
         impl<K: Copy, $($name: Scalable<K>),+> Scalable<K> for ($($name,)+) {

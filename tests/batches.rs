@@ -354,3 +354,40 @@ fn large_elementwise_maps_split_across_cores_give_the_same_values() {
             .all(|(a, b)| *a == (1.0 - b.tanh() * b.tanh()) * b)
     );
 }
+
+#[test]
+fn a_run_time_model_has_the_gradient_of_the_same_static_model() {
+    let layers = Layers::<f64>::new(2)
+        .unwrap()
+        .affine(3)
+        .unwrap()
+        .elementwise("tanh", Tanh)
+        .affine(1)
+        .unwrap();
+    let (model, ((w1, b1), (w2, b2))) = small_network();
+    let params: LayerParameters<f64> = vec![(w1.clone(), b1.clone()), (w2.clone(), b2.clone())];
+    let x = wave(9).inputs().clone();
+    let dy = Array2::from_shape_fn((9, 1), |(i, _)| i as f64 - 4.0);
+    let (dp, dx) = layers.backward(&(params.clone(), x.clone()), &dy).unwrap();
+    let (((dw1, db1), (dw2, db2)), dx_static) = model
+        .backward(&(((w1, b1), (w2, b2)), x.clone()), &dy)
+        .unwrap();
+    assert!(near(&dp[0].0, &dw1, 1e-12) && near(&dp[1].0, &dw2, 1e-12));
+    assert!(
+        (&dp[0].1 - &db1)
+            .iter()
+            .chain((&dp[1].1 - &db2).iter())
+            .all(|d| d.abs() < 1e-12)
+    );
+    assert!(near(&dx, &dx_static, 1e-12));
+
+    // Parameters that do not fit the stages name the stage.
+    let mut wrong = params.clone();
+    wrong[1].0 = Array2::zeros((1, 4));
+    let err = layers.forward(&(wrong, x.clone())).unwrap_err();
+    assert!(err.to_string().contains("stage 1: weights (1, 3)"), "{err}");
+    let err = layers.forward(&(params[..1].to_vec(), x)).unwrap_err();
+    assert!(err.to_string().contains("2 (weights, bias) pairs"), "{err}");
+    assert!(Layers::<f64>::new(0).is_err());
+    assert!(Layers::<f64>::new(2).unwrap().affine(0).is_err());
+}

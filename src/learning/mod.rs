@@ -9,6 +9,7 @@
 //! [`Examples`]; [`LeastSquares`] fits small models by Gauss-Newton or
 //! Levenberg-Marquardt instead.
 
+pub mod layers;
 pub mod least_squares;
 pub mod loss;
 pub mod optimise;
@@ -17,6 +18,7 @@ pub mod rows;
 pub mod schedule;
 pub mod train;
 
+pub use layers::{LayerParameters, Layers, StageMemo};
 pub use least_squares::{
     CurveResiduals, FitReport, JacobianRoute, LeastSquares, ResidualMap, Residuals,
     ResidualsAndJacobian, Stop, residual_map,

@@ -1,0 +1,307 @@
+//! Trainable models assembled at run time: depth, widths and activations
+//! read from a configuration rather than written as types.
+
+use crate::dynamic::Boxed;
+use crate::error::{Error, Result};
+use crate::map::{Compose, Map};
+use crate::space::{Real, shape_tuple};
+use ndarray::linalg::general_mat_mul;
+use ndarray::{Array1, Array2, Axis};
+use rand::rngs::StdRng;
+use rand::{RngExt, SeedableRng};
+use std::any::Any;
+use std::fmt;
+
+/// The parameters of [`Layers`]: one `(weights, bias)` pair per affine
+/// stage, in order. A list of spaces is itself a space, so optimisers and
+/// [`Training`](crate::Training) take it as they take a tuple.
+pub type LayerParameters<T> = Vec<(Array2<T>, Array1<T>)>;
+
+enum Stage<T> {
+    /// Affine stage: `(rows, inputs) -> (rows, outputs)`, parameters at `slot`.
+    Affine {
+        inputs: usize,
+        outputs: usize,
+        slot: usize,
+    },
+    /// A parameter-free map on the batch, keeping its width.
+    Elementwise {
+        name: String,
+        map: Boxed<Array2<T>, Array2<T>>,
+    },
+}
+
+/// A trainable model assembled at run time: affine stages with their own
+/// parameters and parameter-free stages between them, acting on a batch (a
+/// matrix whose rows are examples). Its parameters are
+/// [`LayerParameters`]; [`Training`](crate::Training) trains it like any
+/// parametrised map.
+///
+/// Widths are checked as the model is assembled, and the parameters are
+/// checked against the stages at every pass, naming the stage that does
+/// not fit. It is a first-order map (a backward pass, no reverse map).
+///
+/// # Example
+///
+/// Depth and widths read from a configuration string:
+///
+/// ```
+/// use revdiff::{Adam, Examples, Layers, MeanSquaredError, Tanh, Training};
+/// use ndarray::Array2;
+///
+/// let config = "2, 8, 8, 1"; // widths, input first
+/// let widths: Vec<usize> = config.split(',').map(|w| w.trim().parse().unwrap()).collect();
+/// let mut model = Layers::<f64>::new(widths[0]).unwrap();
+/// for (i, &w) in widths[1..].iter().enumerate() {
+///     model = model.affine(w).unwrap();
+///     if i + 2 < widths.len() {
+///         model = model.elementwise("tanh", Tanh);
+///     }
+/// }
+/// assert_eq!(model.to_string(), "2 -> affine 8 -> tanh -> affine 8 -> tanh -> affine 1");
+///
+/// let x = Array2::from_shape_fn((32, 2), |(i, j)| ((i + j) % 7) as f64 / 7.0);
+/// let y = x.sum_axis(ndarray::Axis(1)).insert_axis(ndarray::Axis(1));
+/// let data = Examples::new(x, y).unwrap();
+/// let start = model.initial_parameters(7);
+/// let run = Training::new(50, 8).unwrap()
+///     .run(&model, &MeanSquaredError, &mut Adam::new(0.01).unwrap(), start, &data, |_| {})
+///     .unwrap();
+/// assert!(run.epoch_losses.last() < run.epoch_losses.first());
+/// ```
+pub struct Layers<T> {
+    input_width: usize,
+    width: usize,
+    slots: usize,
+    stages: Vec<Stage<T>>,
+}
+
+impl<T> Compose for Layers<T> {}
+
+impl<T> fmt::Debug for Layers<T> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "Layers({self})")
+    }
+}
+
+impl<T> fmt::Display for Layers<T> {
+    /// The stages in order: `2 -> affine 8 -> tanh -> affine 1`.
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.input_width)?;
+        for stage in &self.stages {
+            match stage {
+                Stage::Affine { outputs, .. } => write!(f, " -> affine {outputs}")?,
+                Stage::Elementwise { name, .. } => write!(f, " -> {name}")?,
+            }
+        }
+        Ok(())
+    }
+}
+
+impl<T: Real> Layers<T> {
+    /// A model with no stages yet, taking rows of `input_width` values (at
+    /// least 1).
+    pub fn new(input_width: usize) -> Result<Self> {
+        positive_width("input width", input_width)?;
+        Ok(Layers {
+            input_width,
+            width: input_width,
+            slots: 0,
+            stages: Vec::new(),
+        })
+    }
+
+    /// Appends an affine stage with `outputs` outputs (at least 1) and
+    /// parameters of its own.
+    pub fn affine(mut self, outputs: usize) -> Result<Self> {
+        positive_width("affine outputs", outputs)?;
+        self.stages.push(Stage::Affine {
+            inputs: self.width,
+            outputs,
+            slot: self.slots,
+        });
+        self.slots += 1;
+        self.width = outputs;
+        Ok(self)
+    }
+
+    /// Appends a parameter-free map on the batch that keeps its shape (an
+    /// elementwise map such as [`Tanh`](crate::Tanh)); `name` shows in
+    /// messages and in the model's `Display`.
+    pub fn elementwise<F>(mut self, name: &str, map: F) -> Self
+    where
+        F: Map<Array2<T>, Output = Array2<T>> + 'static,
+        F::Memo: 'static,
+    {
+        self.stages.push(Stage::Elementwise {
+            name: name.to_string(),
+            map: Boxed::new(map),
+        });
+        self
+    }
+
+    /// The width of the model's output rows.
+    pub fn output_width(&self) -> usize {
+        self.width
+    }
+
+    /// Starting parameters: weights uniform in `+-1/sqrt(inputs)` from a
+    /// generator seeded with `seed`, biases zero.
+    pub fn initial_parameters(&self, seed: u64) -> LayerParameters<T> {
+        let mut rng = StdRng::seed_from_u64(seed);
+        self.affine_shapes()
+            .map(|(inputs, outputs)| {
+                let bound = 1.0 / (inputs as f64).sqrt();
+                let w = Array2::from_shape_fn((outputs, inputs), |_| {
+                    let u: f64 = rng.random();
+                    T::from((2.0 * u - 1.0) * bound).expect("small values fit every real type")
+                });
+                (w, Array1::zeros(outputs))
+            })
+            .collect()
+    }
+
+    fn affine_shapes(&self) -> impl Iterator<Item = (usize, usize)> + '_ {
+        self.stages.iter().filter_map(|s| match s {
+            Stage::Affine {
+                inputs, outputs, ..
+            } => Some((*inputs, *outputs)),
+            Stage::Elementwise { .. } => None,
+        })
+    }
+
+    /// Checks the parameters against the stages and the batch's width.
+    fn check(&self, params: &LayerParameters<T>, x: &Array2<T>) -> Result<()> {
+        if x.ncols() != self.input_width {
+            return Err(Error::shape(
+                "run-time model, its input rows",
+                format!("(_, {})", self.input_width),
+                shape_tuple(x.shape()),
+            ));
+        }
+        if params.len() != self.slots {
+            return Err(Error::shape(
+                "run-time model, its parameters",
+                format!("{} (weights, bias) pairs", self.slots),
+                format!("{} pairs", params.len()),
+            ));
+        }
+        for (k, ((inputs, outputs), (w, b))) in self.affine_shapes().zip(params).enumerate() {
+            if w.dim() != (outputs, inputs) || b.len() != outputs {
+                return Err(Error::ShapeMismatch {
+                    operation: "run-time model, the parameters of an affine stage",
+                    expected: format!(
+                        "stage {k}: weights ({outputs}, {inputs}), bias ({outputs},)"
+                    ),
+                    found: format!(
+                        "weights {}, bias {}",
+                        shape_tuple(w.shape()),
+                        shape_tuple(b.shape())
+                    ),
+                });
+            }
+        }
+        Ok(())
+    }
+}
+
+fn positive_width(name: &'static str, width: usize) -> Result<()> {
+    if width == 0 {
+        return Err(Error::InvalidSetting {
+            name,
+            value: "0".to_string(),
+            reason: "must be at least 1",
+        });
+    }
+    Ok(())
+}
+
+/// What one stage keeps for the backward pass.
+pub enum StageMemo<T> {
+    /// An affine stage: its input rows and its weights.
+    Affine(Array2<T>, Array2<T>),
+    /// A parameter-free stage's own memo.
+    Elementwise(Box<dyn Any>),
+}
+
+impl<T> fmt::Debug for StageMemo<T> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            StageMemo::Affine(..) => "StageMemo::Affine",
+            StageMemo::Elementwise(_) => "StageMemo::Elementwise",
+        })
+    }
+}
+
+impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
+    type Output = Array2<T>;
+    type Memo = Vec<StageMemo<T>>;
+    fn forward_memo(
+        &self,
+        (params, x): &(LayerParameters<T>, Array2<T>),
+    ) -> Result<(Array2<T>, Self::Memo)> {
+        self.check(params, x)?;
+        let mut memos = Vec::with_capacity(self.stages.len());
+        let mut current = x.clone();
+        for stage in &self.stages {
+            current = match stage {
+                Stage::Affine { slot, .. } => {
+                    let (w, b) = &params[*slot];
+                    let mut y = b
+                        .broadcast((current.nrows(), b.len()))
+                        .expect("a vector broadcasts over rows")
+                        .to_owned();
+                    general_mat_mul(T::one(), &current, &w.t(), T::one(), &mut y);
+                    memos.push(StageMemo::Affine(current, w.clone()));
+                    y
+                }
+                Stage::Elementwise { map, .. } => {
+                    let (y, memo) = map.forward_memo(&current)?;
+                    memos.push(StageMemo::Elementwise(memo));
+                    y
+                }
+            };
+        }
+        Ok((current, memos))
+    }
+    fn backward_memo(
+        &self,
+        memos: &Self::Memo,
+        dy: &Array2<T>,
+    ) -> Result<(LayerParameters<T>, Array2<T>)> {
+        let mut grads: Vec<Option<(Array2<T>, Array1<T>)>> = vec![None; self.slots];
+        let mut change = dy.clone();
+        for (stage, memo) in self.stages.iter().zip(memos).rev() {
+            change = match (stage, memo) {
+                (Stage::Affine { slot, outputs, .. }, StageMemo::Affine(x, w)) => {
+                    if change.dim() != (x.nrows(), *outputs) {
+                        return Err(Error::OutputChangeShape {
+                            map: "run-time model (an affine stage)",
+                            expected: shape_tuple(&[x.nrows(), *outputs]),
+                            found: shape_tuple(change.shape()),
+                        });
+                    }
+                    grads[*slot] = Some((change.t().dot(x), change.sum_axis(Axis(0))));
+                    change.dot(w)
+                }
+                (Stage::Elementwise { map, .. }, StageMemo::Elementwise(m)) => {
+                    map.backward_memo(m, &change)?
+                }
+                _ => {
+                    return Err(Error::ForeignMemo {
+                        operation: "run-time model",
+                    });
+                }
+            };
+        }
+        let grads = grads
+            .into_iter()
+            .map(|g| {
+                g.ok_or(Error::ForeignMemo {
+                    operation: "run-time model",
+                })
+            })
+            .collect::<Result<_>>()?;
+        Ok((grads, change))
+    }
+}
