@@ -9,14 +9,14 @@
 #[path = "../benches/support/hand_written.rs"]
 mod hand_written;
 
-use hand_written::{BATCH, Network, Params, WIDTHS, data, start, step_flops};
+use hand_written::{BATCH, Network, Params, WIDTHS, data, library_model, start, step_flops};
 use ndarray::{Array1, Array2, ArrayD};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
 use revdiff::{
-    Adam, Affine, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Parametrised, Real,
-    ShardSum, Sin, Tanh, Then, Training,
+    Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Then,
+    Training,
 };
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::hint::black_box;
@@ -88,10 +88,7 @@ fn at_most(measure: impl Into<String>, value: f64, limit: f64, target: &'static 
 const STEPS_PER_EPOCH: usize = 8;
 
 fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut Vec<Line>) {
-    let model = Affine
-        .then(Tanh)
-        .then_parametrised(Affine.then(Tanh))
-        .then_parametrised(Affine);
+    let model = library_model();
     let rows = BATCH * STEPS_PER_EPOCH;
     let (x, t) = data::<T>(rows);
     let examples = Examples::new(x.clone(), t.clone()).unwrap();
@@ -383,10 +380,7 @@ fn sharded_speed_up(rounds: usize) -> f64 {
 
 /// The child's side of [`sharded_speed_up`]: one shard against two.
 fn measure_shards(rounds: usize) {
-    let model = Affine
-        .then(Tanh)
-        .then_parametrised(Affine.then(Tanh))
-        .then_parametrised(Affine);
+    let model = library_model();
     let batch = 1024;
     let (x, t) = data::<f64>(2 * batch);
     let examples = Examples::new(x, t).unwrap();

@@ -527,6 +527,44 @@ impl<S: Space, const N: usize> Space for [S; N] {
     }
 }
 
+/// The `Euclidean` methods that a sequence of values (a fixed-size array
+/// or a `Vec`) takes from its parts, in order.
+macro_rules! sequence_coordinates {
+    ($r:ty) => {
+        fn inner(&self, other: &Self) -> Result<$r> {
+            self.check_same_shape(other)?;
+            self.iter()
+                .zip(other)
+                .try_fold(<$r>::zero(), |acc, (a, b)| Ok(acc + a.inner(b)?))
+        }
+        fn dimension(&self) -> usize {
+            self.iter().map(|s| s.dimension()).sum()
+        }
+        fn write_coordinates(&self, out: &mut Vec<$r>) {
+            for s in self {
+                s.write_coordinates(out);
+            }
+        }
+        fn all_finite(&self) -> bool {
+            self.iter().all(|s| s.all_finite())
+        }
+        fn zip_runs_mut(
+            &mut self,
+            other: &Self,
+            offset: usize,
+            visit: &mut RunVisitor<'_, $r>,
+        ) -> Result<usize> {
+            // Check every part first, so that a refusal visits nothing.
+            self.check_same_shape(other)?;
+            let mut at = offset;
+            for (a, b) in self.iter_mut().zip(other) {
+                at = a.zip_runs_mut(b, at, visit)?;
+            }
+            Ok(at)
+        }
+    };
+}
+
 /// A list of values of one space, for parameters whose count is known only
 /// at run time (the stages of a run-time model). Lists of different
 /// lengths do not add.
@@ -579,39 +617,10 @@ impl<S: Scalable<K>, K: Copy> Scalable<K> for Vec<S> {
 }
 
 impl<S: Euclidean<R>, R: Real> Euclidean<R> for Vec<S> {
-    fn inner(&self, other: &Self) -> Result<R> {
-        self.check_same_shape(other)?;
-        self.iter()
-            .zip(other)
-            .try_fold(R::zero(), |acc, (a, b)| Ok(acc + a.inner(b)?))
-    }
-    fn dimension(&self) -> usize {
-        self.iter().map(|s| s.dimension()).sum()
-    }
-    fn write_coordinates(&self, out: &mut Vec<R>) {
-        for s in self {
-            s.write_coordinates(out);
-        }
-    }
     fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self> {
         self.iter().map(|s| s.read_coordinates(coords)).collect()
     }
-    fn all_finite(&self) -> bool {
-        self.iter().all(|s| s.all_finite())
-    }
-    fn zip_runs_mut(
-        &mut self,
-        other: &Self,
-        offset: usize,
-        visit: &mut RunVisitor<'_, R>,
-    ) -> Result<usize> {
-        self.check_same_shape(other)?;
-        let mut at = offset;
-        for (a, b) in self.iter_mut().zip(other) {
-            at = a.zip_runs_mut(b, at, visit)?;
-        }
-        Ok(at)
-    }
+    sequence_coordinates!(R);
 }
 
 impl<S: Scalable<K>, K: Copy, const N: usize> Scalable<K> for [S; N] {
@@ -621,19 +630,6 @@ impl<S: Scalable<K>, K: Copy, const N: usize> Scalable<K> for [S; N] {
 }
 
 impl<S: Euclidean<R>, R: Real, const N: usize> Euclidean<R> for [S; N] {
-    fn inner(&self, other: &Self) -> Result<R> {
-        self.iter()
-            .zip(other)
-            .try_fold(R::zero(), |acc, (a, b)| Ok(acc + a.inner(b)?))
-    }
-    fn dimension(&self) -> usize {
-        self.iter().map(|s| s.dimension()).sum()
-    }
-    fn write_coordinates(&self, out: &mut Vec<R>) {
-        for s in self {
-            s.write_coordinates(out);
-        }
-    }
     fn read_coordinates(&self, coords: &mut &[R]) -> Result<Self> {
         let mut parts = Vec::with_capacity(N);
         for s in self {
@@ -645,28 +641,7 @@ impl<S: Euclidean<R>, R: Real, const N: usize> Euclidean<R> for [S; N] {
             found: 0,
         })
     }
-    fn zip_runs_mut(
-        &mut self,
-        other: &Self,
-        offset: usize,
-        visit: &mut RunVisitor<'_, R>,
-    ) -> Result<usize> {
-        // Check every part first, so that a refusal visits nothing.
-        for (a, b) in self.iter().zip(other) {
-            if a.dimension() != b.dimension() {
-                return Err(Error::CoordinateCount {
-                    operation: "walking two fixed-size arrays together",
-                    expected: a.dimension(),
-                    found: b.dimension(),
-                });
-            }
-        }
-        let mut at = offset;
-        for (a, b) in self.iter_mut().zip(other) {
-            at = a.zip_runs_mut(b, at, visit)?;
-        }
-        Ok(at)
-    }
+    sequence_coordinates!(R);
 }
 
 impl<T: Real, const N: usize> Pointwise for [T; N]

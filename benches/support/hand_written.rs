@@ -26,6 +26,24 @@ fn real<T: Real>(v: f64) -> T {
     T::from(v).unwrap()
 }
 
+/// The same network as a library composite, parameters `((l1, l2), l3)`.
+pub type Mlp = revdiff::ThenParametrised<
+    revdiff::ThenParametrised<
+        revdiff::Then<revdiff::Affine, revdiff::Tanh>,
+        revdiff::Then<revdiff::Affine, revdiff::Tanh>,
+    >,
+    revdiff::Affine,
+>;
+
+/// The library's form of the measured network.
+pub fn library_model() -> Mlp {
+    use revdiff::{Affine, Compose, Parametrised, Tanh};
+    Affine
+        .then(Tanh)
+        .then_parametrised(Affine.then(Tanh))
+        .then_parametrised(Affine)
+}
+
 /// Deterministic starting parameters, scaled by `1 / sqrt(fan in)`.
 pub fn start<T: Real>() -> Params<T> {
     let layer = |k: usize| -> Layer<T> {

@@ -163,20 +163,17 @@ impl<F, R, A> Compose for Transpose<F, R, A> {}
 
 impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
     type Output = G::Output;
-    /// Boxed, so that the memo of a deeply nested composite (a reverse
-    /// derivative of order three is thousands of maps) lives on the heap,
-    /// not in ever larger stack frames.
-    type Memo = Box<(F::Memo, G::Memo)>;
+    type Memo = (F::Memo, G::Memo);
     fn forward(&self, x: &A) -> Result<G::Output> {
         self.second.forward(&self.first.forward(x)?)
     }
     fn forward_memo(&self, x: &A) -> Result<(G::Output, Self::Memo)> {
         let (y, rf) = self.first.forward_memo(x)?;
         let (z, rg) = self.second.forward_memo(&y)?;
-        Ok((z, Box::new((rf, rg))))
+        Ok((z, (rf, rg)))
     }
     fn backward_memo(&self, memo: &Self::Memo, dz: &G::Output) -> Result<A> {
-        let (rf, rg) = memo.as_ref();
+        let (rf, rg) = memo;
         let dy = self.second.backward_memo(rg, dz)?;
         self.first.backward_memo(rf, &dy)
     }

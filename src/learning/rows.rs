@@ -128,7 +128,7 @@ where
 ///
 /// let z = array![[2.0, 0.0], [0.0, 0.0]];
 /// let t = array![[1.0, 0.0], [0.0, 1.0]];
-/// let mean = RowMean::new(LogitCrossEntropy).forward(&(z.clone(), t.clone())).unwrap();
+/// let mean: f64 = RowMean::new(LogitCrossEntropy).forward(&(z.clone(), t.clone())).unwrap();
 /// // Cross-entropy sums over a batch's rows; the lifting averages them.
 /// let sum = LogitCrossEntropy.forward(&(z, t)).unwrap();
 /// assert!((mean - sum / 2.0).abs() < 1e-15);

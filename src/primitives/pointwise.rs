@@ -73,6 +73,17 @@ macro_rules! elementwise {
     // input: the backward pass then recomputes nothing.
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr,
      slope from output |$y:ident| $from_output:expr) => {
+        elementwise!(@map [$($gen)*] $ty, keeps output, |$y, _map| $from_output);
+        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
+    };
+    ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
+        elementwise!(@map [$($gen)*] $ty, keeps input,
+            |v, map| Elementwise::<E::Elem>::slope(map, v));
+        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
+    };
+    // `kept` is the input or the output; `$slope` turns one kept element
+    // into the slope there.
+    (@map [$($gen:tt)*] $ty:ty, keeps $which:ident, |$k:ident, $map:ident| $slope:expr) => {
         impl<$($gen)*> Map<E> for $ty {
             type Output = E;
             type Memo = E;
@@ -81,16 +92,19 @@ macro_rules! elementwise {
             }
             fn forward_memo(&self, x: &E) -> Result<(E, E)> {
                 let y = self.forward(x)?;
-                Ok((y.clone(), y))
+                let kept = elementwise!(@kept $which, x, y);
+                Ok((y, kept))
             }
-            fn backward_memo(&self, y: &E, dy: &E) -> Result<E> {
+            fn backward_memo(&self, kept: &E, dy: &E) -> Result<E> {
                 let name = <Self as Elementwise<E::Elem>>::NAME;
-                y.zip_elems(dy, name, |$y, d| $from_output * d)
+                let $map = self;
+                kept.zip_elems(dy, name, |$k, d| $slope * d)
                     .map_err(|e| e.in_output_change(name))
             }
         }
-        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
+    (@kept input, $x:ident, $y:ident) => { $x.clone() };
+    (@kept output, $x:ident, $y:ident) => { $y.clone() };
     (@reverse [$($gen:tt)*] $ty:ty, $slope_ty:ty, |$s:ident| $slope:expr) => {
         impl<$($gen)*> Reverse<E> for $ty {
             type Rev = ElementwiseRev<$slope_ty>;
@@ -99,24 +113,6 @@ macro_rules! elementwise {
                 Fst.then($slope).pair(Snd).then(MulPair)
             }
         }
-    };
-    ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
-        impl<$($gen)*> Map<E> for $ty {
-            type Output = E;
-            type Memo = E;
-            fn forward(&self, x: &E) -> Result<E> {
-                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
-            }
-            fn forward_memo(&self, x: &E) -> Result<(E, E)> {
-                Ok((self.forward(x)?, x.clone()))
-            }
-            fn backward_memo(&self, x: &E, dy: &E) -> Result<E> {
-                let name = <Self as Elementwise<E::Elem>>::NAME;
-                x.zip_elems(dy, name, |v, d| Elementwise::<E::Elem>::slope(self, v) * d)
-                    .map_err(|e| e.in_output_change(name))
-            }
-        }
-        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
 }
 
