@@ -20,6 +20,7 @@
 //! - [`map`]: the core traits ([`Map`], [`Reverse`], [`Linear`], [`Compose`]).
 //! - [`combinators`]: structural maps and combinators.
 //! - [`primitives`]: the catalogue (elementwise, linear algebra, reductions, softmax).
+//! - [`formula`]: maps written with arithmetic operators, for models.
 //! - [`higher`]: forward derivatives, Hessian-vector products, Jacobians.
 //! - [`dynamic`]: type-erased maps and run-time chains.
 //! - [`laws`]: checkers that put any map through the laws of reverse derivatives.
@@ -49,6 +50,7 @@
 pub mod combinators;
 pub mod dynamic;
 pub mod error;
+pub mod formula;
 pub mod higher;
 pub mod laws;
 pub mod learning;
@@ -66,6 +68,7 @@ pub use proptest;
 pub use combinators::*;
 pub use dynamic::{Boxed, Chain, StageShape};
 pub use error::{Error, Result};
+pub use formula::{Formula, formula, input, input_at, parameter};
 pub use higher::{
     forward_derivative, hessian_vector, jacobian, jacobian_by_backward, jacobian_by_forward,
     second_reverse,

@@ -4,6 +4,7 @@
 
 mod batch;
 mod linalg;
+mod pick;
 pub(crate) mod pointwise;
 mod reduce;
 mod softmax;
@@ -16,10 +17,11 @@ pub use linalg::{
     Affine, AffineComposite, MatMul, MatMulRev, MatVec, MatVecRev, MatrixTranspose, Outer,
     OuterRev, affine_composite,
 };
+pub use pick::{Coordinate, PlaceAt, PlaceAtRev, PowPair, PowPairComposite, pow_pair_composite};
 pub use pointwise::{
-    Abs, Clamp, Cos, DivPair, DivPairRev, ElementwiseRev, Exp, Heaviside, InsideBand, Ln, MulPair,
-    MulPairRev, Neg, Powf, Powi, Relu, SechSquared, Sigmoid, Signum, Sin, Softplus, Sqrt, SubPair,
-    Tanh,
+    Abs, Arctan, Clamp, Cos, DivPair, DivPairRev, ElementwiseRev, Exp, ExpMinusOne, Heaviside,
+    InsideBand, IntegerPower, Ln, LnOnePlus, MulPair, MulPairRev, Neg, Powf, Powi, Relu,
+    SechSquared, Shift, Sigmoid, Signum, Sin, Softplus, Sqrt, SubPair, Tanh,
 };
 pub use reduce::{Dot, ElementReduction, FillLike, FillLikeRev, SquaredNorm, dot, squared_norm};
 pub use softmax::{LogSoftmax, LogSoftmaxRev, LogSumExp, LogSumExpRev, Softmax, SoftmaxRev};

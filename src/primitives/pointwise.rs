@@ -19,6 +19,10 @@ use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
 
 impl Compose for Exp {}
+impl Compose for ExpMinusOne {}
+impl Compose for LnOnePlus {}
+impl Compose for Arctan {}
+impl<T> Compose for Shift<T> {}
 impl Compose for Ln {}
 impl Compose for Sqrt {}
 impl Compose for Sin {}
@@ -725,3 +729,148 @@ impl<E: Pointwise> Reverse<(E, E)> for DivPair {
         dy_over_b().pair(dy_over_b().pair(Fst.then(DivPair)).then(MulPair).then(Neg))
     }
 }
+
+/// `x -> x + c` for a fixed real `c`. Reverse derivative: `dy`.
+///
+/// ```
+/// use revdiff::{Map, Shift};
+/// let shift = Shift::new(1.5).unwrap();
+/// assert_eq!(shift.forward(&2.0_f64).unwrap(), 3.5);
+/// assert_eq!(shift.backward(&2.0_f64, &4.0).unwrap(), 4.0);
+/// assert!(Shift::new(f64::NAN).is_err());
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Shift<T> {
+    offset: T,
+}
+
+impl<T: Real> Shift<T> {
+    /// `x -> x + offset`; a non-finite offset is an
+    /// [`Error::InvalidSetting`](crate::Error::InvalidSetting).
+    pub fn new(offset: T) -> Result<Self> {
+        if !offset.is_finite() {
+            return Err(crate::Error::InvalidSetting {
+                name: "shift offset",
+                value: offset.to_string(),
+                reason: "must be finite",
+            });
+        }
+        Ok(Shift { offset })
+    }
+
+    /// `x -> x + offset`, unchecked: for the formula operators, whose
+    /// constants come from the program text.
+    pub(crate) fn by(offset: T) -> Self {
+        Shift { offset }
+    }
+}
+
+impl<T: Real> Elementwise<T> for Shift<T> {
+    const NAME: &'static str = "shift";
+    fn value(&self, x: T) -> T {
+        x + self.offset
+    }
+    fn slope(&self, _: T) -> T {
+        T::one()
+    }
+}
+// The slope is 1 everywhere: x^0.
+elementwise!([T: Real, E: Pointwise<Elem = T>] Shift<T>, slope map Powi<T> = |_s| Powi::new(0));
+
+/// `x -> e^x - 1`, accurate near 0 where `exp(x) - 1` cancels. Reverse
+/// derivative: `e^x dy`.
+///
+/// ```
+/// use revdiff::{ExpMinusOne, Map};
+/// let tiny = 1e-12_f64;
+/// assert!((ExpMinusOne.forward(&tiny).unwrap() - tiny).abs() < 1e-24);
+/// assert_eq!(ExpMinusOne.backward(&0.0_f64, &3.0).unwrap(), 3.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct ExpMinusOne;
+
+impl<T: Real> Elementwise<T> for ExpMinusOne {
+    const NAME: &'static str = "exp minus one";
+    fn value(&self, x: T) -> T {
+        x.exp_m1()
+    }
+    fn slope(&self, x: T) -> T {
+        x.exp()
+    }
+}
+elementwise!([E: Pointwise] ExpMinusOne, slope map Exp = |_s| Exp);
+
+/// `x -> ln(1 + x)`, accurate near 0 where `ln(1 + x)` loses digits.
+/// Domain: `x > -1`. Reverse derivative: `dy / (1 + x)`.
+///
+/// ```
+/// use revdiff::{LnOnePlus, Map};
+/// let tiny = 1e-12_f64;
+/// assert!((LnOnePlus.forward(&tiny).unwrap() - tiny).abs() < 1e-24);
+/// assert_eq!(LnOnePlus.backward(&1.0_f64, &4.0).unwrap(), 2.0);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct LnOnePlus;
+
+impl<T: Real> Elementwise<T> for LnOnePlus {
+    const NAME: &'static str = "ln of one plus";
+    fn value(&self, x: T) -> T {
+        x.ln_1p()
+    }
+    fn slope(&self, x: T) -> T {
+        (T::one() + x).recip()
+    }
+}
+elementwise!([E: Pointwise] LnOnePlus,
+    slope map Then<Shift<E::Elem>, Powi<E::Elem>> =
+    |_s| Shift::by(<E::Elem as num_traits::One>::one()).then(Powi::new(-1)));
+
+/// The arctangent `x -> atan(x)`, in `(-pi/2, pi/2)`. Reverse derivative:
+/// `dy / (1 + x^2)`.
+///
+/// ```
+/// use revdiff::{Arctan, Map};
+/// assert!((Arctan.forward(&1.0_f64).unwrap() - std::f64::consts::FRAC_PI_4).abs() < 1e-15);
+/// assert_eq!(Arctan.backward(&1.0_f64, &1.0).unwrap(), 0.5);
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct Arctan;
+
+impl<T: Real> Elementwise<T> for Arctan {
+    const NAME: &'static str = "arctangent";
+    fn value(&self, x: T) -> T {
+        x.atan()
+    }
+    fn slope(&self, x: T) -> T {
+        (T::one() + x * x).recip()
+    }
+}
+elementwise!([E: Pointwise] Arctan,
+    slope map Then<Then<Powi<E::Elem>, Shift<E::Elem>>, Powi<E::Elem>> =
+    |_s| Powi::new(2).then(Shift::by(<E::Elem as num_traits::One>::one())).then(Powi::new(-1)));
+
+/// The integer power `x -> x^n`, for any real element type (the type of
+/// [`Powi`] carries its coefficient's type; this one does not, which is
+/// what formulas need). Reverse derivative: `n x^(n-1) dy`.
+///
+/// ```
+/// use revdiff::{IntegerPower, Map};
+/// assert_eq!(IntegerPower(3).forward(&2.0_f32).unwrap(), 8.0);
+/// assert_eq!(IntegerPower(3).backward(&2.0_f64, &1.0).unwrap(), 12.0);
+/// ```
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct IntegerPower(pub i32);
+
+impl Compose for IntegerPower {}
+
+impl<T: Real> Elementwise<T> for IntegerPower {
+    const NAME: &'static str = "integer power";
+    fn value(&self, x: T) -> T {
+        x.powi(self.0)
+    }
+    fn slope(&self, x: T) -> T {
+        Powi::with_coefficient(real::<T>(f64::from(self.0)), self.0 - 1).value(x)
+    }
+}
+elementwise!([E: Pointwise] IntegerPower, slope map Powi<E::Elem> =
+    |s| Powi::with_coefficient(real(f64::from(s.0)), s.0 - 1));
