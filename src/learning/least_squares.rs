@@ -739,6 +739,7 @@ impl LeastSquares {
         let mut scale = jtj.diag().to_owned();
         let mut lambda = real(self.initial_damping);
         let mut growth = real(2.0);
+        let mut quiet_steps = 0;
         let at = |q: &Array1<R>| -> Result<P> {
             start.rebuild_from_coordinates(q.as_slice().expect("contiguous"))
         };
@@ -780,43 +781,53 @@ impl LeastSquares {
                 // residuals' second derivative along the step, by one
                 // extra evaluation, bends the step along a curved valley.
                 let jv = j.dot(&velocity);
-                let h = real(0.1);
-                let probe = residuals.residuals(&at(&(&p + &(&velocity * h)))?);
-                evaluations += 1;
+                let size = |v: &Array1<R>| {
+                    v.iter()
+                        .zip(&scale)
+                        .fold(R::zero(), |t, (x, s)| t + *x * *x * *s)
+                        .sqrt()
+                };
                 let mut step = velocity.clone();
-                if let Ok(rh) = &probe
-                    && rh.len() == r.len()
-                    && rh.iter().all(|v| v.is_finite())
-                {
-                    let second = (&(rh - &r) / h - &jv) * (real(2.0) / h);
-                    if let Some(acc) = solve_symmetric(&a, &j.t().dot(&second).mapv(|v| -v)) {
-                        let size = |v: &Array1<R>| {
-                            v.iter()
-                                .zip(&scale)
-                                .fold(R::zero(), |t, (x, s)| t + *x * *x * *s)
-                                .sqrt()
-                        };
-                        // Too large an acceleration means the quadratic
-                        // model is not to be trusted this far: damp more.
-                        if real(2.0) * size(&acc) > real(0.75) * size(&velocity) {
-                            lambda = lambda * growth;
-                            growth = growth * real(2.0);
-                            continue;
+                // Near a minimum the step is tiny and a second difference
+                // would be rounding noise: no acceleration there.
+                if size(&velocity) > real(1e-6) * size(&p) {
+                    let h = real(0.1);
+                    let probe = residuals.residuals(&at(&(&p + &(&velocity * h)))?);
+                    evaluations += 1;
+                    if let Ok(rh) = &probe
+                        && rh.len() == r.len()
+                        && rh.iter().all(|v| v.is_finite())
+                    {
+                        let second = (&(rh - &r) / h - &jv) * (real(2.0) / h);
+                        if let Some(acc) = solve_symmetric(&a, &j.t().dot(&second).mapv(|v| -v)) {
+                            // Too large an acceleration means the quadratic
+                            // model is not to be trusted this far: damp more.
+                            if real(2.0) * size(&acc) > real(0.75) * size(&velocity) {
+                                lambda = lambda * growth;
+                                growth = growth * real(2.0);
+                                continue;
+                            }
+                            step = &velocity + &(acc * real(0.5));
                         }
-                        step = &velocity + &(acc * real(0.5));
                     }
                 }
                 let trial = &p + &step;
                 let trial_r = residuals.residuals(&at(&trial)?);
                 evaluations += 1;
-                let trial_rss = match &trial_r {
-                    Ok(tr) if tr.len() == r.len() && tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
-                    _ => R::infinity(),
+                // The decrease as sum (r - t)(r + t): no cancellation of two
+                // nearly equal sums of squares, so the last digits still
+                // count near the minimum. Likewise the predicted decrease,
+                // -(2 r + J v)' J v.
+                let decrease = match &trial_r {
+                    Ok(tr) if tr.len() == r.len() && tr.iter().all(|v| v.is_finite()) => {
+                        (&r - tr).dot(&(&r + tr))
+                    }
+                    _ => R::neg_infinity(),
                 };
-                let linear = &r + &jv;
-                let predicted = rss - linear.dot(&linear);
-                let gain = (rss - trial_rss) / predicted;
-                if trial_rss < rss && predicted > R::zero() && gain > R::zero() {
+                let predicted = -(&(&r * real(2.0)) + &jv).dot(&jv);
+                let gain = decrease / predicted;
+                if decrease > R::zero() && predicted > R::zero() && gain > R::zero() {
+                    let trial_rss = rss - decrease;
                     // Nielsen (1999): shrink the damping by up to 3 when the
                     // model predicted the decrease well.
                     let t = real(2.0) * gain - R::one();
@@ -852,12 +863,28 @@ impl LeastSquares {
             jtj = j.t().dot(&j);
             let g = j.t().dot(&r);
             let step_tol = real(self.step_tolerance);
-            if step_size <= step_tol * (size + step_tol) {
-                break self.settled(&jtj, &g, rss, residuals.target_scale(), Stop::SmallStep);
-            }
             let decrease = old_rss - rss;
-            if decrease >= R::zero() && decrease <= real(self.reduction_tolerance) * old_rss {
-                break self.settled(&jtj, &g, rss, residuals.target_scale(), Stop::SmallDecrease);
+            let candidate = if step_size <= step_tol * (size + step_tol) {
+                Some(Stop::SmallStep)
+            } else if decrease >= R::zero() && decrease <= real(self.reduction_tolerance) * old_rss
+            {
+                Some(Stop::SmallDecrease)
+            } else {
+                None
+            };
+            if let Some(stop) = candidate {
+                // A small step or decrease ends the fit at once where the
+                // gradient is strictly small, after a few more tries where
+                // it is only loosely small (the last digits still come),
+                // and as a stall where it is not small at all.
+                let scale_y = residuals.target_scale();
+                match self.settled(&jtj, &g, rss, scale_y, stop) {
+                    Stop::Stalled => break Stop::Stalled,
+                    _ if self.strictly_settled(&jtj, &g, rss, scale_y) || quiet_steps >= 4 => {
+                        break stop;
+                    }
+                    _ => quiet_steps += 1,
+                }
             }
         };
         let stop = if stop.converged() && !undetermined(&j).is_empty() {
@@ -899,6 +926,22 @@ impl LeastSquares {
             gk.abs() <= column * (tol * rss.sqrt() + rounding)
         });
         if small { stop } else { Stop::Stalled }
+    }
+
+    /// Whether the first-order conditions hold at the strict gradient
+    /// tolerance (plus the rounding allowance of [`settled`](Self::settled)).
+    fn strictly_settled<R: Real>(
+        &self,
+        jtj: &Array2<R>,
+        g: &Array1<R>,
+        rss: R,
+        target_scale: Option<R>,
+    ) -> bool {
+        let strict = LeastSquares {
+            gradient_tolerance: self.gradient_tolerance * self.gradient_tolerance,
+            ..*self
+        };
+        strict.settled(jtj, g, rss, target_scale, Stop::SmallStep) == Stop::SmallStep
     }
 
     fn gradient_small<R: Real>(&self, jtj: &Array2<R>, g: &Array1<R>, rss: R) -> bool {
