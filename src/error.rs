@@ -117,6 +117,18 @@ pub enum Error {
         /// Rows of the targets.
         targets: usize,
     },
+    /// A least-squares problem with fewer residuals than parameters: no
+    /// fit determines the parameters.
+    #[error(
+        "least squares: {residuals} residuals cannot determine {parameters} parameters \
+         (a fit needs at least as many residuals as parameters)"
+    )]
+    Underdetermined {
+        /// Number of residuals.
+        residuals: usize,
+        /// Number of parameter coordinates.
+        parameters: usize,
+    },
     /// A shard of a sharded training step did not finish.
     #[error("sharded training: {detail}")]
     ShardFailed {

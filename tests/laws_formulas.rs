@@ -40,16 +40,37 @@ fn formulas_compute_what_they_say() {
     let cases: Vec<(f64, f64)> = vec![
         ((parameter(0) + 1.0).forward(&(b.clone(), x)).unwrap(), 2.5),
         ((1.0 - parameter(0)).forward(&(b.clone(), x)).unwrap(), -0.5),
-        ((parameter(0) * input()).forward(&(b.clone(), x)).unwrap(), 1.125),
-        ((parameter(2) / input()).forward(&(b.clone(), x)).unwrap(), 2.0 / 0.75),
+        (
+            (parameter(0) * input()).forward(&(b.clone(), x)).unwrap(),
+            1.125,
+        ),
+        (
+            (parameter(2) / input()).forward(&(b.clone(), x)).unwrap(),
+            2.0 / 0.75,
+        ),
         ((3.0 / parameter(2)).forward(&(b.clone(), x)).unwrap(), 1.5),
         ((parameter(0) / 2.0).forward(&(b.clone(), x)).unwrap(), 0.75),
         ((-parameter(1)).forward(&(b.clone(), x)).unwrap(), 0.5),
-        ((parameter(0) - input()).forward(&(b.clone(), x)).unwrap(), 0.75),
-        (input().pow(parameter(2)).forward(&(b.clone(), x)).unwrap(), 0.5625),
-        (input().powf(0.5).forward(&(b.clone(), x)).unwrap(), 0.75_f64.sqrt()),
-        (input().ln_1p().forward(&(b.clone(), x)).unwrap(), 0.75_f64.ln_1p()),
-        (input().exp_m1().forward(&(b.clone(), x)).unwrap(), 0.75_f64.exp_m1()),
+        (
+            (parameter(0) - input()).forward(&(b.clone(), x)).unwrap(),
+            0.75,
+        ),
+        (
+            input().pow(parameter(2)).forward(&(b.clone(), x)).unwrap(),
+            0.5625,
+        ),
+        (
+            input().powf(0.5).forward(&(b.clone(), x)).unwrap(),
+            0.75_f64.sqrt(),
+        ),
+        (
+            input().ln_1p().forward(&(b.clone(), x)).unwrap(),
+            0.75_f64.ln_1p(),
+        ),
+        (
+            input().exp_m1().forward(&(b.clone(), x)).unwrap(),
+            0.75_f64.exp_m1(),
+        ),
     ];
     for (i, (got, want)) in cases.iter().enumerate() {
         assert!((got - want).abs() < 1e-15, "case {i}: {got} against {want}");
@@ -63,5 +84,9 @@ fn formulas_compute_what_they_say() {
     assert_eq!(db[2], 0.0);
     assert!((dx - 1.5 * -0.5 * e).abs() < 1e-14);
     // An index past the parameters is an error, not a panic.
-    assert!(parameter(5).forward(&(Array1::<f64>::zeros(2), 1.0)).is_err());
+    assert!(
+        parameter(5)
+            .forward(&(Array1::<f64>::zeros(2), 1.0))
+            .is_err()
+    );
 }

@@ -1071,7 +1071,11 @@ fn a_parameter_the_residuals_ignore_has_no_standard_error_and_gauss_newton_stops
     assert!(!report.stop.converged());
     assert_eq!(report.undetermined, vec![1]);
     assert_eq!(report.parameters.1, 5.0);
-    assert!((report.parameters.0 - 27.9_f64 / 14.0).abs() < 1e-9, "{}", report.parameters.0);
+    assert!(
+        (report.parameters.0 - 27.9_f64 / 14.0).abs() < 1e-9,
+        "{}",
+        report.parameters.0
+    );
     assert!(report.standard_errors.is_none());
     // Gauss-Newton cannot solve for c: it stops, says why, keeps the start.
     let gn = LeastSquares::gauss_newton()

@@ -260,3 +260,115 @@ fn every_visible_nist_problem_from_both_starts_to_six_digits() {
     }
     assert!(failures.is_empty(), "below the bar: {failures:?}");
 }
+
+/// A user's residuals whose length changes from point to point.
+struct Shifty;
+
+impl revdiff::Residuals<Array1<f64>> for Shifty {
+    type Real = f64;
+    fn residuals(&self, p: &Array1<f64>) -> revdiff::Result<Array1<f64>> {
+        // Three residuals at the start, two anywhere else.
+        Ok(if p[0] == 1.0 {
+            Array1::from(vec![p[0] - 2.0, p[1], 0.5])
+        } else {
+            Array1::from(vec![p[0] - 2.0, p[1]])
+        })
+    }
+    fn residuals_and_jacobian(
+        &self,
+        p: &Array1<f64>,
+    ) -> revdiff::Result<revdiff::ResidualsAndJacobian<f64>> {
+        let r = self.residuals(p)?;
+        let mut j = ndarray::Array2::zeros((r.len(), 2));
+        j[[0, 0]] = 1.0;
+        j[[1, 1]] = 1.0;
+        Ok((r, j))
+    }
+}
+
+#[test]
+fn silent_outcomes_are_typed_errors_or_honest_stops() {
+    use revdiff::{Error, Stop};
+    // More parameters than residuals: an error naming both counts.
+    let (b, x) = (parameter, input());
+    let three = CurveResiduals::new(
+        b(0) + b(1) * x + b(2) * x * x,
+        vec![1.0, 2.0],
+        vec![1.0, 3.0],
+    )
+    .unwrap();
+    let err = LeastSquares::levenberg_marquardt()
+        .fit(&three, Array1::zeros(3))
+        .unwrap_err();
+    assert_eq!(
+        err,
+        Error::Underdetermined {
+            residuals: 2,
+            parameters: 3
+        }
+    );
+    assert!(
+        LeastSquares::gauss_newton()
+            .fit(&three, Array1::zeros(3))
+            .is_err()
+    );
+
+    // Residuals of inconsistent lengths: an error, not "converged" at the start.
+    let err = LeastSquares::levenberg_marquardt()
+        .fit(&Shifty, Array1::from(vec![1.0, 1.0]))
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+
+    // A plateau (MGH17 from a start where exp(-b x) underflows, b = 700)
+    // is not called converged.
+    let p = read("MGH17", include_str!("data/nist/MGH17.dat"));
+    let xs: Vec<f64> = p.data.iter().map(|r| r[1]).collect();
+    let ys: Vec<f64> = p.data.iter().map(|r| r[0]).collect();
+    let model = b(0) + b(1) * (-x * b(3)).exp() + b(2) * (-x * b(4)).exp();
+    let residuals = CurveResiduals::new(model, xs, ys).unwrap();
+    let fit = LeastSquares::levenberg_marquardt()
+        .fit(&residuals, Array1::from(vec![0.5, 1.5, -1.0, 700.0, 800.0]))
+        .unwrap();
+    assert!(!fit.stop.converged(), "{}", fit.stop);
+    assert!(
+        matches!(fit.stop, Stop::Stalled | Stop::Undetermined),
+        "{}",
+        fit.stop
+    );
+}
+
+#[test]
+fn the_report_has_covariance_correlation_and_intervals() {
+    // Misra1a from start 2: the certified standard deviations (NIST) give
+    // the covariance's diagonal; a 95% interval is estimate +- t(12) se,
+    // with t(12, 0.975) = 2.1788 (from memory).
+    let p = read("Misra1a", include_str!("data/nist/Misra1a.dat"));
+    let (b, x) = (parameter, input());
+    let xs: Vec<f64> = p.data.iter().map(|r| r[1]).collect();
+    let ys: Vec<f64> = p.data.iter().map(|r| r[0]).collect();
+    let residuals = CurveResiduals::new(b(0) * (1.0 - (-b(1) * x).exp()), xs, ys).unwrap();
+    let fit = LeastSquares::levenberg_marquardt()
+        .fit(&residuals, Array1::from(p.starts[1].clone()))
+        .unwrap();
+    let c = fit.covariance.as_ref().unwrap();
+    for k in 0..2 {
+        assert!(digits(c[[k, k]].sqrt(), p.deviations[k]) > 6.0);
+    }
+    let r = fit.correlation().unwrap();
+    assert!((r[[0, 0]] - 1.0).abs() < 1e-12 && (r[[0, 1]] - r[[1, 0]]).abs() < 1e-12);
+    assert!(r[[0, 1]] < -0.9, "b1 and b2 trade off: {}", r[[0, 1]]);
+    let ci = fit.confidence_intervals(0.95).unwrap().unwrap();
+    let half = (ci[0].1 - ci[0].0) / 2.0;
+    assert!(
+        (half / p.deviations[0] - 2.1788).abs() < 1e-3,
+        "{}",
+        half / p.deviations[0]
+    );
+    let s = fit.residual_standard_deviation.unwrap();
+    assert!(digits(s * s * 12.0, p.rss) > 6.0);
+    let text = fit.to_string();
+    assert!(
+        text.contains("95% confidence interval") && text.contains("correlation"),
+        "{text}"
+    );
+}

@@ -8,7 +8,7 @@
 //! ([`CurveResiduals`]; one backward pass per point).
 
 use crate::error::{Error, Result};
-use crate::higher::{jacobian_by_backward, jacobian_by_forward};
+use crate::higher::{jacobian, jacobian_by_backward, jacobian_by_forward};
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real};
 use ndarray::{Array1, Array2, Axis};
@@ -373,6 +373,13 @@ pub struct FitReport<P, R> {
     pub residual_sum_of_squares: R,
     /// Residuals less parameters, `m - n`.
     pub degrees_of_freedom: usize,
+    /// `sqrt(RSS / (m - n))`, the estimate of the residuals' standard
+    /// deviation; `None` without degrees of freedom.
+    pub residual_standard_deviation: Option<R>,
+    /// The covariance matrix of the parameter coordinates,
+    /// `s^2 (J'J)^-1`, in the order of [`Euclidean::coordinates`]; `None`
+    /// when `m <= n` or `J'J` is singular.
+    pub covariance: Option<Array2<R>>,
     /// Standard errors of the parameters, the roots of the diagonal of
     /// `s^2 (J'J)^-1` with `s^2 = RSS / (m - n)`, shaped like the parameters;
     /// `None` when `m <= n` or `J'J` is singular.
@@ -386,33 +393,161 @@ pub struct FitReport<P, R> {
     pub undetermined: Vec<usize>,
 }
 
+impl<P: Euclidean<R>, R: Real> FitReport<P, R> {
+    /// The correlation matrix of the parameter coordinates, from the
+    /// covariance; `None` where the covariance is.
+    pub fn correlation(&self) -> Option<Array2<R>> {
+        let c = self.covariance.as_ref()?;
+        let sd: Vec<R> = c.diag().iter().map(|v| v.sqrt()).collect();
+        Some(Array2::from_shape_fn(c.dim(), |(a, b)| {
+            c[[a, b]] / (sd[a] * sd[b])
+        }))
+    }
+
+    /// Confidence intervals for each parameter coordinate at `level` (in
+    /// `(0, 1)`, say 0.95): estimate plus or minus Student's t quantile with
+    /// the fit's degrees of freedom times the standard error. `Ok(None)`
+    /// where there are no standard errors.
+    ///
+    /// ```
+    /// use revdiff::{input, parameter, CurveResiduals, LeastSquares};
+    /// use ndarray::array;
+    ///
+    /// let model = parameter(0) + parameter(1) * input();
+    /// let fit = LeastSquares::levenberg_marquardt()
+    ///     .fit(&CurveResiduals::new(model, vec![0.0, 1.0, 2.0, 3.0], vec![1.1, 2.9, 5.2, 6.8]).unwrap(), array![0.0, 0.0])
+    ///     .unwrap();
+    /// let intervals = fit.confidence_intervals(0.95).unwrap().unwrap();
+    /// let (low, high) = intervals[1];
+    /// assert!(low < fit.parameters[1] && fit.parameters[1] < high);
+    /// assert!(fit.confidence_intervals(1.5).is_err());
+    /// ```
+    pub fn confidence_intervals(&self, level: f64) -> Result<Option<Vec<(R, R)>>> {
+        if !(level > 0.0 && level < 1.0) {
+            return Err(Error::InvalidSetting {
+                name: "confidence level",
+                value: level.to_string(),
+                reason: "must be in (0, 1)",
+            });
+        }
+        let Some(se) = &self.standard_errors else {
+            return Ok(None);
+        };
+        let t = student_t_quantile(self.degrees_of_freedom, 0.5 + level / 2.0)?;
+        let t = R::from(t).expect("quantiles fit every real type");
+        Ok(Some(
+            self.parameters
+                .coordinates()
+                .iter()
+                .zip(se.coordinates())
+                .map(|(p, s)| (*p - t * s, *p + t * s))
+                .collect(),
+        ))
+    }
+
+    /// Values and standard errors of derived quantities `map(parameters)`,
+    /// by the delta method: the covariance `J C J'` with `J` the Jacobian of
+    /// `map` at the fitted parameters. This is how a fit through a
+    /// reparametrisation (say `b = exp(c)`, to keep `b` positive) reports
+    /// standard errors for the parameter the user cares about. The standard
+    /// errors are `None` where the fit has none.
+    ///
+    /// ```
+    /// use revdiff::{input, parameter, CurveResiduals, Exp, LeastSquares};
+    /// use ndarray::array;
+    ///
+    /// // y = b0 exp(-b1 x) with b1 = exp(c) > 0: fit c, report b1.
+    /// let model = parameter(0) * (-(parameter(1).exp()) * input()).exp();
+    /// let xs: Vec<f64> = (0..10).map(f64::from).collect();
+    /// let ys: Vec<f64> = xs.iter().map(|x| 3.0 * (-0.4 * x).exp() + 0.01 * (x * 7.0).sin()).collect();
+    /// let fit = LeastSquares::levenberg_marquardt()
+    ///     .fit(&CurveResiduals::new(model, xs, ys).unwrap(), array![1.0, 0.0])
+    ///     .unwrap();
+    /// let (rate, rate_se) = fit.derived(&Exp).unwrap();
+    /// assert!((rate[1] - 0.4).abs() < 0.01);
+    /// // The delta method: se(exp(c)) = exp(c) se(c).
+    /// let se = fit.standard_errors.as_ref().unwrap();
+    /// assert!((rate_se.unwrap()[1] - rate[1] * se[1]).abs() < 1e-12);
+    /// ```
+    pub fn derived<M>(&self, map: &M) -> Result<(M::Output, Option<M::Output>)>
+    where
+        M: Reverse<P>,
+        M::Output: Euclidean<R>,
+    {
+        let value = map.forward(&self.parameters)?;
+        let Some(c) = &self.covariance else {
+            return Ok((value, None));
+        };
+        let j = jacobian(map, &self.parameters)?;
+        let cov = j.dot(c).dot(&j.t());
+        let se: Vec<R> = cov.diag().iter().map(|v| v.max(R::zero()).sqrt()).collect();
+        let se = value.rebuild_from_coordinates(&se)?;
+        Ok((value, Some(se)))
+    }
+}
+
+/// Student's t quantile: the `p` quantile with `dof` degrees of freedom.
+fn student_t_quantile(dof: usize, p: f64) -> Result<f64> {
+    use statrs::distribution::{ContinuousCDF, StudentsT};
+    let t = StudentsT::new(0.0, 1.0, dof as f64).map_err(|_| Error::InvalidSetting {
+        name: "degrees of freedom",
+        value: dof.to_string(),
+        reason: "a t distribution needs at least 1",
+    })?;
+    Ok(t.inverse_cdf(p))
+}
+
 impl<P: Euclidean<R>, R: Real> fmt::Display for FitReport<P, R> {
-    /// A sentence on how the fit ended, then a table with one row per
-    /// parameter coordinate (in the order of
-    /// [`Euclidean::coordinates`]): estimate and standard error.
+    /// A sentence on how the fit ended, the residual summary, then a table
+    /// with one row per parameter coordinate (in the order of
+    /// [`Euclidean::coordinates`]): estimate, standard error and 95%
+    /// confidence interval; then the correlation matrix.
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         writeln!(
             f,
             "{} after {} iterations ({} residual evaluations)",
             self.stop, self.iterations, self.evaluations
         )?;
-        writeln!(
+        write!(
             f,
             "residual sum of squares {:.6e}, {} degrees of freedom",
             self.residual_sum_of_squares, self.degrees_of_freedom
         )?;
+        match self.residual_standard_deviation {
+            Some(s) => writeln!(f, ", residual standard deviation {s:.6e}")?,
+            None => writeln!(f)?,
+        }
+        if !self.undetermined.is_empty() {
+            writeln!(
+                f,
+                "not determined by the residuals: coordinates {:?}",
+                self.undetermined
+            )?;
+        }
         let estimates = self.parameters.coordinates();
         let errors = self.standard_errors.as_ref().map(Euclidean::coordinates);
+        let intervals = self.confidence_intervals(0.95).ok().flatten();
         writeln!(
             f,
-            "{:>10}  {:>16}  {:>16}",
-            "coordinate", "estimate", "standard error"
+            "{:>10}  {:>16}  {:>16}  {:>33}",
+            "coordinate", "estimate", "standard error", "95% confidence interval"
         )?;
         for (i, p) in estimates.iter().enumerate() {
-            let se = errors
-                .as_ref()
-                .map_or("not available".to_string(), |e| format!("{:.6e}", e[i]));
-            writeln!(f, "{i:>10}  {p:>16.9e}  {se:>16}")?;
+            let (se, ci) = match (&errors, &intervals) {
+                (Some(e), Some(c)) => (
+                    format!("{:.6e}", e[i]),
+                    format!("{:>16.6e} {:>16.6e}", c[i].0, c[i].1),
+                ),
+                _ => ("not available".to_string(), "not available".to_string()),
+            };
+            writeln!(f, "{i:>10}  {p:>16.9e}  {se:>16}  {ci:>33}")?;
+        }
+        if let Some(c) = self.correlation() {
+            writeln!(f, "correlation")?;
+            for row in c.rows() {
+                let cells: Vec<String> = row.iter().map(|v| format!("{v:>7.3}")).collect();
+                writeln!(f, "{:>10}  {}", "", cells.join(" "))?;
+            }
         }
         Ok(())
     }
@@ -579,6 +714,12 @@ impl LeastSquares {
         let n = p.len();
         let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
         check_pair(&r, &j, n, "at the start")?;
+        if r.len() < n {
+            return Err(Error::Underdetermined {
+                residuals: r.len(),
+                parameters: n,
+            });
+        }
         let mut rss = r.dot(&r);
         let mut lambda = real(self.initial_damping);
         let mut evaluations = 1;
@@ -630,6 +771,9 @@ impl LeastSquares {
                     start.rebuild_from_coordinates(trial.as_slice().expect("contiguous"))?;
                 let trial_r = residuals.residuals(&trial_p);
                 evaluations += 1;
+                if let Ok(tr) = &trial_r {
+                    same_length(tr, &r)?;
+                }
                 let trial_rss = match &trial_r {
                     Ok(tr) if tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
                     _ => R::infinity(),
@@ -690,26 +834,26 @@ impl LeastSquares {
         let rss = r.dot(r);
         let parameters = start.rebuild_from_coordinates(p)?;
         let m = r.len();
-        let standard_errors = if m > n {
+        let covariance = if m > n {
             let s2 = rss / R::from(m - n).expect("counts fit every real type");
-            inverse_symmetric(&j.t().dot(j))
-                .map(|inv| {
-                    inv.diag()
-                        .iter()
-                        .map(|v| (s2 * *v).sqrt())
-                        .collect::<Vec<_>>()
-                })
-                .and_then(|se| parameters.rebuild_from_coordinates(&se).ok())
+            inverse_symmetric(&j.t().dot(j)).map(|inv| inv * s2)
         } else {
             None
         };
+        let standard_errors = covariance.as_ref().and_then(|c| {
+            let se: Vec<R> = c.diag().iter().map(|v| v.sqrt()).collect();
+            parameters.rebuild_from_coordinates(&se).ok()
+        });
         Ok(FitReport {
             parameters,
             iterations,
             evaluations,
             residual_sum_of_squares: rss,
             degrees_of_freedom: m.saturating_sub(n),
+            residual_standard_deviation: (m > n)
+                .then(|| (rss / R::from(m - n).expect("counts fit every real type")).sqrt()),
             standard_errors,
+            covariance,
             stop,
             undetermined: undetermined(j),
         })
@@ -730,6 +874,12 @@ impl LeastSquares {
         let n = p.len();
         let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
         check_pair(&r, &j, n, "at the start")?;
+        if r.len() < n {
+            return Err(Error::Underdetermined {
+                residuals: r.len(),
+                parameters: n,
+            });
+        }
         let mut evaluations = 1;
         let mut iterations = 0;
         let mut rss = r.dot(&r);
@@ -818,10 +968,11 @@ impl LeastSquares {
                 // nearly equal sums of squares, so the last digits still
                 // count near the minimum. Likewise the predicted decrease,
                 // -(2 r + J v)' J v.
+                if let Ok(tr) = &trial_r {
+                    same_length(tr, &r)?;
+                }
                 let decrease = match &trial_r {
-                    Ok(tr) if tr.len() == r.len() && tr.iter().all(|v| v.is_finite()) => {
-                        (&r - tr).dot(&(&r + tr))
-                    }
+                    Ok(tr) if tr.iter().all(|v| v.is_finite()) => (&r - tr).dot(&(&r + tr)),
                     _ => R::neg_infinity(),
                 };
                 let predicted = -(&(&r * real(2.0)) + &jv).dot(&jv);
@@ -965,6 +1116,18 @@ fn undetermined<R: Real>(j: &Array2<R>) -> Vec<usize> {
         .filter(|(_, v)| **v <= tiny)
         .map(|(k, _)| k)
         .collect()
+}
+
+/// A user's residuals must keep their length from point to point.
+fn same_length<R>(trial: &Array1<R>, current: &Array1<R>) -> Result<()> {
+    if trial.len() != current.len() {
+        return Err(Error::shape(
+            "least squares (the residuals at a trial point against those at the current point)",
+            format!("({},)", current.len()),
+            format!("({},)", trial.len()),
+        ));
+    }
+    Ok(())
 }
 
 /// Residuals and Jacobian finite, and the Jacobian shaped `m x n`.
