@@ -372,3 +372,23 @@ fn the_report_has_covariance_correlation_and_intervals() {
         "{text}"
     );
 }
+
+#[test]
+fn parameters_that_only_act_together_are_named() {
+    use revdiff::Stop;
+    // y = (b0 + b1) x: only the sum is determined.
+    let (b, x) = (parameter, input());
+    let residuals =
+        CurveResiduals::new((b(0) + b(1)) * x, vec![1.0, 2.0, 3.0], vec![2.0, 4.1, 5.9]).unwrap();
+    let fit = LeastSquares::levenberg_marquardt()
+        .fit(&residuals, Array1::from(vec![1.0, 0.5]))
+        .unwrap();
+    assert_eq!(fit.stop, Stop::Undetermined);
+    assert_eq!(fit.undetermined, vec![1]);
+    assert!(fit.standard_errors.is_none() && fit.covariance.is_none());
+    assert!((fit.parameters[0] + fit.parameters[1] - 27.9_f64 / 14.0).abs() < 1e-9);
+    assert!(
+        fit.to_string()
+            .contains("not determined by the residuals: coordinates [1]")
+    );
+}

@@ -1105,17 +1105,33 @@ impl LeastSquares {
 }
 
 /// The parameter coordinates the residuals do not determine: those whose
-/// Jacobian column is zero, or negligible against the largest.
+/// Jacobian column vanishes, or lies (to working precision) in the span of
+/// the columns before it, found by Gram-Schmidt on the columns scaled to
+/// unit length. In a dependent set, the later coordinates are named.
 fn undetermined<R: Real>(j: &Array2<R>) -> Vec<usize> {
+    let tiny = R::from(1e-10).expect("small constants fit every real type");
     let norms: Vec<R> = j.columns().into_iter().map(|c| c.dot(&c).sqrt()).collect();
     let largest = norms.iter().fold(R::zero(), |m, v| m.max(*v));
-    let tiny = largest * R::from(1e-10).expect("small constants fit every real type");
-    norms
-        .iter()
-        .enumerate()
-        .filter(|(_, v)| **v <= tiny)
-        .map(|(k, _)| k)
-        .collect()
+    let mut basis: Vec<Array1<R>> = Vec::new();
+    let mut out = Vec::new();
+    for (k, column) in j.columns().into_iter().enumerate() {
+        if norms[k] <= tiny * largest {
+            out.push(k);
+            continue;
+        }
+        let mut v = column.mapv(|x| x / norms[k]);
+        for q in &basis {
+            let along = q.dot(&v);
+            v = v - q * along;
+        }
+        let left = v.dot(&v).sqrt();
+        if left <= tiny.sqrt() {
+            out.push(k);
+        } else {
+            basis.push(v / left);
+        }
+    }
+    out
 }
 
 /// A user's residuals must keep their length from point to point.
