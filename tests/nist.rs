@@ -32,20 +32,19 @@ fn read(name: &'static str, text: &str) -> Problem {
     let lines: Vec<&str> = text.lines().collect();
     for line in &lines {
         let t = line.trim();
-        if let Some(rest) = t.strip_prefix('b') {
-            if let Some((index, values)) = rest.split_once('=') {
-                if index.trim().parse::<usize>().is_ok() {
-                    let v: Vec<f64> = values
-                        .split_whitespace()
-                        .map(|s| s.parse().unwrap())
-                        .collect();
-                    assert_eq!(v.len(), 4, "{name}: {line}");
-                    starts[0].push(v[0]);
-                    starts[1].push(v[1]);
-                    certified.push(v[2]);
-                    deviations.push(v[3]);
-                }
-            }
+        if let Some(rest) = t.strip_prefix('b')
+            && let Some((index, values)) = rest.split_once('=')
+            && index.trim().parse::<usize>().is_ok()
+        {
+            let v: Vec<f64> = values
+                .split_whitespace()
+                .map(|s| s.parse().unwrap())
+                .collect();
+            assert_eq!(v.len(), 4, "{name}: {line}");
+            starts[0].push(v[0]);
+            starts[1].push(v[1]);
+            certified.push(v[2]);
+            deviations.push(v[3]);
         }
         if let Some(rest) = t.strip_prefix("Residual Sum of Squares:") {
             rss = rest.trim().parse().unwrap();
