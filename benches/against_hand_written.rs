@@ -7,9 +7,10 @@
 mod hand_written;
 
 use criterion::{Criterion, criterion_group, criterion_main};
-use hand_written::{BATCH, Network, Params, data, library_model, start};
-use ndarray::Array2;
-use revdiff::{Adam, Examples, Map, MeanSquaredError, Training};
+use hand_written::{
+    BATCH, Network, Params, data, library_gradient, library_model, library_training, start,
+};
+use revdiff::Examples;
 use std::hint::black_box;
 
 fn training_step(c: &mut Criterion) {
@@ -17,25 +18,10 @@ fn training_step(c: &mut Criterion) {
     let (x, t) = data::<f64>(BATCH);
     let examples = Examples::new(x.clone(), t.clone()).unwrap();
     let p0: Params<f64> = start();
-    let training = Training::new(1, BATCH).unwrap();
 
     let mut group = c.benchmark_group("one training step, 256-256-256-10, batch 128, f64");
     group.bench_function("library", |b| {
-        b.iter(|| {
-            let mut adam = Adam::new(1e-3).unwrap();
-            black_box(
-                training
-                    .run(
-                        &model,
-                        &MeanSquaredError,
-                        &mut adam,
-                        p0.clone(),
-                        &examples,
-                        |_| {},
-                    )
-                    .unwrap(),
-            )
-        })
+        b.iter(|| black_box(library_training(&model, 1, &p0, &examples, 1e-3)))
     });
     let mut net = Network::new(&p0);
     group.bench_function("hand-written", |b| {
@@ -49,13 +35,7 @@ fn training_step(c: &mut Criterion) {
     let mut group = c.benchmark_group("one gradient, 256-256-256-10, batch 128, f64");
     let input = (p0.clone(), x.clone());
     group.bench_function("library", |b| {
-        b.iter(|| {
-            let (y, memo) =
-                Map::<(Params<f64>, Array2<f64>)>::forward_memo(&model, &input).unwrap();
-            let (_, lm) = MeanSquaredError.forward_memo(&(y, t.clone())).unwrap();
-            let (dy, _) = MeanSquaredError.backward_memo(&lm, &1.0).unwrap();
-            black_box(Map::<(Params<f64>, Array2<f64>)>::backward_memo(&model, &memo, &dy).unwrap())
-        })
+        b.iter(|| black_box(library_gradient(&model, &input, &t)))
     });
     let mut net = Network::new(&p0);
     group.bench_function("hand-written", |b| {

@@ -9,7 +9,10 @@
 #[path = "../benches/support/hand_written.rs"]
 mod hand_written;
 
-use hand_written::{BATCH, Network, Params, WIDTHS, data, library_model, start, step_flops};
+use hand_written::{
+    BATCH, Network, Params, WIDTHS, data, library_gradient, library_model, library_training, start,
+    step_flops,
+};
 use ndarray::{Array1, Array2, ArrayD};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
@@ -96,21 +99,8 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let lr = T::from(1e-3).unwrap();
 
     // One training run of `epochs` epochs on each side.
-    let training = Training::new(epochs, BATCH).unwrap();
     let library = || {
-        let mut adam = Adam::new(lr).unwrap();
-        black_box(
-            training
-                .run(
-                    &model,
-                    &MeanSquaredError,
-                    &mut adam,
-                    p0.clone(),
-                    &examples,
-                    |_| {},
-                )
-                .unwrap(),
-        );
+        black_box(library_training(&model, epochs, &p0, &examples, lr));
     };
     let mut net = Network::new(&p0);
     let mut order: Vec<usize> = (0..rows).collect();
@@ -151,15 +141,8 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
     let tbatch: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
     let input = (p0.clone(), xb.clone());
-    let loss_pair = |y: Array2<T>| (y, tbatch.clone());
     let lib_gradient = || {
-        let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
-        let pair = loss_pair(y);
-        let (_, loss_memo) = MeanSquaredError.forward_memo(&pair).unwrap();
-        let (dy, _) = MeanSquaredError
-            .backward_memo(&loss_memo, &T::one())
-            .unwrap();
-        black_box(Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap());
+        black_box(library_gradient(&model, &input, &tbatch));
     };
     let mut net = Network::new(&p0);
     let hand_gradient = || {
@@ -168,12 +151,9 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     // Both sides compute the same gradient (checked, not assumed).
     {
         use revdiff::Euclidean;
-        let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
-        let (l, loss_memo) = MeanSquaredError.forward_memo(&(y, tbatch.clone())).unwrap();
-        let (dy, _) = MeanSquaredError
-            .backward_memo(&loss_memo, &T::one())
-            .unwrap();
-        let (dp, _) = Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap();
+        let dp = library_gradient(&model, &input, &tbatch);
+        let (y, _) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
+        let l = MeanSquaredError.forward(&(y, tbatch.clone())).unwrap();
         let mut check = Network::new(&p0);
         let hand_loss = check.gradient(&xb, &tbatch);
         let (a, b) = (dp.coordinates(), check.gradient_as_params().coordinates());
@@ -224,21 +204,8 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     // of two lengths, per extra step.
     if name == "f64" {
         let count = |epochs: usize| {
-            let training = Training::new(epochs, BATCH).unwrap();
-            let mut adam = Adam::new(lr).unwrap();
             let before = ALLOCATIONS.load(Ordering::Relaxed);
-            black_box(
-                training
-                    .run(
-                        &model,
-                        &MeanSquaredError,
-                        &mut adam,
-                        p0.clone(),
-                        &examples,
-                        |_| {},
-                    )
-                    .unwrap(),
-            );
+            black_box(library_training(&model, epochs, &p0, &examples, lr));
             ALLOCATIONS.load(Ordering::Relaxed) - before
         };
         let (short, long) = (count(1), count(3));

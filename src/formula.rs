@@ -85,8 +85,15 @@ pub fn input_at(i: usize) -> Formula<Then<Snd, Coordinate>> {
     Formula(Snd.then(Coordinate::new(i)))
 }
 
-/// Any map as a formula.
-pub fn formula<F: Compose>(f: F) -> Formula<F> {
+/// Any map as a formula, to combine it with operators.
+///
+/// ```
+/// use revdiff::{as_formula, input, Map, Sin};
+/// let wave = as_formula(Sin) * 2.0 + 1.0;
+/// assert_eq!(wave.forward(&0.0_f64).unwrap(), 1.0);
+/// # let _ = input();
+/// ```
+pub fn as_formula<F: Compose>(f: F) -> Formula<F> {
     Formula(f)
 }
 

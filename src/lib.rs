@@ -68,7 +68,7 @@ pub use proptest;
 pub use combinators::*;
 pub use dynamic::{Boxed, Chain, StageShape};
 pub use error::{Error, Result};
-pub use formula::{Formula, formula, input, input_at, parameter};
+pub use formula::{Formula, as_formula, input, input_at, parameter};
 pub use higher::{
     forward_derivative, hessian_vector, jacobian, jacobian_by_backward, jacobian_by_forward,
     second_reverse,

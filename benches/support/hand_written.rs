@@ -44,6 +44,49 @@ pub fn library_model() -> Mlp {
         .then_parametrised(Affine)
 }
 
+/// One library training run: `epochs` epochs of Adam (learning rate `lr`)
+/// on mean squared error, in batches of [`BATCH`] rows.
+pub fn library_training<T: Real>(
+    model: &Mlp,
+    epochs: usize,
+    start: &Params<T>,
+    examples: &revdiff::Examples<T>,
+    lr: T,
+) -> revdiff::Trained<Params<T>, T> {
+    let mut adam = revdiff::Adam::new(lr).unwrap();
+    revdiff::Training::new(epochs, BATCH)
+        .unwrap()
+        .run(
+            model,
+            &revdiff::MeanSquaredError,
+            &mut adam,
+            start.clone(),
+            examples,
+            |_| {},
+        )
+        .unwrap()
+}
+
+/// The library's gradient of mean squared error over one batch: the
+/// model's and the loss's forward and backward passes.
+pub fn library_gradient<T: Real>(
+    model: &Mlp,
+    input: &(Params<T>, Array2<T>),
+    targets: &Array2<T>,
+) -> Params<T> {
+    use revdiff::{Map, MeanSquaredError};
+    let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(model, input).unwrap();
+    let (_, loss_memo) = MeanSquaredError
+        .forward_memo(&(y, targets.clone()))
+        .unwrap();
+    let (dy, _) = MeanSquaredError
+        .backward_memo(&loss_memo, &T::one())
+        .unwrap();
+    Map::<(Params<T>, Array2<T>)>::backward_memo(model, &memo, &dy)
+        .unwrap()
+        .0
+}
+
 /// Deterministic starting parameters, scaled by `1 / sqrt(fan in)`.
 pub fn start<T: Real>() -> Params<T> {
     let layer = |k: usize| -> Layer<T> {
