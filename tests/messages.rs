@@ -119,8 +119,11 @@ fn stops_read_as_sentences_and_reports_as_tables() {
     assert!(lines[0].starts_with(&fit.stop.to_string()), "{text}");
     assert!(lines[1].contains("2 degrees of freedom"), "{text}");
     assert!(lines[2].contains("estimate") && lines[2].contains("standard error"));
-    // One row per parameter coordinate, with the estimate printed.
-    assert_eq!(lines.len(), 5, "{text}");
+    assert!(lines[2].contains("95% confidence interval"), "{text}");
+    // One row per parameter coordinate, with the estimate printed, then the
+    // 2 x 2 correlation matrix under its heading.
+    assert_eq!(lines.len(), 8, "{text}");
+    assert_eq!(lines[5], "correlation", "{text}");
     let slope: f64 = lines[4].split_whitespace().nth(1).unwrap().parse().unwrap();
     assert!(
         (slope - fit.parameters.1).abs() < 1e-8 * slope.abs(),
