@@ -22,7 +22,7 @@ use std::fmt;
 
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
-    fn erased_forward_keep(&self, x: &A) -> Result<(B, Box<dyn Any>)>;
+    fn erased_forward_memo(&self, x: &A) -> Result<(B, Box<dyn Any>)>;
     fn erased_backward(&self, memo: &dyn Any, dy: &B) -> Result<A>;
 }
 
@@ -33,7 +33,7 @@ where
     fn erased_forward(&self, x: &A) -> Result<F::Output> {
         Map::forward(self, x)
     }
-    fn erased_forward_keep(&self, x: &A) -> Result<(F::Output, Box<dyn Any>)> {
+    fn erased_forward_memo(&self, x: &A) -> Result<(F::Output, Box<dyn Any>)> {
         let (y, r) = Map::forward_memo(self, x)?;
         Ok((y, Box::new(r)))
     }
@@ -93,7 +93,7 @@ impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
         self.inner.erased_forward(x)
     }
     fn forward_memo(&self, x: &A) -> Result<(B, Box<dyn Any>)> {
-        self.inner.erased_forward_keep(x)
+        self.inner.erased_forward_memo(x)
     }
     fn backward_memo(&self, memo: &Box<dyn Any>, dy: &B) -> Result<A> {
         self.inner.erased_backward(memo.as_ref(), dy)

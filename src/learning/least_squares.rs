@@ -561,14 +561,16 @@ enum Method {
 
 /// Settings of a least-squares fit, checked at construction.
 ///
-/// Levenberg-Marquardt (Marquardt, 1963) solves
-/// `(J'J + lambda diag(J'J)) d = -J'r` and accepts `p + d` only if it lowers
-/// the residual sum of squares, dividing `lambda` by 10 after an accepted
-/// step and multiplying it by 10 after a refused one. Gauss-Newton takes the
-/// undamped step every time. Both stop when the step is small against the
-/// parameters (`step_tolerance`), when every Jacobian column is nearly
-/// orthogonal to the residuals (`gradient_tolerance`, on the cosine) or when
-/// a step lowers the sum of squares by less than `reduction_tolerance` of it.
+/// Levenberg-Marquardt (Marquardt, 1963) solves a damped system and
+/// accepts a step only if it lowers the residual sum of squares; the
+/// scaling, the damping rule and the geodesic acceleration are described at
+/// [`LeastSquares::levenberg_marquardt`]. Gauss-Newton takes the undamped
+/// step every time. Both test for convergence when every Jacobian column is
+/// nearly orthogonal to the residuals (`gradient_tolerance`, on the cosine),
+/// when the step is small against the parameters (`step_tolerance`) or when
+/// a step lowers the sum of squares by less than `reduction_tolerance` of
+/// it; Levenberg-Marquardt calls the last two converged only where the
+/// gradient is small too, and a stall otherwise ([`Stop`]).
 ///
 /// # Example
 ///
