@@ -117,6 +117,27 @@ pub enum StageShape {
 struct Stage<T> {
     name: String,
     map: Boxed<ArrayD<T>, ArrayD<T>>,
+    /// The output shape the stage declared when it was pushed.
+    output: Vec<usize>,
+}
+
+impl<T: Real> Stage<T> {
+    /// A stage's output must have the shape it declared: otherwise the
+    /// error names this stage, not the next one.
+    fn check_output(&self, position: usize, y: &ArrayD<T>) -> Result<()> {
+        if y.shape() == self.output.as_slice() {
+            return Ok(());
+        }
+        Err(Error::ShapeMismatch {
+            operation: "run-time chain, a stage's output against the shape it declared",
+            expected: format!(
+                "stage {position} ({}) declared {}",
+                self.name,
+                shape_tuple(&self.output)
+            ),
+            found: shape_tuple(y.shape()),
+        })
+    }
 }
 
 /// A sequence of stages `ArrayD<T> -> ArrayD<T>`, shape-checked as it is
@@ -199,6 +220,7 @@ impl<T: Real> Chain<T> {
         self.stages.push(Stage {
             name: name.to_string(),
             map: Boxed::new(map),
+            output: output.clone(),
         });
         self.output_shape = output;
         Ok(())
@@ -280,8 +302,10 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
             return Ok(x.clone());
         };
         let mut y = first.map.forward(x)?;
-        for stage in rest {
+        first.check_output(0, &y)?;
+        for (k, stage) in rest.iter().enumerate() {
             y = stage.map.forward(&y)?;
+            stage.check_output(k + 1, &y)?;
         }
         Ok(y)
     }
@@ -289,8 +313,9 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         self.check_input(x)?;
         let mut y = x.clone();
         let mut memos = Vec::with_capacity(self.stages.len());
-        for stage in &self.stages {
+        for (k, stage) in self.stages.iter().enumerate() {
             let (next, r) = stage.map.forward_memo(&y)?;
+            stage.check_output(k, &next)?;
             memos.push(r);
             y = next;
         }

@@ -33,6 +33,14 @@ pub fn second_reverse<A: Space, F: Reverse<A>>(f: &F) -> <F::Rev as Reverse<(A, 
 /// assert!((d - x.sin().exp() * x.cos() * 2.0).abs() < 1e-12);
 /// ```
 pub fn forward_derivative<A: Space, F: Reverse<A>>(f: &F, x: &A, v: &A) -> Result<F::Output> {
+    // A direction of another shape would pass silently through linear maps.
+    x.check_same_shape(v).map_err(|_| {
+        Error::shape(
+            "forward derivative, its direction against the input",
+            x.shape_string(),
+            v.shape_string(),
+        )
+    })?;
     let zero = f.forward(x)?.zero_like();
     let (_, dy) = second_reverse(f).forward(&((x.clone(), zero), v.clone()))?;
     Ok(dy)

@@ -223,13 +223,20 @@ pub struct Term<R> {
 }
 
 fn checked_allowance<R: Real>(name: &'static str, value: R) -> Result<R> {
-    if value.is_finite() && value >= R::zero() {
+    // The relative allowances must leave room for rounding: at zero every
+    // correct map would be reported broken. The absolute one may be zero.
+    let zero_allowed = name == "absolute";
+    if value.is_finite() && (value > R::zero() || (zero_allowed && value == R::zero())) {
         Ok(value)
     } else {
         Err(Error::InvalidSetting {
             name,
             value: value.to_string(),
-            reason: "a tolerance must be finite and not negative",
+            reason: if zero_allowed {
+                "an absolute tolerance must be finite and not negative"
+            } else {
+                "a relative tolerance must be finite and positive (zero leaves no room for rounding)"
+            },
         })
     }
 }

@@ -258,7 +258,9 @@ impl LogitBinaryCrossEntropy {
 impl<T: Real> Huber<T> {
     /// The equal composite of catalogue pieces.
     pub fn composite(&self) -> HuberComposite<T> {
-        let clamp = Clamp::new(self.delta);
+        // The threshold was checked when the loss was made.
+        let clamp =
+            Clamp::new(self.delta).expect("a checked Huber threshold is a valid clamp limit");
         let inner = clamp
             .pair(Id)
             .then(MulPair)

@@ -416,7 +416,8 @@ elementwise!([E: Pointwise] Softplus, slope map Sigmoid = |_s| Sigmoid);
 ///
 /// ```
 /// use revdiff::{Clamp, Map};
-/// let c = Clamp::new(1.0_f64);
+/// let c = Clamp::new(1.0_f64).unwrap();
+/// assert!(Clamp::new(-1.0_f64).is_err());
 /// assert_eq!(c.forward(&-3.0).unwrap(), -1.0);
 /// assert_eq!(c.backward(&0.5, &2.0).unwrap(), 2.0);
 /// assert_eq!(c.backward(&3.0, &2.0).unwrap(), 0.0);
@@ -428,9 +429,11 @@ pub struct Clamp<T> {
 }
 
 impl<T: Real> Clamp<T> {
-    /// Clamping to `[-limit, limit]`.
-    pub fn new(limit: T) -> Self {
-        Clamp { limit }
+    /// Clamping to `[-limit, limit]`; a negative or non-finite limit is an
+    /// [`Error::InvalidSetting`](crate::Error::InvalidSetting).
+    pub fn new(limit: T) -> Result<Self> {
+        band_limit("clamp limit", limit)?;
+        Ok(Clamp { limit })
     }
 }
 
@@ -440,18 +443,19 @@ impl<T: Real> Elementwise<T> for Clamp<T> {
         x.max(-self.limit).min(self.limit)
     }
     fn slope(&self, x: T) -> T {
-        InsideBand::new(self.limit).value(x)
+        InsideBand { limit: self.limit }.value(x)
     }
 }
 elementwise!([T: Real, E: Pointwise<Elem = T>] Clamp<T>,
-    slope map InsideBand<T> = |s| InsideBand::new(s.limit));
+    slope map InsideBand<T> = |s| InsideBand { limit: s.limit });
 
 /// The indicator of a band: 1 where `|x| < limit`, 0 elsewhere; the slope of
 /// [`Clamp`]. Its derivative is taken to be 0 everywhere.
 ///
 /// ```
 /// use revdiff::{InsideBand, Map};
-/// let band = InsideBand::new(1.0_f64);
+/// let band = InsideBand::new(1.0_f64).unwrap();
+/// assert!(InsideBand::new(f64::NAN).is_err());
 /// assert_eq!(band.forward(&0.5).unwrap(), 1.0);
 /// assert_eq!(band.forward(&-1.0).unwrap(), 0.0);
 /// ```
@@ -462,9 +466,23 @@ pub struct InsideBand<T> {
 }
 
 impl<T: Real> InsideBand<T> {
-    /// The indicator of `(-limit, limit)`.
-    pub fn new(limit: T) -> Self {
-        InsideBand { limit }
+    /// The indicator of `(-limit, limit)`; a negative or non-finite limit
+    /// is an [`Error::InvalidSetting`](crate::Error::InvalidSetting).
+    pub fn new(limit: T) -> Result<Self> {
+        band_limit("band limit", limit)?;
+        Ok(InsideBand { limit })
+    }
+}
+
+fn band_limit<T: Real>(name: &'static str, limit: T) -> Result<()> {
+    if limit.is_finite() && limit >= T::zero() {
+        Ok(())
+    } else {
+        Err(crate::Error::InvalidSetting {
+            name,
+            value: limit.to_string(),
+            reason: "must be finite and not negative",
+        })
     }
 }
 
