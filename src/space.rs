@@ -489,6 +489,26 @@ impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
     }
 }
 
+/// The `Space` sums of a sequence of values (a fixed-size array or a
+/// `Vec`): part by part, after checking every part's shape, so that a
+/// refusal leaves `self` unchanged.
+macro_rules! sequence_sums {
+    () => {
+        fn try_add(&self, other: &Self) -> Result<Self> {
+            let mut out = self.clone();
+            out.try_add_assign(other)?;
+            Ok(out)
+        }
+        fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+            self.check_same_shape(other)?;
+            for (a, b) in self.iter_mut().zip(other) {
+                a.try_add_assign(b)?;
+            }
+            Ok(())
+        }
+    };
+}
+
 impl<S: Space, const N: usize> Space for [S; N] {
     type Shape = [S::Shape; N];
     fn shape(&self) -> Self::Shape {
@@ -497,19 +517,7 @@ impl<S: Space, const N: usize> Space for [S; N] {
     fn zero_of(shape: &Self::Shape) -> Self {
         std::array::from_fn(|i| S::zero_of(&shape[i]))
     }
-    fn try_add(&self, other: &Self) -> Result<Self> {
-        let mut out = self.clone();
-        out.try_add_assign(other)?;
-        Ok(out)
-    }
-    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
-        // Check every slot first so that a refusal leaves `self` unchanged.
-        self.check_same_shape(other)?;
-        for (a, b) in self.iter_mut().zip(other) {
-            a.try_add_assign(b)?;
-        }
-        Ok(())
-    }
+    sequence_sums!();
     fn shape_string(&self) -> String {
         match self.first() {
             Some(s) => format!("[{}; {N}]", s.shape_string()),
@@ -576,18 +584,7 @@ impl<S: Space> Space for Vec<S> {
     fn zero_of(shape: &Self::Shape) -> Self {
         shape.iter().map(S::zero_of).collect()
     }
-    fn try_add(&self, other: &Self) -> Result<Self> {
-        let mut out = self.clone();
-        out.try_add_assign(other)?;
-        Ok(out)
-    }
-    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
-        self.check_same_shape(other)?;
-        for (a, b) in self.iter_mut().zip(other) {
-            a.try_add_assign(b)?;
-        }
-        Ok(())
-    }
+    sequence_sums!();
     fn check_same_shape(&self, other: &Self) -> Result<()> {
         if self.len() != other.len() {
             return Err(Error::shape(

@@ -723,7 +723,6 @@ impl LeastSquares {
             });
         }
         let mut rss = r.dot(&r);
-        let mut lambda = real(self.initial_damping);
         let mut evaluations = 1;
         let mut iterations = 0;
         let stop = loop {
@@ -740,64 +739,20 @@ impl LeastSquares {
             }
             iterations += 1;
             let current = Array1::from(p.clone());
-            // Marquardt's scaling damps each parameter by its own curvature;
-            // a floor keeps a parameter the residuals ignore from making the
-            // damped system singular (its step is then zero).
-            let largest = jtj.diag().iter().fold(R::zero(), |m, v| m.max(*v));
-            let floor = if largest > R::zero() {
-                largest * real(1e-12)
-            } else {
-                R::one()
+            // The undamped step; Levenberg-Marquardt is `fit_damped`.
+            let Some(step) = solve_symmetric(&jtj, &g.mapv(|v| -v)) else {
+                break Stop::Singular;
             };
-            // Try damped steps until one lowers the sum of squares.
-            let accepted = loop {
-                let mut a = jtj.clone();
-                if self.method == Method::LevenbergMarquardt {
-                    for k in 0..n {
-                        a[[k, k]] = a[[k, k]] + lambda * jtj[[k, k]].max(floor);
-                    }
-                }
-                let step = match solve_symmetric(&a, &g.mapv(|v| -v)) {
-                    Some(d) => d,
-                    None if self.method == Method::GaussNewton => break Err(Stop::Singular),
-                    None => {
-                        lambda = lambda * real(10.0);
-                        if lambda > real(MAX_DAMPING) {
-                            break Err(Stop::DampingLimit);
-                        }
-                        continue;
-                    }
-                };
-                let trial = &current + &step;
-                let trial_p =
-                    start.rebuild_from_coordinates(trial.as_slice().expect("contiguous"))?;
-                let trial_r = residuals.residuals(&trial_p);
-                evaluations += 1;
-                if let Ok(tr) = &trial_r {
-                    same_length(tr, &r)?;
-                }
-                let trial_rss = match &trial_r {
-                    Ok(tr) if tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
-                    _ => R::infinity(),
-                };
-                if self.method == Method::GaussNewton {
-                    if !trial_rss.is_finite() {
-                        break Err(Stop::NonFiniteStep);
-                    }
-                    break Ok((trial, step, trial_rss));
-                }
-                if trial_rss < rss {
-                    lambda = lambda / real(10.0);
-                    break Ok((trial, step, trial_rss));
-                }
-                lambda = lambda * real(10.0);
-                if lambda > real(MAX_DAMPING) {
-                    break Err(Stop::DampingLimit);
-                }
-            };
-            let (trial, step, trial_rss) = match accepted {
-                Ok(found) => found,
-                Err(stop) => break stop,
+            let trial = &current + &step;
+            let trial_p = start.rebuild_from_coordinates(trial.as_slice().expect("contiguous"))?;
+            let trial_r = residuals.residuals(&trial_p);
+            evaluations += 1;
+            if let Ok(tr) = &trial_r {
+                same_length(tr, &r)?;
+            }
+            let trial_rss = match &trial_r {
+                Ok(tr) if tr.iter().all(|v| v.is_finite()) => tr.dot(tr),
+                _ => break Stop::NonFiniteStep,
             };
             let step_norm = step.dot(&step).sqrt();
             let size = current.dot(&current).sqrt();
