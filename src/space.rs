@@ -489,9 +489,9 @@ impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
     }
 }
 
-/// The `Space` sums of a sequence of values (a fixed-size array or a
-/// `Vec`): part by part, after checking every part's shape, so that a
-/// refusal leaves `self` unchanged.
+/// The `Space` sums and printing of a sequence of values (a fixed-size
+/// array or a `Vec`): part by part, after checking every part's shape, so
+/// that a refusal leaves `self` unchanged.
 macro_rules! sequence_sums {
     () => {
         fn try_add(&self, other: &Self) -> Result<Self> {
@@ -505,6 +505,10 @@ macro_rules! sequence_sums {
                 a.try_add_assign(b)?;
             }
             Ok(())
+        }
+        fn value_string(&self) -> String {
+            let parts: Vec<String> = self.iter().map(Space::value_string).collect();
+            format!("[{}]", parts.join(", "))
         }
     };
 }
@@ -528,10 +532,6 @@ impl<S: Space, const N: usize> Space for [S; N] {
         self.iter()
             .zip(other)
             .try_for_each(|(a, b)| a.check_same_shape(b))
-    }
-    fn value_string(&self) -> String {
-        let parts: Vec<String> = self.iter().map(Space::value_string).collect();
-        format!("[{}]", parts.join(", "))
     }
 }
 
@@ -599,10 +599,6 @@ impl<S: Space> Space for Vec<S> {
     }
     fn shape_string(&self) -> String {
         let parts: Vec<String> = self.iter().map(Space::shape_string).collect();
-        format!("[{}]", parts.join(", "))
-    }
-    fn value_string(&self) -> String {
-        let parts: Vec<String> = self.iter().map(Space::value_string).collect();
         format!("[{}]", parts.join(", "))
     }
 }

@@ -726,16 +726,10 @@ impl LeastSquares {
         let mut evaluations = 1;
         let mut iterations = 0;
         let stop = loop {
-            if rss == R::zero() {
-                break Stop::ExactFit;
-            }
             let jtj = j.t().dot(&j);
             let g = j.t().dot(&r);
-            if self.gradient_small(&jtj, &g, rss) {
-                break Stop::SmallGradient;
-            }
-            if iterations == self.max_iterations {
-                break Stop::IterationLimit;
+            if let Some(stop) = self.before_step(rss, &jtj, &g, iterations) {
+                break stop;
             }
             iterations += 1;
             let current = Array1::from(p.clone());
@@ -816,6 +810,26 @@ impl LeastSquares {
         })
     }
 
+    /// The tests made before every step, by both methods: an exact fit, a
+    /// small gradient, the iteration limit.
+    fn before_step<R: Real>(
+        &self,
+        rss: R,
+        jtj: &Array2<R>,
+        g: &Array1<R>,
+        iterations: usize,
+    ) -> Option<Stop> {
+        if rss == R::zero() {
+            Some(Stop::ExactFit)
+        } else if self.gradient_small(jtj, g, rss) {
+            Some(Stop::SmallGradient)
+        } else if iterations == self.max_iterations {
+            Some(Stop::IterationLimit)
+        } else {
+            None
+        }
+    }
+
     /// The gradient test: the largest cosine between the residual vector and
     /// a Jacobian column, `|J_k' r| / (|J_k| |r|)`.
     /// Levenberg-Marquardt with Moré's scaling, Nielsen's damping update and
@@ -851,15 +865,9 @@ impl LeastSquares {
             start.rebuild_from_coordinates(q.as_slice().expect("contiguous"))
         };
         let stop = loop {
-            if rss == R::zero() {
-                break Stop::ExactFit;
-            }
             let g = j.t().dot(&r);
-            if self.gradient_small(&jtj, &g, rss) {
-                break Stop::SmallGradient;
-            }
-            if iterations == self.max_iterations {
-                break Stop::IterationLimit;
+            if let Some(stop) = self.before_step(rss, &jtj, &g, iterations) {
+                break stop;
             }
             iterations += 1;
             let largest = jtj.diag().iter().fold(R::zero(), |m, v| m.max(*v));
