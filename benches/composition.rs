@@ -31,13 +31,13 @@ fn compositions(c: &mut Criterion) {
         chain.push_elementwise("sigmoid", Sigmoid).unwrap();
     }
 
-    let mut boxed: Boxed<Array1<f64>, Array1<f64>> = Boxed::new(Tanh);
+    let mut boxed: Boxed<Array1<f64>, Array1<f64>> = Boxed::new(Tanh).unwrap();
     for i in 0..7 {
         boxed = match i % 4 {
-            0 => Boxed::new(boxed.then(Sin)),
-            1 => Boxed::new(boxed.then(Softplus)),
-            2 => Boxed::new(boxed.then(Sigmoid)),
-            _ => Boxed::new(boxed.then(Tanh)),
+            0 => Boxed::new(boxed.then(Sin)).unwrap(),
+            1 => Boxed::new(boxed.then(Softplus)).unwrap(),
+            2 => Boxed::new(boxed.then(Sigmoid)).unwrap(),
+            _ => Boxed::new(boxed.then(Tanh)).unwrap(),
         };
     }
 

@@ -14,15 +14,20 @@ fn law_checks(c: &mut Criterion) {
     let mut group = c.benchmark_group("laws of a 100-dim map, 256 cases");
     group.sample_size(10);
     group.bench_function("every law, orders 1 and 2", |b| {
-        b.iter(|| black_box(checker.reverse(&map, vectors(100, -2.0, 2.0))).is_clean())
+        b.iter(|| black_box(checker.reverse(&map, vectors(100, -2.0, 2.0).unwrap())).is_clean())
     });
     group.bench_function("first-order laws", |b| {
-        b.iter(|| black_box(checker.map(&map, vectors(100, -2.0, 2.0))).is_clean())
+        b.iter(|| black_box(checker.map(&map, vectors(100, -2.0, 2.0).unwrap())).is_clean())
     });
     group.bench_function("derivative law alone", |b| {
         b.iter(|| {
-            black_box(checker.reverse_law(Law::Derivative, 1, &map, vectors(100, -2.0, 2.0)))
-                .is_clean()
+            black_box(checker.reverse_law(
+                Law::Derivative,
+                1,
+                &map,
+                vectors(100, -2.0, 2.0).unwrap(),
+            ))
+            .is_clean()
         })
     });
     group.finish();

@@ -288,9 +288,9 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
         1.5,
         "<= 1.5",
     ));
-    let mut boxed: Boxed<f64, f64> = Boxed::new(Sin);
+    let mut boxed: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
     for _ in 1..8 {
-        boxed = Boxed::new(boxed.then(Sin));
+        boxed = Boxed::new(boxed.then(Sin)).unwrap();
     }
     let (nested, _) = race(
         rounds,

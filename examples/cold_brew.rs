@@ -115,7 +115,10 @@ fn main() -> std::result::Result<(), Box<dyn StdError>> {
         .unwrap_or_else(|| "target/cold_brew_fit.svg".to_string());
 
     // 1. The hand-written primitive goes through every law before use.
-    let cases = ((0.5..5.0f64, 0.5..4.0f64), positive_vectors(3, 0.1, 12.0));
+    let cases = (
+        (0.5..5.0f64, 0.5..4.0f64),
+        positive_vectors(3, 0.1, 12.0).unwrap(),
+    );
     let report = Checker::new().map(&Rise, cases);
     println!("{report}");
     report.assert_clean();

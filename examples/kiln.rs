@@ -103,8 +103,10 @@ fn main() -> Result<()> {
 
     // The same question, asked of every law at 256 drawn inputs, at orders
     // 1 and 2 (the reverse map's own derivative included).
-    let report = revdiff::laws::Checker::new()
-        .reverse(&GatedRamp, revdiff::laws::strategies::vectors(2, -4.0, 4.0));
+    let report = revdiff::laws::Checker::new().reverse(
+        &GatedRamp,
+        revdiff::laws::strategies::vectors(2, -4.0, 4.0).unwrap(),
+    );
     println!(
         "law check of the hand-written primitive: {} of {} checks broken",
         report.violations().len(),

@@ -47,32 +47,74 @@ where
 
 /// A map `A -> B` whose concrete type is erased. Created by [`Boxed::new`].
 ///
+/// Boxed maps may hold boxed maps, to a depth of at most
+/// [`Boxed::MAX_DEPTH`]: every pass (and dropping the map) recurses once
+/// per level, and an unoptimised build spends about a kilobyte of stack per
+/// level, so that 1,000 levels fit a thread's default 2 MiB. For models
+/// deeper than that, a [`Chain`] holds any number of stages side by side,
+/// without nesting.
+///
 /// ```
-/// use revdiff::{Boxed, Compose, Map, Sin};
+/// use revdiff::{Boxed, Compose, Error, Map, Sin};
 /// // A left-nested chain whose depth is read at run time.
 /// let depth = 5;
-/// let mut f: Boxed<f64, f64> = Boxed::new(Sin);
+/// let mut f: Boxed<f64, f64> = Boxed::new(Sin)?;
 /// for _ in 1..depth {
-///     f = Boxed::new(f.then(Sin));
+///     f = Boxed::new(f.then(Sin))?;
 /// }
 /// let mut expect = 0.5_f64;
 /// for _ in 0..depth {
 ///     expect = expect.sin();
 /// }
-/// assert_eq!(f.forward(&0.5).unwrap(), expect);
+/// assert_eq!(f.forward(&0.5)?, expect);
+///
+/// // Nesting past the limit is refused, not a stack overflow later.
+/// let mut g: Boxed<f64, f64> = Boxed::new(Sin)?;
+/// let refused = loop {
+///     match Boxed::new(g.then(Sin)) {
+///         Ok(deeper) => g = deeper,
+///         Err(e) => break e,
+///     }
+/// };
+/// assert!(matches!(refused, Error::NestingTooDeep { limit: Boxed::<f64, f64>::MAX_DEPTH, .. }));
+/// # Ok::<(), revdiff::Error>(())
 /// ```
 pub struct Boxed<A, B> {
     inner: Box<dyn ErasedMap<A, B>>,
+    depth: usize,
 }
 
 impl<A: Space, B: Space> Boxed<A, B> {
-    /// Erases the type of `map`.
-    pub fn new<F>(map: F) -> Self
+    /// The deepest nesting of boxed maps that [`new`](Self::new) accepts.
+    pub const MAX_DEPTH: usize = 1000;
+
+    /// Erases the type of `map`. If `map` already holds boxed maps nested
+    /// [`MAX_DEPTH`](Self::MAX_DEPTH) deep, this is
+    /// [`Error::NestingTooDeep`].
+    pub fn new<F>(map: F) -> Result<Self>
+    where
+        F: Map<A, Output = B> + 'static,
+        F::Memo: 'static,
+    {
+        let depth = map.boxed_depth() + 1;
+        if depth > Self::MAX_DEPTH {
+            return Err(Error::NestingTooDeep {
+                depth,
+                limit: Self::MAX_DEPTH,
+            });
+        }
+        Ok(Self::unchecked(map))
+    }
+
+    /// [`new`](Self::new) without the depth limit, for the crate's own
+    /// stages, which hold maps a user has already boxed.
+    pub(crate) fn unchecked<F>(map: F) -> Self
     where
         F: Map<A, Output = B> + 'static,
         F::Memo: 'static,
     {
         Boxed {
+            depth: map.boxed_depth() + 1,
             inner: Box::new(map),
         }
     }
@@ -84,7 +126,11 @@ impl<A, B> fmt::Debug for Boxed<A, B> {
     }
 }
 
-impl<A, B> Compose for Boxed<A, B> {}
+impl<A, B> Compose for Boxed<A, B> {
+    fn boxed_depth(&self) -> usize {
+        self.depth
+    }
+}
 
 impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
     type Output = B;
@@ -219,7 +265,7 @@ impl<T: Real> Chain<T> {
         };
         self.stages.push(Stage {
             name: name.to_string(),
-            map: Boxed::new(map),
+            map: Boxed::new(map)?,
             output: output.clone(),
         });
         self.output_shape = output;
@@ -291,7 +337,15 @@ impl<T: Real> Chain<T> {
     }
 }
 
-impl<T> Compose for Chain<T> {}
+impl<T> Compose for Chain<T> {
+    fn boxed_depth(&self) -> usize {
+        self.stages
+            .iter()
+            .map(|s| s.map.boxed_depth())
+            .max()
+            .unwrap_or(0)
+    }
+}
 
 impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     type Output = ArrayD<T>;

@@ -147,6 +147,17 @@ pub enum Error {
         /// What was wrong there.
         problem: String,
     },
+    /// Boxed maps nested deeper than [`Boxed::MAX_DEPTH`](crate::Boxed::MAX_DEPTH).
+    #[error(
+        "boxed maps nested {depth} deep, beyond the limit of {limit}: every pass recurses once \
+         per level and would overflow the stack; a Chain holds any number of stages without nesting"
+    )]
+    NestingTooDeep {
+        /// The nesting the refused map would have had.
+        depth: usize,
+        /// The limit.
+        limit: usize,
+    },
     /// Training met a non-finite loss, gradient or parameter.
     #[error("training step {step} (epoch {epoch}): the {quantity} is not finite")]
     Diverged {

@@ -46,7 +46,11 @@ use std::ops;
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Formula<F>(pub F);
 
-impl<F> Compose for Formula<F> {}
+impl<F: Compose> Compose for Formula<F> {
+    fn boxed_depth(&self) -> usize {
+        self.0.boxed_depth()
+    }
+}
 
 impl<A: Space, F: Map<A>> Map<A> for Formula<F> {
     type Output = F::Output;

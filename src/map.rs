@@ -253,4 +253,14 @@ pub trait Compose {
     {
         Scaled::new(self, s)
     }
+
+    /// How deeply [`Boxed`](crate::Boxed) maps nest inside this map: 0
+    /// for a map that holds none. Combinators report the deepest of their
+    /// parts, so that [`Boxed::new`](crate::Boxed::new) can refuse nesting
+    /// deeper than the stack allows. A hand-written map that holds other
+    /// maps should report the deepest of theirs; the default, 0, is right
+    /// for every other map.
+    fn boxed_depth(&self) -> usize {
+        0
+    }
 }

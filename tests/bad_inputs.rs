@@ -42,6 +42,10 @@ fn each_bad_input_gets_its_typed_error() {
         .push("shrinks", Shrinks, StageShape::Preserving)
         .unwrap();
     let x3 = ArrayD::from_elem(vec![3], 1.0);
+    let mut deepest: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
+    for _ in 1..Boxed::<f64, f64>::MAX_DEPTH {
+        deepest = Boxed::new(deepest.then(Sin)).unwrap();
+    }
     let checked = table! {
         "examples with different row counts" =>
             Examples::new(array![[1.0], [2.0]], array![[1.0]]), Error::RowCountMismatch { .. },
@@ -87,8 +91,18 @@ fn each_bad_input_gets_its_typed_error() {
             Error::Underdetermined { .. },
         "an iteration limit of zero" =>
             LeastSquares::levenberg_marquardt().max_iterations(0), Error::InvalidSetting { .. },
+        "a reversed range for a strategy" =>
+            laws::strategies::log_uniform(2.0, -2.0), Error::InvalidSetting { .. },
+        "a strategy of empty vectors" =>
+            laws::strategies::vectors(0, -1.0, 1.0), Error::InvalidSetting { .. },
+        "a strategy with a NaN bound" =>
+            laws::strategies::matrices(2, 2, f64::NAN, 1.0), Error::InvalidSetting { .. },
+        "a detection limit below the estimated allowance" =>
+            Tolerance::<f64>::default().detection_limit(1e-9), Error::InvalidSetting { .. },
+        "boxed maps nested past the limit" =>
+            Boxed::new(deepest.then(Sin)), Error::NestingTooDeep { .. },
     };
-    assert_eq!(checked, 25);
+    assert_eq!(checked, 30);
 
     // The chain's message names the stage that broke its shape.
     let err = chain.forward(&x3).unwrap_err();
@@ -112,4 +126,37 @@ fn each_bad_input_gets_its_typed_error() {
         fit.confidence_intervals(1.0),
         Err(Error::InvalidSetting { .. })
     ));
+}
+
+#[test]
+fn boxed_maps_at_the_depth_limit_run_and_drop_on_a_small_stack() {
+    // A thread's default stack in a test; the limit is chosen for it.
+    let ran = std::thread::Builder::new()
+        .stack_size(2 << 20)
+        .spawn(|| {
+            let mut f: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
+            for _ in 1..Boxed::<f64, f64>::MAX_DEPTH {
+                f = Boxed::new(f.then(Sin)).unwrap();
+            }
+            let mut expect = 0.5_f64;
+            for _ in 0..Boxed::<f64, f64>::MAX_DEPTH {
+                expect = expect.sin();
+            }
+            assert_eq!(f.forward(&0.5).unwrap(), expect);
+            f.backward(&0.5, &1.0).unwrap()
+        })
+        .unwrap()
+        .join()
+        .unwrap();
+    assert!(ran > 0.0 && ran < 1.0, "{ran}");
+}
+
+#[test]
+fn a_law_check_of_an_empty_input_is_a_violation_not_a_pass() {
+    let empty = proptest::strategy::Just(Array1::<f64>::zeros(0));
+    let report = Checker::new().map(&Exp, empty);
+    assert!(!report.is_clean(), "{report}");
+    assert_eq!(report.violations().len(), Law::FOR_MAPS.len());
+    let v = report.violation(Law::Derivative, 1).unwrap();
+    assert!(v.breach.measure.contains("no coordinates"), "{v}");
 }

@@ -56,20 +56,26 @@ fn the_batched_affine_map_is_the_per_row_map_on_every_row() {
 fn the_batched_affine_map_and_its_pieces_obey_the_laws_at_two_orders() {
     let checker = Checker::new().cases(64).unwrap();
     let inputs = (
-        (matrices(3, 4, -2.0, 2.0), vectors(3, -2.0, 2.0)),
-        matrices(5, 4, -2.0, 2.0),
+        (
+            matrices(3, 4, -2.0, 2.0).unwrap(),
+            vectors(3, -2.0, 2.0).unwrap(),
+        ),
+        matrices(5, 4, -2.0, 2.0).unwrap(),
     );
     checker.reverse(&Affine, inputs.clone()).assert_clean();
     checker
         .same_reverse(&Affine, &affine_batch_composite(), inputs)
         .assert_clean();
     checker
-        .reverse(&ColumnSums, matrices(4, 3, -3.0, 3.0))
+        .reverse(&ColumnSums, matrices(4, 3, -3.0, 3.0).unwrap())
         .assert_clean();
     checker
         .reverse(
             &RepeatRows,
-            (matrices(4, 3, -3.0, 3.0), vectors(3, -3.0, 3.0)),
+            (
+                matrices(4, 3, -3.0, 3.0).unwrap(),
+                vectors(3, -3.0, 3.0).unwrap(),
+            ),
         )
         .assert_clean();
 }

@@ -158,9 +158,9 @@ impl Map<f64> for Counting {
 #[test]
 fn left_nested_chain_of_1000_evaluates_each_map_once() {
     let count = Rc::new(Cell::new(0));
-    let mut chain: Boxed<f64, f64> = Boxed::new(Counting(count.clone()));
+    let mut chain: Boxed<f64, f64> = Boxed::new(Counting(count.clone())).unwrap();
     for _ in 1..1000 {
-        chain = Boxed::new(chain.then(Counting(count.clone())));
+        chain = Boxed::new(chain.then(Counting(count.clone()))).unwrap();
     }
     let x = 0.3_f64;
     let grad = chain.backward(&x, &1.0).unwrap();

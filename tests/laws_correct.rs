@@ -38,7 +38,7 @@ fn exp_near_30() {
     // exp(30) is about 1e13: errors must be judged relative to it.
     checker().reverse(&Exp, 29.0..31.0f64).assert_clean();
     checker()
-        .reverse(&Exp, positive_vectors(8, 29.0, 31.0))
+        .reverse(&Exp, positive_vectors(8, 29.0, 31.0).unwrap())
         .assert_clean();
 }
 
@@ -47,37 +47,46 @@ fn ln_near_1e_minus_6() {
     // Central differences must stay inside the domain: steps shrink to a
     // fraction of x.
     checker()
-        .reverse(&Ln, log_uniform(1e-7, 1e-5))
+        .reverse(&Ln, log_uniform(1e-7, 1e-5).unwrap())
         .assert_clean();
 }
 
 #[test]
 fn sqrt_near_zero_from_above() {
     checker()
-        .reverse(&Sqrt, log_uniform(1e-12, 1e-3))
+        .reverse(&Sqrt, log_uniform(1e-12, 1e-3).unwrap())
         .assert_clean();
 }
 
 #[test]
 fn matrix_products_of_100_by_100() {
-    let inputs = (matrices(100, 100, -1.0, 1.0), matrices(100, 100, -1.0, 1.0));
+    let inputs = (
+        matrices(100, 100, -1.0, 1.0).unwrap(),
+        matrices(100, 100, -1.0, 1.0).unwrap(),
+    );
     check_large(&MatMul::plain(), inputs);
 }
 
 #[test]
 fn sums_of_10000_terms() {
-    check_large(&ElementReduction::sum(), vectors(10_000, -1.0, 1.0));
+    check_large(
+        &ElementReduction::sum(),
+        vectors(10_000, -1.0, 1.0).unwrap(),
+    );
 }
 
 #[test]
 fn inner_products_of_10000_terms() {
-    let pairs = (vectors(10_000, -1.0, 1.0), vectors(10_000, -1.0, 1.0));
+    let pairs = (
+        vectors(10_000, -1.0, 1.0).unwrap(),
+        vectors(10_000, -1.0, 1.0).unwrap(),
+    );
     check_large(&dot(), pairs);
 }
 
 #[test]
 fn smooth_maps_in_100_dimensions() {
-    let x = || vectors(100, -3.0, 3.0);
+    let x = || vectors(100, -3.0, 3.0).unwrap();
     checker().reverse(&Tanh, x()).assert_clean();
     checker().reverse(&Sigmoid.then(Sin), x()).assert_clean();
     checker().reverse(&LogSumExp, x()).assert_clean();
@@ -87,8 +96,11 @@ fn smooth_maps_in_100_dimensions() {
 #[test]
 fn an_affine_layer_with_a_nonlinearity() {
     let inputs = (
-        (matrices(4, 6, -1.0, 1.0), vectors(4, -1.0, 1.0)),
-        vectors(6, -2.0, 2.0),
+        (
+            matrices(4, 6, -1.0, 1.0).unwrap(),
+            vectors(4, -1.0, 1.0).unwrap(),
+        ),
+        vectors(6, -2.0, 2.0).unwrap(),
     );
     let layer = Affine.then(Tanh).then(squared_norm());
     checker().reverse(&layer, inputs).assert_clean();
@@ -96,7 +108,7 @@ fn an_affine_layer_with_a_nonlinearity() {
 
 #[test]
 fn pair_laws_hold_for_library_composites() {
-    let x = || vectors(5, -2.0, 2.0);
+    let x = || vectors(5, -2.0, 2.0).unwrap();
     let c = checker();
     c.chain_rule_reverse(&Sin.then(Exp), &Sin, &Exp, x())
         .assert_clean();
@@ -112,8 +124,8 @@ fn pair_laws_hold_for_library_composites() {
 fn maps_without_a_reverse_map_are_checked_at_first_order() {
     // Boxed maps are first-order only; law 3 then uses central differences
     // of the backward pass.
-    let boxed: Boxed<Array1<f64>, Array1<f64>> = Boxed::new(Tanh.then(Sin));
-    let report = checker().map(&boxed, vectors(20, -2.0, 2.0));
+    let boxed: Boxed<Array1<f64>, Array1<f64>> = Boxed::new(Tanh.then(Sin)).unwrap();
+    let report = checker().map(&boxed, vectors(20, -2.0, 2.0).unwrap());
     report.assert_clean();
     assert_eq!(report.checked().len(), Law::FOR_MAPS.len());
 }

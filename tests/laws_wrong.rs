@@ -92,7 +92,7 @@ impl Map<Array1<f64>> for Untransposed {
 #[test]
 fn untransposed_matrix_breaks_the_derivative_law() {
     let a = array![[1.0, 2.0, 0.0], [0.0, 1.0, 3.0], [0.0, 0.0, 1.0]];
-    let report = Checker::new().map(&Untransposed(a.clone()), vectors(3, -2.0, 2.0));
+    let report = Checker::new().map(&Untransposed(a.clone()), vectors(3, -2.0, 2.0).unwrap());
     let c = broken::<Array1<f64>, Array1<f64>>(&report, Law::Derivative, 1);
     // The map is linear, so the input does not matter and shrinks to 0.
     assert!(c.x.iter().all(|&x| x == 0.0), "{report}");
@@ -323,7 +323,7 @@ impl Map<Array1<f64>> for SlightlyWrongTanh {
 
 #[test]
 fn a_relative_gradient_error_of_1e_minus_4_is_caught_in_100_dimensions() {
-    let report = Checker::new().map(&SlightlyWrongTanh, vectors(100, -2.0, 2.0));
+    let report = Checker::new().map(&SlightlyWrongTanh, vectors(100, -2.0, 2.0).unwrap());
     broken::<Array1<f64>, Array1<f64>>(&report, Law::Derivative, 1);
 }
 
@@ -378,7 +378,7 @@ impl Map<Array1<f64>> for WrongShape {
 
 #[test]
 fn wrong_backward_shape_breaks_the_shape_law() {
-    let report = Checker::new().map(&WrongShape, vectors(3, -1.0, 1.0));
+    let report = Checker::new().map(&WrongShape, vectors(3, -1.0, 1.0).unwrap());
     let v = report
         .violation(Law::ShapesFinite, 1)
         .unwrap_or_else(|| panic!("{report}"));
@@ -456,7 +456,7 @@ fn the_macro_generates_failing_tests_for_wrong_maps() {
     // what a generated test does for the wrong cube at order 2.
     let result = std::panic::catch_unwind(|| {
         Checker::new()
-            .reverse_law(Law::Derivative, 2, &Cube, nonzero(0.5, 3.0))
+            .reverse_law(Law::Derivative, 2, &Cube, nonzero(0.5, 3.0).unwrap())
             .assert_clean()
     });
     let message = *result.unwrap_err().downcast::<String>().unwrap();

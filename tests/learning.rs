@@ -23,14 +23,20 @@ fn near<D: ndarray::Dimension>(
 
 /// Pairs of arrays of length 3 with entries in [-3, 3].
 fn pairs() -> impl Strategy<Value = (Array1<f64>, Array1<f64>)> + Clone {
-    (vectors(3, -3.0, 3.0), vectors(3, -3.0, 3.0))
+    (
+        vectors(3, -3.0, 3.0).unwrap(),
+        vectors(3, -3.0, 3.0).unwrap(),
+    )
 }
 
 /// Pairs whose differences stay 0.15 away from the Huber threshold 1, where
 /// the loss has no second derivative.
 fn huber_pairs() -> impl Strategy<Value = (Array1<f64>, Array1<f64>)> + Clone {
     let gap = prop_oneof![-0.85..0.85f64, 1.15..3.0f64, -3.0..-1.15f64];
-    (vectors(3, -2.0, 2.0), proptest::collection::vec(gap, 3))
+    (
+        vectors(3, -2.0, 2.0).unwrap(),
+        proptest::collection::vec(gap, 3),
+    )
         .prop_map(|(t, r)| (&t + &Array1::from(r), t))
 }
 
@@ -194,13 +200,16 @@ fn a_loss_composes_with_a_model_like_any_map() {
 type Layer = (Array2<f64>, Array1<f64>);
 
 fn layer(rows: usize, cols: usize) -> impl Strategy<Value = Layer> + Clone {
-    (matrices(rows, cols, -1.0, 1.0), vectors(rows, -1.0, 1.0))
+    (
+        matrices(rows, cols, -1.0, 1.0).unwrap(),
+        vectors(rows, -1.0, 1.0).unwrap(),
+    )
 }
 
 #[test]
 fn stacked_models_pass_the_laws_and_agree_with_their_composite() {
     let model = Affine.then(Tanh).then_parametrised(Affine.then(Sigmoid));
-    let inputs = ((layer(3, 2), layer(2, 3)), vectors(2, -2.0, 2.0));
+    let inputs = ((layer(3, 2), layer(2, 3)), vectors(2, -2.0, 2.0).unwrap());
     let checker = Checker::new().cases(64).unwrap();
     checker.reverse(&model, inputs.clone()).assert_clean();
     checker
@@ -240,13 +249,19 @@ fn reparametrised_shared_frozen_and_bound_maps_pass_the_laws() {
     checker
         .reverse(
             &Affine.freeze_second(array![0.5, -0.5]).then(Tanh),
-            (matrices(2, 2, -1.0, 1.0), vectors(2, -1.0, 1.0)),
+            (
+                matrices(2, 2, -1.0, 1.0).unwrap(),
+                vectors(2, -1.0, 1.0).unwrap(),
+            ),
         )
         .assert_clean();
     checker
         .reverse(
             &Affine.freeze_first(array![[1.0, 2.0]]),
-            (vectors(1, -1.0, 1.0), vectors(2, -1.0, 1.0)),
+            (
+                vectors(1, -1.0, 1.0).unwrap(),
+                vectors(2, -1.0, 1.0).unwrap(),
+            ),
         )
         .assert_clean();
     // All parameters bound: an ordinary map of the input.
@@ -254,7 +269,7 @@ fn reparametrised_shared_frozen_and_bound_maps_pass_the_laws() {
         .then(Tanh)
         .with_parameters((array![[0.3, -0.7]], array![0.1]));
     checker
-        .reverse(&bound, vectors(2, -2.0, 2.0))
+        .reverse(&bound, vectors(2, -2.0, 2.0).unwrap())
         .assert_clean();
 }
 

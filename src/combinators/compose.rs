@@ -154,12 +154,33 @@ impl<F, R, A> Transpose<F, R, A> {
     }
 }
 
-impl<F, G> Compose for Then<F, G> {}
-impl<F, G> Compose for Pair<F, G> {}
-impl<F, G> Compose for Alongside<F, G> {}
-impl<F, G> Compose for Plus<F, G> {}
-impl<F, S> Compose for Scaled<F, S> {}
-impl<F, R, A> Compose for Transpose<F, R, A> {}
+/// A combinator of two maps nests as deeply as the deeper of them.
+macro_rules! compose_two {
+    ($($ty:ident . $a:ident . $b:ident),*) => {$(
+        impl<F: Compose, G: Compose> Compose for $ty<F, G> {
+            fn boxed_depth(&self) -> usize {
+                self.$a.boxed_depth().max(self.$b.boxed_depth())
+            }
+        }
+    )*};
+}
+compose_two!(
+    Then.first.second,
+    Pair.left.right,
+    Alongside.left.right,
+    Plus.left.right
+);
+
+impl<F: Compose, S> Compose for Scaled<F, S> {
+    fn boxed_depth(&self) -> usize {
+        self.map.boxed_depth()
+    }
+}
+impl<F: Compose, R: Compose, A> Compose for Transpose<F, R, A> {
+    fn boxed_depth(&self) -> usize {
+        self.map.boxed_depth().max(self.rev.boxed_depth())
+    }
+}
 
 impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
     type Output = G::Output;

@@ -65,9 +65,13 @@ impl<F, C> ReversedThrough<F, C> {
     }
 }
 
-impl<F, C> Compose for ReversedThrough<F, C> {}
+impl<F: Compose, C: Compose> Compose for ReversedThrough<F, C> {
+    fn boxed_depth(&self) -> usize {
+        self.map.boxed_depth().max(self.composite.boxed_depth())
+    }
+}
 
-impl<A: Space, F: Map<A>, C> Map<A> for ReversedThrough<F, C> {
+impl<A: Space, F: Map<A>, C: Compose> Map<A> for ReversedThrough<F, C> {
     type Output = F::Output;
     type Memo = F::Memo;
     fn forward(&self, x: &A) -> Result<F::Output> {

@@ -3,7 +3,7 @@
 //! values, exactly.
 
 use super::case::{Case, Drawn};
-use super::judge::{Discrepancy, ExactComparison, ExactPairing, ExactScalar, Outcome};
+use super::judge::{Discrepancy, ExactComparison, ExactPairing, ExactScalar, Finding, Outcome};
 use super::law::{CaseValue, Law};
 use super::pairs;
 use super::report::{LawReport, Violation, short_type_name};
@@ -151,7 +151,7 @@ impl<K: ExactScalar> Exhaustive<K> {
     {
         let checks = [Law::Additive, Law::ZeroChange, Law::ShapesFinite].map(|l| (l, 1));
         self.run(short_type_name::<F>(), &checks, domain, |law, _, c| {
-            map_law_exact(&self.judge, law, f, c).unwrap_or_else(|| Err(unexpected(law)))
+            map_law_exact(&self.judge, law, f, c).unwrap_or_else(|| Err(unexpected(law).into()))
         })
     }
 
@@ -182,7 +182,7 @@ impl<K: ExactScalar> Exhaustive<K> {
             } else {
                 reverse_law_exact(&self.judge, law, &rev, &c.lift())
             };
-            outcome.unwrap_or_else(|| Err(unexpected(law)))
+            outcome.unwrap_or_else(|| Err(unexpected(law).into()))
         })
     }
 
@@ -320,7 +320,13 @@ impl<K: ExactScalar> Exhaustive<K> {
             let mut violation = None;
             loop {
                 let case = domain.case(&slots, &index);
-                if let Err(breach) = super::sampled::guarded(|| eval(law, order, &case)) {
+                if let Err(finding) = super::sampled::guarded(|| eval(law, order, &case)) {
+                    // Exact comparisons always decide; an undecided finding
+                    // can only come from a law that needs real arithmetic.
+                    let breach = match finding {
+                        Finding::Broken(b) => b,
+                        Finding::Undecided(why) => Discrepancy::failure(why),
+                    };
                     violation = Some(self.violation(law, order, breach, case));
                     break;
                 }
@@ -329,7 +335,7 @@ impl<K: ExactScalar> Exhaustive<K> {
                     break;
                 }
             }
-            report.record(law, order, checked, violation);
+            report.record(law, order, checked, None, violation);
         }
         report
     }

@@ -22,6 +22,16 @@ pub struct Discrepancy {
     pub tolerance: Option<f64>,
     /// What `error` measures (or why there is no measure).
     pub measure: String,
+    /// The coordinates of `expected - observed`, for numeric comparisons
+    /// (empty otherwise). The sampling checker compares them across tiny
+    /// perturbations of the case to tell rounding from a broken law.
+    pub difference: Vec<f64>,
+    /// The size of the values compared, which the allowance is relative
+    /// to, when the comparison has one.
+    pub scale: Option<f64>,
+    /// The name of the observed side alone, which tells the comparisons of
+    /// one law apart.
+    pub compared: String,
 }
 
 impl Discrepancy {
@@ -34,6 +44,9 @@ impl Discrepancy {
             error: None,
             tolerance: None,
             measure: what.into(),
+            difference: Vec::new(),
+            scale: None,
+            compared: String::new(),
         }
     }
 
@@ -52,8 +65,50 @@ impl From<Error> for Discrepancy {
     }
 }
 
-/// The result of checking one law at one case.
-pub type Outcome = std::result::Result<(), Discrepancy>;
+/// What checking one law at one case found, when the law did not simply
+/// hold there.
+///
+/// ```
+/// use revdiff::laws::{Discrepancy, Finding};
+///
+/// let broken: Finding = Discrepancy::failure("the map panicked").into();
+/// assert!(matches!(broken, Finding::Broken(_)));
+/// let unsure = Finding::Undecided("the estimate is too coarse here".to_string());
+/// assert_eq!(unsure.to_string(), "undecided: the estimate is too coarse here");
+/// ```
+#[derive(Clone, Debug, PartialEq)]
+pub enum Finding {
+    /// The law is broken at the case.
+    Broken(Discrepancy),
+    /// The checker cannot tell at this case whether the law holds: the map
+    /// is too ill-conditioned here for the precision (the reason says how).
+    /// Such a case neither passes nor fails; the report counts it.
+    Undecided(String),
+}
+
+impl std::fmt::Display for Finding {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Finding::Broken(d) => write!(f, "broken: {}", d.summary()),
+            Finding::Undecided(why) => write!(f, "undecided: {why}"),
+        }
+    }
+}
+
+impl From<Discrepancy> for Finding {
+    fn from(d: Discrepancy) -> Self {
+        Finding::Broken(d)
+    }
+}
+
+impl From<Error> for Finding {
+    fn from(e: Error) -> Self {
+        Finding::Broken(e.into())
+    }
+}
+
+/// The result of checking one law at one case: `Ok` if it held.
+pub type Outcome = std::result::Result<(), Finding>;
 
 /// A way of comparing the scalars a law produces (inner products).
 ///
@@ -100,34 +155,61 @@ pub trait ComparisonIn<S: Space>: Comparison {
 ///   error of `exact` relative to the scale of the values: the largest of
 ///   the Euclidean norms of the two sides and of the parts they were summed
 ///   from, or for inner products the sum of the absolute values of their
-///   terms. Rounding is relative to those sizes, so sums of 10,000 terms
-///   and 100 x 100 matrix products pass while real differences do not.
+///   terms.
 /// - Comparisons against central differences (law 2, and law 3 for maps
-///   without a reverse map) allow `estimated` relative to the same scale,
-///   plus the extrapolation's own error estimate. The derivative estimate
-///   uses Ridders' extrapolation of central differences (Ridders, 1982,
-///   "Accurate computation of F'(x) and F'(x) F''(x)"), from a step of one
-///   tenth of the scale of `x`, halved until the map is finite at twice the
-///   step, so points near the edge of a domain (`ln` near `1e-6`, `sqrt`
-///   near 0) are reached from inside it.
+///   without a reverse map) allow `estimated` relative to the size of the
+///   values compared, plus the extrapolation's own error estimate, plus the
+///   rounding of the inner product (a few units of precision times the sum
+///   of the absolute values of its terms). The derivative estimate uses
+///   Ridders' extrapolation of central differences (Ridders, 1982,
+///   "Accurate computation of F'(x) and F'(x) F''(x)") from first steps a
+///   decade apart, starting at a tenth of the scale of `x` and shrinking
+///   until two neighbouring estimates agree: the step follows the
+///   function's own scale of variation, and the disagreement of the
+///   neighbours bounds the error, so that the estimate's error is not
+///   understated.
 /// - `absolute` is added to every allowance, for maps whose values are all
 ///   near zero; it is 0 by default.
 ///
-/// The defaults come from the precision: `exact = sqrt(eps) / 10` and
-/// `estimated = cbrt(eps) / 6`, that is `1.5e-9` and `1.0e-6` for `f64`.
-/// With these, a gradient off by a relative `1e-4` fails law 2 while `exp`
-/// near 30, `ln` near `1e-6` and the other ill-conditioned maps of the test
-/// suite pass over thousands of cases. Change them with the builder methods:
+/// # Rounding, undecided cases and the detection limit
+///
+/// Where a comparison fails, the sampling checker evaluates the law again
+/// at three tiny perturbations of the case (every value times `1 + d`,
+/// `|d|` about `1e-6`). A broken law is a property of the map and survives
+/// them almost unchanged; rounding does not. If the difference of the two
+/// sides moves under the perturbations by as much as it is large, it is
+/// rounding, and the case holds, unless that rounding exceeds the
+/// detection limit times the size of the values compared: then the map is
+/// too ill-conditioned at the case to decide anything, and the case is
+/// reported as *undecided* with the reason (saturated softmax, `tanh` at
+/// 30, sums of 100,000 terms of both signs). The same holds for central
+/// differences whose error estimate exceeds the limit. An undecided case
+/// neither passes nor fails; the report counts them.
+///
+/// So no allowance ever exceeds the detection limit (default `1e-5` for
+/// `f64`, relative to the size of the values compared): at every case that
+/// is decided, a backward pass off by more than a relative `1e-5` plus the
+/// `estimated` allowance is caught, whatever the scale of the values.
+///
+/// Before the comparison, output changes whose backward pass would
+/// overflow or underflow are multiplied by a power of two (exactly), which
+/// every law allows, so that `ln` near `1e-300` is checked at order 2.
+///
+/// The defaults come from the precision: `exact = sqrt(eps) / 10`,
+/// `estimated = cbrt(eps) / 6` and the detection limit ten times
+/// `estimated`, that is `1.5e-9`, `1.0e-6` and `1.0e-5` for `f64`. Change
+/// them with the builder methods:
 ///
 /// ```
 /// use revdiff::laws::{Checker, Tolerance};
 ///
-/// let loose = Tolerance::<f64>::default().estimated(1e-4)?.absolute(1e-12)?;
+/// let loose = Tolerance::<f64>::default().estimated(1e-4)?.detection_limit(1e-3)?;
 /// assert_eq!(loose.estimated_relative(), 1e-4);
 /// let checker = Checker::new().tolerance(loose);
 /// # let _ = checker;
-/// // A negative allowance is refused.
+/// // A negative allowance is refused, and so is a limit below `estimated`.
 /// assert!(Tolerance::<f64>::default().exact(-1.0).is_err());
+/// assert!(Tolerance::<f64>::default().detection_limit(1e-8).is_err());
 /// # Ok::<(), revdiff::Error>(())
 /// ```
 #[derive(Clone, Copy, Debug, PartialEq)]
@@ -135,15 +217,31 @@ pub struct Tolerance<R> {
     exact: R,
     estimated: R,
     absolute: R,
+    limit: R,
+    // The natural size of the checked map's output at the current case
+    // (set by the checker only where a first comparison failed), and from
+    // it the least scale of exact identities (see `natural_scale`).
+    natural_output: R,
+    floor: R,
+    // Set only for the perturbed re-evaluations of a failed comparison:
+    // the hash of its observed side's name. That comparison then reports
+    // its difference whether or not it is within the allowance; the
+    // others judge as usual, so the law reaches it as it did before.
+    probing: Option<u64>,
 }
 
 impl<R: Real> Default for Tolerance<R> {
     fn default() -> Self {
         let eps = R::epsilon();
+        let estimated = eps.cbrt() / R::from(6.0).unwrap_or_else(R::one);
         Tolerance {
             exact: eps.sqrt() / R::from(10.0).unwrap_or_else(R::one),
-            estimated: eps.cbrt() / R::from(6.0).unwrap_or_else(R::one),
+            estimated,
             absolute: R::zero(),
+            limit: estimated * R::from(10.0).unwrap_or_else(R::one),
+            natural_output: R::zero(),
+            floor: R::zero(),
+            probing: None,
         }
     }
 }
@@ -157,9 +255,31 @@ impl<R: Real> Tolerance<R> {
     }
 
     /// Sets the relative allowance for comparisons with central differences.
-    /// A negative or non-finite allowance is an [`Error::InvalidSetting`].
+    /// A negative or non-finite allowance is an [`Error::InvalidSetting`],
+    /// and so is one above the detection limit.
     pub fn estimated(mut self, relative: R) -> Result<Self> {
-        self.estimated = checked_allowance("estimated", relative)?;
+        let relative = checked_allowance("estimated", relative)?;
+        if relative > self.limit {
+            self.limit = relative;
+        }
+        self.estimated = relative;
+        Ok(self)
+    }
+
+    /// Sets the detection limit: the largest rounding or estimation error,
+    /// relative to the size of the values compared, at which a case is
+    /// still decided (see the type's documentation). It must be finite and
+    /// at least the `estimated` allowance, else [`Error::InvalidSetting`].
+    pub fn detection_limit(mut self, relative: R) -> Result<Self> {
+        let relative = checked_allowance("detection_limit", relative)?;
+        if relative < self.estimated {
+            return Err(Error::InvalidSetting {
+                name: "detection_limit",
+                value: relative.to_string(),
+                reason: "the detection limit must be at least the estimated allowance",
+            });
+        }
+        self.limit = relative;
         Ok(self)
     }
 
@@ -180,9 +300,48 @@ impl<R: Real> Tolerance<R> {
         self.estimated
     }
 
+    /// The detection limit, relative to the size of the values compared.
+    pub fn detection_limit_relative(&self) -> R {
+        self.limit
+    }
+
     /// The absolute allowance.
     pub fn absolute_allowance(&self) -> R {
         self.absolute
+    }
+
+    /// The same policy, knowing the natural size of the map's output at
+    /// the current case.
+    pub(crate) fn with_natural_output(mut self, size: R) -> Self {
+        self.natural_output = if size.is_finite() { size } else { R::zero() };
+        self
+    }
+
+    /// The size set by [`with_natural_output`](Self::with_natural_output).
+    pub(crate) fn natural_output(&self) -> R {
+        self.natural_output
+    }
+
+    /// The same policy, with `floor` as the least scale of exact
+    /// identities at the current case.
+    pub(crate) fn floored(mut self, floor: R) -> Self {
+        self.floor = if floor.is_finite() { floor } else { R::zero() };
+        self
+    }
+
+    /// The least scale set by [`floored`](Self::floored).
+    pub(crate) fn scale_floor(&self) -> R {
+        self.floor
+    }
+
+    /// The same policy, for the perturbed re-evaluations of a failed case.
+    pub(crate) fn probing(mut self, compared: &str) -> Self {
+        self.probing = Some(name_hash(compared));
+        self
+    }
+
+    fn probes(&self, observed: &str) -> bool {
+        self.probing == Some(name_hash(observed))
     }
 
     /// Compares `observed` with a central-difference estimate whose own
@@ -193,24 +352,84 @@ impl<R: Real> Tolerance<R> {
         estimate_error: R,
         observed: (&str, &Term<R>),
     ) -> Outcome {
-        let scale = expected.1.abs().max(observed.1.magnitude);
-        let allowed = self.estimated * scale + estimate_error + self.absolute;
+        let size = expected.1.abs().max(observed.1.value.abs());
+        // A change that is exactly zero (every term 0) against an estimate
+        // that is zero within its error: nothing to detect.
+        let rounding =
+            R::from(ROUNDING_UNITS).unwrap_or_else(R::one) * R::epsilon() * observed.1.magnitude;
+        let both_zero = expected.1.abs() <= estimate_error && observed.1.value.abs() <= rounding;
+        let probing = self.probes(observed.0);
+        if both_zero && !probing {
+            return Ok(());
+        }
+        if !probing && estimate_error > self.limit * size + self.absolute {
+            return Err(Finding::Undecided(format!(
+                "central differences cannot estimate {} closely enough here: their error \
+                 estimate {:.1e} exceeds the detection limit {:.0e} x the size of the values {:.1e}",
+                expected.0,
+                to_f64(estimate_error),
+                to_f64(self.limit),
+                to_f64(size)
+            )));
+        }
+        let allowed = self.estimated * size + estimate_error + rounding + self.absolute;
         let error = (expected.1 - observed.1.value).abs();
-        verdict(
+        self.verdict(
+            observed.0,
             error,
             allowed,
+            (vec![to_f64(expected.1 - observed.1.value)], size),
             || format!("{} = {}", expected.0, number(expected.1)),
             || format!("{} = {}", observed.0, number(observed.1.value)),
             format!(
-                "|expected - observed| against {:.1e} x scale + the estimate's own error {:.1e} \
-                 (scale {:.3e}: the larger of |expected| and the sum of |terms| of the inner product)",
+                "|expected - observed| against {:.1e} x size + the estimate's own error {:.1e} \
+                 + rounding {:.1e} (size {:.3e}: the larger of |expected| and |observed|)",
                 to_f64(self.estimated),
                 to_f64(estimate_error),
-                to_f64(scale)
+                to_f64(rounding),
+                to_f64(size)
             ),
         )
     }
+
+    /// Builds the outcome of `error <= allowed` (false for NaN, so a NaN
+    /// never passes). When probing, the difference is always reported.
+    fn verdict(
+        &self,
+        compared: &str,
+        error: R,
+        allowed: R,
+        (difference, scale): (Vec<f64>, R),
+        expected: impl FnOnce() -> String,
+        observed: impl FnOnce() -> String,
+        measure: String,
+    ) -> Outcome {
+        if error <= allowed && !self.probes(compared) {
+            return Ok(());
+        }
+        Err(Finding::Broken(Discrepancy {
+            expected: expected(),
+            observed: observed(),
+            error: Some(to_f64(error)),
+            tolerance: Some(to_f64(allowed)),
+            measure,
+            difference,
+            scale: Some(to_f64(scale)),
+            compared: compared.to_string(),
+        }))
+    }
 }
+
+fn name_hash(name: &str) -> u64 {
+    use std::hash::{Hash, Hasher};
+    let mut h = std::collections::hash_map::DefaultHasher::new();
+    name.hash(&mut h);
+    h.finish()
+}
+
+/// Units of precision allowed, times the sum of the absolute values of an
+/// inner product's terms, for the rounding of that inner product.
+const ROUNDING_UNITS: f64 = 16.0;
 
 /// An inner product's value and the sum of the absolute values of its terms,
 /// which sets the scale of its rounding error.
@@ -256,27 +475,6 @@ pub(crate) fn to_f64<R: Real>(r: R) -> f64 {
     r.to_f64().unwrap_or(f64::NAN)
 }
 
-/// Builds the outcome of `error <= allowed` (false for NaN, so a NaN never
-/// passes).
-fn verdict<R: Real>(
-    error: R,
-    allowed: R,
-    expected: impl FnOnce() -> String,
-    observed: impl FnOnce() -> String,
-    measure: String,
-) -> Outcome {
-    if error <= allowed {
-        return Ok(());
-    }
-    Err(Discrepancy {
-        expected: expected(),
-        observed: observed(),
-        error: Some(to_f64(error)),
-        tolerance: Some(to_f64(allowed)),
-        measure,
-    })
-}
-
 pub(crate) fn term<R: Real, S: Euclidean<R>>(a: &S, b: &S) -> Result<Term<R>> {
     let (ca, cb) = (a.coordinates(), b.coordinates());
     if ca.len() != cb.len() {
@@ -309,11 +507,14 @@ impl<R: Real> Comparison for Tolerance<R> {
             .abs()
             .max(o.value.abs())
             .max(e.magnitude)
-            .max(o.magnitude);
+            .max(o.magnitude)
+            .max(self.floor);
         let allowed = self.exact * scale + self.absolute;
-        verdict(
+        self.verdict(
+            observed.0,
             (e.value - o.value).abs(),
             allowed,
+            (vec![to_f64(e.value - o.value)], scale),
             || format!("{} = {}", expected.0, number(e.value)),
             || format!("{} = {}", observed.0, number(o.value)),
             format!(
@@ -336,20 +537,22 @@ impl<R: Real, S: Euclidean<R>> ComparisonIn<S> for Tolerance<R> {
             return Err(Discrepancy {
                 expected: format!("{} of shape {}", expected.0, expected.1.shape_string()),
                 observed: format!("{} of shape {}", observed.0, observed.1.shape_string()),
-                error: None,
-                tolerance: None,
-                measure: "the shapes differ".to_string(),
-            });
+                ..Discrepancy::failure("the shapes differ")
+            }
+            .into());
         }
         let diff: Vec<R> = e.iter().zip(&o).map(|(a, b)| *a - *b).collect();
         let scale = context
             .iter()
             .map(|c| norm(&c.coordinates()))
-            .fold(norm(&e).max(norm(&o)), |m, n| m.max(n));
+            .fold(norm(&e).max(norm(&o)), |m, n| m.max(n))
+            .max(self.floor);
         let allowed = self.exact * scale + self.absolute;
-        verdict(
+        self.verdict(
+            observed.0,
             norm(&diff),
             allowed,
+            (diff.iter().map(|d| to_f64(*d)).collect(), scale),
             || format!("{} = {}", expected.0, self.show(expected.1)),
             || format!("{} = {}", observed.0, self.show(observed.1)),
             format!(
@@ -507,10 +710,9 @@ impl<K: ExactScalar> Comparison for ExactComparison<K> {
             Err(Discrepancy {
                 expected: format!("{} = {:?}", expected.0, expected.1),
                 observed: format!("{} = {:?}", observed.0, observed.1),
-                error: None,
-                tolerance: None,
-                measure: "exact comparison: the values differ".to_string(),
-            })
+                ..Discrepancy::failure("exact comparison: the values differ")
+            }
+            .into())
         }
     }
 }
@@ -527,10 +729,9 @@ impl<K: ExactScalar, S: ExactPairing<K>> ComparisonIn<S> for ExactComparison<K> 
             Err(Discrepancy {
                 expected: format!("{} = {}", expected.0, expected.1.show_exactly()),
                 observed: format!("{} = {}", observed.0, observed.1.show_exactly()),
-                error: None,
-                tolerance: None,
-                measure: "exact comparison: the values differ".to_string(),
-            })
+                ..Discrepancy::failure("exact comparison: the values differ")
+            }
+            .into())
         }
     }
 

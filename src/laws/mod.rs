@@ -98,9 +98,9 @@ pub mod strategies;
 pub use case::{Case, CaseSource, Drawn, WithOutputChanges, changes_like, with_output_changes};
 pub use exhaustive::{Exhaustive, FiniteDomain, grid};
 pub use judge::{
-    Comparison, ComparisonIn, Discrepancy, ExactComparison, ExactPairing, ExactScalar, Outcome,
-    Term, Tolerance,
+    Comparison, ComparisonIn, Discrepancy, ExactComparison, ExactPairing, ExactScalar, Finding,
+    Outcome, Term, Tolerance,
 };
 pub use law::{CaseValue, Law};
-pub use report::{Checked, LawReport, Violation};
+pub use report::{Checked, LawReport, Undecided, Violation};
 pub use sampled::Checker;

@@ -115,8 +115,43 @@ pub struct Checked {
     pub order: u8,
     /// The cases it held at (up to the first violation, if any).
     pub cases: u64,
-    /// Whether it held at every case.
+    /// The cases at which the checker could not decide (see
+    /// [`Undecided`]).
+    pub undecided: u64,
+    /// Whether it held at every case that was decided.
     pub held: bool,
+}
+
+/// Cases at which a law could not be decided: the map is too
+/// ill-conditioned there for the precision, so the check neither passes
+/// nor fails them (see [`Tolerance`](crate::laws::Tolerance)). The report
+/// keeps the first such case and its reason.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Undecided {
+    /// The law.
+    pub law: Law,
+    /// The order it was checked at.
+    pub order: u8,
+    /// How many cases were undecided.
+    pub cases: u64,
+    /// Why, at the first of them.
+    pub reason: String,
+    /// The values of the first of them, by name.
+    pub shown: Vec<(CaseValue, String)>,
+}
+
+impl fmt::Display for Undecided {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let at = if self.order == 2 { ", order 2" } else { "" };
+        let s = if self.cases == 1 { "" } else { "s" };
+        writeln!(f, "UNDECIDED {}{at}, at {} case{s}", self.law, self.cases)?;
+        writeln!(f, "    first reason {}", self.reason)?;
+        for (slot, value) in &self.shown {
+            let label = format!("{} {}", slot.role(), slot.name());
+            writeln!(f, "    {label:<18} {value}")?;
+        }
+        Ok(())
+    }
 }
 
 /// The result of a law check: one entry per law and order checked, and a
@@ -139,6 +174,7 @@ pub struct LawReport {
     mode: String,
     checked: Vec<Checked>,
     violations: Vec<Violation>,
+    undecided: Vec<Undecided>,
 }
 
 impl LawReport {
@@ -148,29 +184,58 @@ impl LawReport {
             mode,
             checked: Vec::new(),
             violations: Vec::new(),
+            undecided: Vec::new(),
         }
     }
 
-    pub(crate) fn record(&mut self, law: Law, order: u8, cases: u64, violation: Option<Violation>) {
+    pub(crate) fn record(
+        &mut self,
+        law: Law,
+        order: u8,
+        cases: u64,
+        undecided: Option<Undecided>,
+        violation: Option<Violation>,
+    ) {
         self.checked.push(Checked {
             law,
             order,
             cases,
+            undecided: undecided.as_ref().map_or(0, |u| u.cases),
             held: violation.is_none(),
         });
         self.violations.extend(violation);
+        self.undecided.extend(undecided);
     }
 
     /// Appends another report's findings (for a check made of several).
     pub fn merge(mut self, other: LawReport) -> Self {
         self.checked.extend(other.checked);
         self.violations.extend(other.violations);
+        self.undecided.extend(other.undecided);
         self
     }
 
-    /// True if every law held.
+    /// True if no law was broken at any case. Undecided cases do not count
+    /// against it; see [`is_decided`](Self::is_decided).
     pub fn is_clean(&self) -> bool {
         self.violations.is_empty()
+    }
+
+    /// True if every case of every law was decided.
+    pub fn is_decided(&self) -> bool {
+        self.undecided.is_empty()
+    }
+
+    /// The laws with undecided cases.
+    pub fn undecided(&self) -> &[Undecided] {
+        &self.undecided
+    }
+
+    /// The undecided cases of `law` at `order`, if there were any.
+    pub fn undecided_of(&self, law: Law, order: u8) -> Option<&Undecided> {
+        self.undecided
+            .iter()
+            .find(|u| u.law == law && u.order == order)
     }
 
     /// The broken laws.
@@ -207,7 +272,7 @@ impl LawReport {
 impl fmt::Display for LawReport {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         let broken = self.violations.len();
-        writeln!(
+        write!(
             f,
             "law check of {} ({}): {} of {} checks broken",
             self.subject,
@@ -215,16 +280,28 @@ impl fmt::Display for LawReport {
             broken,
             self.checked.len()
         )?;
+        match self.undecided.len() {
+            0 => writeln!(f)?,
+            n => writeln!(f, ", {n} with undecided cases")?,
+        }
         for v in &self.violations {
             writeln!(f)?;
             write!(f, "{v}")?;
+        }
+        for u in &self.undecided {
+            writeln!(f)?;
+            write!(f, "{u}")?;
         }
         let held: Vec<&Checked> = self.checked.iter().filter(|c| c.held).collect();
         if !held.is_empty() {
             writeln!(f)?;
             writeln!(f, "held:")?;
             for c in held {
-                writeln!(f, "    {}, order {}, {} cases", c.law, c.order, c.cases)?;
+                write!(f, "    {}, order {}, {} cases", c.law, c.order, c.cases)?;
+                match c.undecided {
+                    0 => writeln!(f)?,
+                    n => writeln!(f, " ({n} more undecided)")?,
+                }
             }
         }
         Ok(())

@@ -8,11 +8,14 @@
 
 use super::case::Case;
 use super::differences::derivative_at_zero;
-use super::judge::{ComparisonIn, Discrepancy, Outcome, Term, Tolerance, term};
+use super::judge::{ComparisonIn, Discrepancy, Finding, Outcome, Term, Tolerance, term};
 use super::law::Law;
 use crate::error::Result;
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real, Scalable, Space};
+
+/// The words law 6 uses for a value that is not finite.
+pub(crate) const NOT_FINITE: &str = "is not finite";
 
 /// Laws 1 (additive, zero change) and 6 for any map; `None` for other laws.
 pub(crate) fn map_law_exact<A, F, J>(
@@ -68,6 +71,7 @@ where
     F: Map<A>,
     F::Output: Euclidean<R>,
 {
+    let tol = &tol.floored(natural_scale(law, tol.natural_output(), c));
     Some(match law {
         Law::Homogeneous => homogeneous(tol, f, c),
         Law::Derivative => derivative(tol, f, c),
@@ -89,11 +93,96 @@ where
     F: Reverse<A>,
     F::Output: Euclidean<R>,
 {
+    let tol = &tol.floored(natural_scale(law, tol.natural_output(), c));
     Some(match law {
         Law::Homogeneous => homogeneous(tol, f, c),
         Law::Derivative => derivative(tol, f, c),
         _ => return reverse_law_exact(tol, law, f, c),
     })
+}
+
+/// The size an exact identity's values would have if `f` varied on the
+/// scale of its input: `output_size / s` per derivative, times the sizes of
+/// the changes the law is linear in. The input's scale `s` is its smallest
+/// coordinate in absolute value, at least 1: a map of a large input (`ln`
+/// at `1e300`) varies slowly, but a map of an input with one large
+/// coordinate may not (a softmax varies on unit scale wherever its input
+/// is). `output_size` is `|f(x)|`
+/// at order 1 (see [`output_size`]) and the natural size of `R[f](x, w)`
+/// at order 2 (see [`reverse_output_size`]).
+///
+/// The backward passes of saturating maps (a softmax at +-700, `tanh` at
+/// 30) are tiny because large terms cancel, and their rounding is relative
+/// to those terms, not to the tiny result. Such terms cannot be seen from
+/// outside; this is the size they have when the map is not saturated, and
+/// the least scale an exact identity's rounding is measured against.
+fn natural_scale<R, A, B>(law: Law, output_size: R, c: &Case<A, B>) -> R
+where
+    R: Real,
+    A: Euclidean<R>,
+    B: Euclidean<R>,
+{
+    let x_size = input_scale(&c.x);
+    let per_derivative = output_size / x_size;
+    let (w, w2, u, v) = (
+        norm(c.w.coordinates()),
+        norm(c.w2.coordinates()),
+        norm(c.u.coordinates()),
+        norm(c.v.coordinates()),
+    );
+    match law {
+        Law::Additive | Law::Homogeneous | Law::ReverseAgrees => per_derivative * w.max(w2),
+        Law::LinearInChange => per_derivative * w2 * u,
+        // The size of t -> <w, f(x + t v)>, whose rounding the central
+        // differences must allow for.
+        Law::Derivative => output_size * w,
+        Law::Symmetric => per_derivative / x_size * w * u * v,
+        _ => R::zero(),
+    }
+}
+
+/// The smallest `|x_i|`, at least 1 (see [`natural_scale`]).
+fn input_scale<R: Real, A: Euclidean<R>>(x: &A) -> R {
+    x.coordinates()
+        .iter()
+        .fold(R::infinity(), |m, v| m.min(v.abs()))
+        .max(R::one())
+}
+
+fn norm<R: Real>(coords: Vec<R>) -> R {
+    coords.iter().fold(R::zero(), |a, v| a + *v * *v).sqrt()
+}
+
+/// `|f(x)|`, the output size of [`natural_scale`] at order 1 (0 if `f`
+/// fails at `x`: the laws report that).
+pub(crate) fn output_size<R, A, F>(f: &F, c: &Case<A, F::Output>) -> R
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Map<A>,
+    F::Output: Euclidean<R>,
+{
+    f.forward(&c.x).map_or(R::zero(), |y| norm(y.coordinates()))
+}
+
+/// The natural size of `R[f](x, w)`, the output size of [`natural_scale`]
+/// at order 2: the larger of its value and `|f(x)| max(|w|, |w2|) / s`
+/// (`s` the input's scale), which a saturated map's tiny backward pass falls far
+/// below. (`w2` counts because at order 2 the change of `w` is `w2`: the
+/// derivative of `R[f]` in `w` matters even where `w` is 0.)
+pub(crate) fn reverse_output_size<R, A, F>(f: &F, c: &Case<A, F::Output>) -> R
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Map<A>,
+    F::Output: Euclidean<R>,
+{
+    let back = f
+        .backward(&c.x, &c.w)
+        .map_or(R::zero(), |b| norm(b.coordinates()));
+    let natural = output_size(f, c) * norm(c.w.coordinates()).max(norm(c.w2.coordinates()))
+        / input_scale(&c.x);
+    back.max(natural)
 }
 
 fn additive<A: Space, F: Map<A>, J: ComparisonIn<A>>(
@@ -136,23 +225,24 @@ where
     let (y, keep) = f.forward_memo(&c.x)?;
     if let Some(d) = ComparisonIn::<F::Output>::defect(j, &y) {
         return Err(Discrepancy::failure(format!(
-            "f(x) is not finite on a finite input: f(x) = {d}"
-        )));
+            "f(x) {NOT_FINITE} on a finite input: f(x) = {d}"
+        ))
+        .into());
     }
     let back = f.backward_memo(&keep, &c.w)?;
     if back.shape_string() != c.x.shape_string() {
         return Err(Discrepancy {
             expected: format!("the shape of x, {}", c.x.shape_string()),
             observed: format!("R[f](x, w) of shape {}", back.shape_string()),
-            error: None,
-            tolerance: None,
-            measure: "the backward pass returned a value of the wrong shape".to_string(),
-        });
+            ..Discrepancy::failure("the backward pass returned a value of the wrong shape")
+        }
+        .into());
     }
     if let Some(d) = ComparisonIn::<A>::defect(j, &back) {
         return Err(Discrepancy::failure(format!(
-            "R[f](x, w) is not finite on finite values: R[f](x, w) = {d}"
-        )));
+            "R[f](x, w) {NOT_FINITE} on finite values: R[f](x, w) = {d}"
+        ))
+        .into());
     }
     Ok(())
 }
@@ -254,14 +344,105 @@ fn first_step<R: Real, A: Euclidean<R>>(x: &A, v: &A) -> R {
     }
 }
 
-/// `d/dt phi(t)` at 0 by central differences, as a breach on failure.
+/// `d/dt phi(t)` at 0 by central differences. Where no estimate can be
+/// made the case is undecided: the forward pass's finiteness is law 6's
+/// business, not this law's.
 fn estimate<R: Real>(
     what: &str,
     phi: impl Fn(R) -> Result<R>,
     start: R,
-) -> std::result::Result<super::differences::Estimate<R>, Discrepancy> {
-    derivative_at_zero(phi, start)
-        .map_err(|why| Discrepancy::failure(format!("central differences of {what} failed: {why}")))
+    noise: R,
+    claimed: (R, R),
+) -> std::result::Result<super::differences::Estimate<R>, Finding> {
+    derivative_at_zero(phi, start, noise, claimed)
+        .map_err(|why| Finding::Undecided(format!("central differences of {what} failed: {why}")))
+}
+
+/// The case with its output changes `w` and `w2` multiplied by a power of
+/// two, so that `R[f](x, w)` is neither overflowing nor vanishing: every
+/// law holds for every output change, and the scaling is exact, so this
+/// only moves the check into the range of the floating-point numbers.
+/// Cases already in range are returned unchanged.
+pub(crate) fn in_range<R, A, F>(f: &F, c: &Case<A, F::Output>) -> Case<A, F::Output>
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Map<A>,
+    F::Output: Euclidean<R>,
+{
+    let largest = |w: &F::Output| -> Option<R> {
+        let back = f.backward(&c.x, w).ok()?;
+        back.coordinates()
+            .iter()
+            .try_fold(R::zero(), |m, v| v.is_finite().then(|| m.max(v.abs())))
+    };
+    let two = R::one() + R::one();
+    // Values up to a ten-thousandth of the largest float are left alone:
+    // scaling down only to gain room would make products of two scaled
+    // values (at order 2) underflow.
+    let high = R::max_value() * R::from(1e-4).unwrap_or_else(R::epsilon);
+    let power = |k: i32| two.powi(k);
+    let scaled = |k: i32| Case {
+        w: c.w.scale(power(k)),
+        w2: c.w2.scale(power(k)),
+        ..c.clone()
+    };
+    // Only ever scale down: a backward pass that is tiny because of
+    // cancellation has rounding relative to the change, not to itself, and
+    // scaling the change up would only scale that rounding up too.
+    let limit = R::max_value().log2().to_i32().unwrap_or(1024);
+    let mut k = 0;
+    let m = loop {
+        if let Some(m) = largest(&scaled(k).w) {
+            break m;
+        }
+        // Not finite: halve by 64 binary orders at a time.
+        k -= 64;
+        if k <= -limit {
+            return c.clone();
+        }
+    };
+    if m > high {
+        // Scale no further than needed, so that products of scaled values
+        // (at order 2) do not underflow.
+        k -= (m.log2() - high.log2()).ceil().to_i32().unwrap_or(0);
+    }
+    if k == 0 { c.clone() } else { scaled(k) }
+}
+
+/// [`in_range`], and further down by powers of two until the second
+/// reverse derivative at `((x, w), u)` is finite too, for the laws that use
+/// it at order 1 (3, 4 and 5).
+pub(crate) fn in_range_second<R, A, F>(
+    f: &F,
+    rev: &F::Rev,
+    c: &Case<A, F::Output>,
+) -> Case<A, F::Output>
+where
+    R: Real,
+    A: Euclidean<R>,
+    F: Reverse<A>,
+    F::Output: Euclidean<R>,
+{
+    let mut c = in_range(f, c);
+    let two = R::one() + R::one();
+    for _ in 0..(R::max_value().log2().to_i32().unwrap_or(1024) / 64) {
+        let at = (c.x.clone(), c.w.clone());
+        let finite = [&c.u, &c.v]
+            .iter()
+            .all(|change| match rev.backward(&at, change) {
+                Ok((dx, dw)) => dx.all_finite() && dw.all_finite(),
+                // Errors are for the laws to report.
+                Err(_) => true,
+            });
+        if finite {
+            break;
+        }
+        let by = two.powi(-64);
+        c.w = c.w.scale(by);
+        c.w2 = c.w2.scale(by);
+    }
+    c
 }
 
 fn derivative<R, A, F>(tol: &Tolerance<R>, f: &F, c: &Case<A, F::Output>) -> Outcome
@@ -277,7 +458,25 @@ where
         let y = f.forward(&c.x.try_add(&c.v.scale(t))?)?;
         Ok(term(&c.w, &y)?.value)
     };
-    let est = estimate("t -> <w, f(x + t v)>", along, first_step(&c.x, &c.v))?;
+    // Rounding x + t v moves phi by about eps sum |x_i| |d phi / d x_i|,
+    // and the gradient of phi is the backward pass.
+    let noise =
+        c.x.coordinates()
+            .iter()
+            .zip(back.coordinates())
+            .fold(R::zero(), |acc, (x, g)| acc + (*x * g).abs())
+            * R::epsilon()
+            + tol.scale_floor() * R::epsilon();
+    let est = estimate(
+        "t -> <w, f(x + t v)>",
+        along,
+        first_step(&c.x, &c.v),
+        noise,
+        (
+            observed.value,
+            R::from(16.0).unwrap_or_else(R::one) * R::epsilon() * observed.magnitude,
+        ),
+    )?;
     tol.against_estimate(
         ("<w, Df(x) v> by central differences of f", est.value),
         est.error,
@@ -302,6 +501,8 @@ where
             "the backward pass along an input change",
             phi,
             first_step(&c.x, along),
+            R::zero(),
+            (R::zero(), R::zero()),
         )
     };
     let hv = mixed(&c.v, &c.u)?;

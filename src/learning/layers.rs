@@ -76,7 +76,18 @@ pub struct Layers<T> {
     stages: Vec<Stage<T>>,
 }
 
-impl<T> Compose for Layers<T> {}
+impl<T> Compose for Layers<T> {
+    fn boxed_depth(&self) -> usize {
+        self.stages
+            .iter()
+            .map(|s| match s {
+                Stage::Affine { .. } => 0,
+                Stage::Elementwise { map, .. } => map.boxed_depth(),
+            })
+            .max()
+            .unwrap_or(0)
+    }
+}
 
 impl<T> fmt::Debug for Layers<T> {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
@@ -135,7 +146,7 @@ impl<T: Real> Layers<T> {
     {
         self.stages.push(Stage::Elementwise {
             name: name.to_string(),
-            map: Boxed::new(map),
+            map: Boxed::unchecked(map),
         });
         self
     }

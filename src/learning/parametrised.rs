@@ -205,9 +205,21 @@ pub struct WithParameters<F, P> {
     pub parameters: P,
 }
 
-impl<F, G> Compose for ThenParametrised<F, G> {}
-impl<F, R> Compose for Reparametrised<F, R> {}
-impl<F, P> Compose for WithParameters<F, P> {}
+impl<F: Compose, G: Compose> Compose for ThenParametrised<F, G> {
+    fn boxed_depth(&self) -> usize {
+        self.first.boxed_depth().max(self.second.boxed_depth())
+    }
+}
+impl<F: Compose, R: Compose> Compose for Reparametrised<F, R> {
+    fn boxed_depth(&self) -> usize {
+        self.map.boxed_depth().max(self.through.boxed_depth())
+    }
+}
+impl<F: Compose, P> Compose for WithParameters<F, P> {
+    fn boxed_depth(&self) -> usize {
+        self.map.boxed_depth()
+    }
+}
 
 /// `((p, q), a) -> second(q, first(p, a))` written with combinators.
 pub type ThenParametrisedComposite<F, G> =
@@ -219,7 +231,7 @@ pub type ReparametrisedComposite<F, R> = Then<Alongside<R, Id>, F>;
 /// `a -> map(p, a)` written with combinators.
 pub type WithParametersComposite<F, P> = Then<Pair<Constant<P>, Id>, F>;
 
-impl<F: Clone, G: Clone> ThenParametrised<F, G> {
+impl<F: Clone + Compose, G: Clone> ThenParametrised<F, G> {
     /// The equal composite of catalogue combinators.
     pub fn composite(&self) -> ThenParametrisedComposite<F, G> {
         let first = Then::new(Fst.then(Fst).pair(Snd), self.first.clone());

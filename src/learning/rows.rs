@@ -44,7 +44,11 @@ impl<M> Rowwise<M> {
     }
 }
 
-impl<M> Compose for Rowwise<M> {}
+impl<M: Compose> Compose for Rowwise<M> {
+    fn boxed_depth(&self) -> usize {
+        self.model.boxed_depth()
+    }
+}
 
 /// Stacks equal-length rows into a matrix; `what` names them in the error.
 fn stack_rows<T: Real>(
@@ -146,7 +150,11 @@ impl<L> RowMean<L> {
     }
 }
 
-impl<L> Compose for RowMean<L> {}
+impl<L: Compose> Compose for RowMean<L> {
+    fn boxed_depth(&self) -> usize {
+        self.loss.boxed_depth()
+    }
+}
 
 impl<T, L> Map<(Array2<T>, Array2<T>)> for RowMean<L>
 where

@@ -48,6 +48,11 @@ trait Elementwise<T: Real> {
     fn value(&self, x: T) -> T;
     /// Its derivative.
     fn slope(&self, x: T) -> T;
+    /// `slope(x) * d`, where a map whose slope can overflow while the
+    /// product cannot computes it without the overflow.
+    fn slope_times(&self, x: T, d: T) -> T {
+        self.slope(x) * d
+    }
 }
 
 fn real<T: Real>(v: f64) -> T {
@@ -77,17 +82,17 @@ macro_rules! elementwise {
     // input: the backward pass then recomputes nothing.
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr,
      slope from output |$y:ident| $from_output:expr) => {
-        elementwise!(@map [$($gen)*] $ty, keeps output, |$y, _map| $from_output);
+        elementwise!(@map [$($gen)*] $ty, keeps output, |$y, d, _map| $from_output * d);
         elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
         elementwise!(@map [$($gen)*] $ty, keeps input,
-            |v, map| Elementwise::<E::Elem>::slope(map, v));
+            |v, d, map| Elementwise::<E::Elem>::slope_times(map, v, d));
         elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
     // `kept` is the input or the output; `$slope` turns one kept element
     // into the slope there.
-    (@map [$($gen:tt)*] $ty:ty, keeps $which:ident, |$k:ident, $map:ident| $slope:expr) => {
+    (@map [$($gen:tt)*] $ty:ty, keeps $which:ident, |$k:ident, $d:ident, $map:ident| $product:expr) => {
         impl<$($gen)*> Map<E> for $ty {
             type Output = E;
             type Memo = E;
@@ -102,7 +107,7 @@ macro_rules! elementwise {
             fn backward_memo(&self, kept: &E, dy: &E) -> Result<E> {
                 let name = <Self as Elementwise<E::Elem>>::NAME;
                 let $map = self;
-                kept.zip_elems(dy, name, |$k, d| $slope * d)
+                kept.zip_elems(dy, name, |$k, $d| $product)
                     .map_err(|e| e.in_output_change(name))
             }
         }
@@ -222,6 +227,20 @@ impl<T: Real> Elementwise<T> for Powi<T> {
     }
     fn slope(&self, x: T) -> T {
         self.rev_slope().value(x)
+    }
+    fn slope_times(&self, x: T, d: T) -> T {
+        let product = self.slope(x) * d;
+        let k = 1 - self.n;
+        if product.is_finite() || k <= 0 || !d.is_finite() || self.coef == T::zero() {
+            return product;
+        }
+        // x^(n-1) overflowed (x near 0, n - 1 < 0) while d is small: divide
+        // by x one factor at a time, which overflows only if the result does.
+        let mut r = self.coef * real::<T>(f64::from(self.n)) * d;
+        for _ in 0..k {
+            r = r / x;
+        }
+        r
     }
 }
 
