@@ -19,6 +19,7 @@ use crate::space::{Real, Space, shape_tuple};
 use ndarray::{Array1, Array2, ArrayD, Ix1, IxDyn};
 use std::any::Any;
 use std::fmt;
+use std::sync::Arc;
 
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
@@ -80,8 +81,19 @@ where
 /// # Ok::<(), revdiff::Error>(())
 /// ```
 pub struct Boxed<A, B> {
-    inner: Box<dyn ErasedMap<A, B>>,
+    // Shared, so that a boxed map clones cheaply and can be sent to the
+    // threads of a law check or of sharded training.
+    inner: Arc<dyn ErasedMap<A, B> + Send + Sync>,
     depth: usize,
+}
+
+impl<A, B> Clone for Boxed<A, B> {
+    fn clone(&self) -> Self {
+        Boxed {
+            inner: Arc::clone(&self.inner),
+            depth: self.depth,
+        }
+    }
 }
 
 impl<A: Space, B: Space> Boxed<A, B> {
@@ -90,10 +102,11 @@ impl<A: Space, B: Space> Boxed<A, B> {
 
     /// Erases the type of `map`. If `map` already holds boxed maps nested
     /// [`MAX_DEPTH`](Self::MAX_DEPTH) deep, this is
-    /// [`Error::NestingTooDeep`].
+    /// [`Error::NestingTooDeep`]. The map must be `Send + Sync`, so that a
+    /// boxed map can be used from several threads.
     pub fn new<F>(map: F) -> Result<Self>
     where
-        F: Map<A, Output = B> + 'static,
+        F: Map<A, Output = B> + Send + Sync + 'static,
         F::Memo: 'static,
     {
         let depth = map.boxed_depth() + 1;
@@ -110,12 +123,12 @@ impl<A: Space, B: Space> Boxed<A, B> {
     /// stages, which hold maps a user has already boxed.
     pub(crate) fn unchecked<F>(map: F) -> Self
     where
-        F: Map<A, Output = B> + 'static,
+        F: Map<A, Output = B> + Send + Sync + 'static,
         F::Memo: 'static,
     {
         Boxed {
             depth: map.boxed_depth() + 1,
-            inner: Box::new(map),
+            inner: Arc::new(map),
         }
     }
 }
@@ -160,6 +173,7 @@ pub enum StageShape {
     },
 }
 
+#[derive(Clone)]
 struct Stage<T> {
     name: String,
     map: Boxed<ArrayD<T>, ArrayD<T>>,
@@ -214,6 +228,7 @@ impl<T: Real> Stage<T> {
 /// let dx = chain.backward(&x, &ndarray::arr1(&[1.0, 0.0]).into_dyn()).unwrap();
 /// assert_eq!(dx.shape(), &[3]);
 /// ```
+#[derive(Clone)]
 pub struct Chain<T> {
     input_shape: Vec<usize>,
     output_shape: Vec<usize>,
@@ -245,7 +260,7 @@ impl<T: Real> Chain<T> {
     /// shape. On refusal the chain is unchanged.
     pub fn push<F>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
     where
-        F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
+        F: Map<ArrayD<T>, Output = ArrayD<T>> + Send + Sync + 'static,
         F::Memo: 'static,
     {
         let output = match &shape {
@@ -275,7 +290,7 @@ impl<T: Real> Chain<T> {
     /// Appends an elementwise stage (any map that keeps shapes).
     pub fn push_elementwise<F>(&mut self, name: &str, map: F) -> Result<()>
     where
-        F: Map<ArrayD<T>, Output = ArrayD<T>> + 'static,
+        F: Map<ArrayD<T>, Output = ArrayD<T>> + Send + Sync + 'static,
         F::Memo: 'static,
     {
         self.push(name, map, StageShape::Preserving)

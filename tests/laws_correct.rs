@@ -16,9 +16,10 @@ fn checker() -> Checker {
 /// these maps is checked at small sizes in laws_catalogue.rs).
 fn check_large<A, F, S>(f: &F, inputs: S)
 where
-    A: Euclidean<f64> + 'static,
-    F: Reverse<A>,
-    F::Output: Euclidean<f64> + 'static,
+    A: Euclidean<f64> + Send + 'static,
+    F: Reverse<A> + Send + Sync + 'static,
+    F::Rev: Send + Sync + 'static,
+    F::Output: Euclidean<f64> + Send + 'static,
     S: proptest::strategy::Strategy<Value = A> + Clone,
 {
     for law in Law::FOR_REVERSE {

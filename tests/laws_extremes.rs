@@ -42,9 +42,10 @@ fn assert_no_false_failures(report: &LawReport, name: &str) {
 /// pass off by 1e-4: law 2 must catch it.
 fn extreme<A, F, S>(name: &str, f: F, inputs: S, cases: u32)
 where
-    A: Euclidean<f64> + 'static,
-    F: Reverse<A>,
-    F::Output: Euclidean<f64> + 'static,
+    A: Euclidean<f64> + Send + 'static,
+    F: Reverse<A> + Send + Sync + 'static,
+    F::Rev: Send + Sync + 'static,
+    F::Output: Euclidean<f64> + Send + 'static,
     S: Strategy<Value = A> + Clone,
 {
     let checker = Checker::new().cases(cases).unwrap();

@@ -465,3 +465,35 @@ fn the_macro_generates_failing_tests_for_wrong_maps() {
         "{message}"
     );
 }
+
+/// A map whose backward pass never returns (it waits without using a core).
+#[derive(Clone, Debug)]
+struct NeverReturns;
+impl Compose for NeverReturns {}
+impl Map<f64> for NeverReturns {
+    type Output = f64;
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
+        Ok((*x, *x))
+    }
+    fn backward_memo(&self, _: &f64, _: &f64) -> Result<f64> {
+        loop {
+            std::thread::park();
+        }
+    }
+}
+
+#[test]
+fn a_backward_pass_that_never_returns_breaks_the_law_at_the_time_limit() {
+    let checker = Checker::new()
+        .time_limit(std::time::Duration::from_millis(200))
+        .unwrap();
+    let started = std::time::Instant::now();
+    let report = checker.map_law(Law::Derivative, &NeverReturns, -1.0..1.0f64);
+    let v = report
+        .violation(Law::Derivative, 1)
+        .unwrap_or_else(|| panic!("not reported:\n{report}"));
+    assert!(v.breach.measure.contains("time limit of 200ms"), "{v}");
+    // One case ran into the limit; the rest and the shrinking were skipped.
+    assert!(started.elapsed() < std::time::Duration::from_secs(5));
+}

@@ -41,7 +41,12 @@
 //! # Two checkers
 //!
 //! - [`Checker`] draws cases from proptest strategies you give, shrinks
-//!   every failure, and compares within a [`Tolerance`].
+//!   every failure, and compares within a [`Tolerance`]. A case the
+//!   precision cannot decide (a saturated map, a derivative far below the
+//!   rounding of its values) is reported as [undecided](Undecided), never
+//!   passed or failed; no allowance exceeds the tolerance's detection
+//!   limit, so what is decided is decided at every scale. Each case runs
+//!   under a time limit.
 //! - [`Exhaustive`] checks every case of a [`FiniteDomain`] exactly, for
 //!   integer grids and for spaces of bits ([`ExactPairing`]).
 //!

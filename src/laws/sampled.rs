@@ -17,6 +17,8 @@ use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real, Space};
 use proptest::strategy::Strategy;
 use proptest::test_runner::{Config, RngAlgorithm, TestCaseError, TestError, TestRng, TestRunner};
+use std::sync::Arc;
+use std::time::Duration;
 
 /// Checks maps against the laws at cases drawn from proptest strategies.
 ///
@@ -24,8 +26,15 @@ use proptest::test_runner::{Config, RngAlgorithm, TestCaseError, TestError, Test
 /// default), from a fixed [`seed`](Self::seed) so that a check gives the
 /// same answer on every run; a broken law is shrunk to the smallest case
 /// proptest can find and re-evaluated there for the report. A map that
-/// panics, returns an error or returns NaN breaks a law at that input; the
-/// checker itself does not panic.
+/// panics, returns an error or returns NaN breaks a law at that input, and
+/// so does one that takes longer than the [time limit](Self::time_limit);
+/// the checker itself does not panic or hang. Cases the precision cannot
+/// decide are counted as [undecided](super::Undecided) (see [`Tolerance`]).
+///
+/// Each case runs on a thread of its own (so that one that never returns
+/// can be left behind): the maps checked must be `Clone + Send + Sync +
+/// 'static`, as the catalogue's are and a hand-written map that owns its
+/// data is.
 ///
 /// Inputs come from any proptest strategy (see [`strategies`](super::strategies)
 /// for ready ones); output changes are shaped like the map's output unless
@@ -64,6 +73,7 @@ pub struct Checker<R = f64> {
     tolerance: Tolerance<R>,
     cases: u32,
     seed: u64,
+    time_limit: Duration,
 }
 
 impl<R: Real> Default for Checker<R> {
@@ -72,6 +82,7 @@ impl<R: Real> Default for Checker<R> {
             tolerance: Tolerance::default(),
             cases: 256,
             seed: 0x0072_6576_6469_6666,
+            time_limit: DEFAULT_TIME_LIMIT,
         }
     }
 }
@@ -145,6 +156,38 @@ impl<R: Real> Checker<R> {
         Ok(self)
     }
 
+    /// Gives each case at most `limit` (60 s by default): a case that takes
+    /// longer breaks the law with a message saying so, and the check moves
+    /// on. Each case runs on a thread of its own for this; a map that never
+    /// returns keeps its thread busy until the process ends, since safe Rust
+    /// cannot stop a thread. A zero limit is an [`Error::InvalidSetting`].
+    ///
+    /// ```
+    /// use std::time::Duration;
+    /// use revdiff::laws::Checker;
+    ///
+    /// let quick = Checker::<f64>::new().time_limit(Duration::from_secs(5))?;
+    /// assert_eq!(quick.time_limit_per_case(), Duration::from_secs(5));
+    /// assert!(Checker::<f64>::new().time_limit(Duration::ZERO).is_err());
+    /// # Ok::<(), revdiff::Error>(())
+    /// ```
+    pub fn time_limit(mut self, limit: Duration) -> Result<Self> {
+        if limit.is_zero() {
+            return Err(Error::InvalidSetting {
+                name: "time_limit",
+                value: format!("{limit:?}"),
+                reason: "a case needs some time to run",
+            });
+        }
+        self.time_limit = limit;
+        Ok(self)
+    }
+
+    /// The time each case may take.
+    pub fn time_limit_per_case(&self) -> Duration {
+        self.time_limit
+    }
+
     /// Draws cases from `seed` (every seed gives a reproducible check).
     pub fn seed(mut self, seed: u64) -> Self {
         self.seed = seed;
@@ -165,9 +208,9 @@ impl<R: Real> Checker<R> {
     /// Checks the laws of [`Law::FOR_MAPS`] on a map without a reverse map.
     pub fn map<A, F, C>(&self, f: &F, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Map<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Map<A> + Clone + Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
         let checks: Vec<(Law, u8)> = Law::FOR_MAPS.iter().map(|&l| (l, 1)).collect();
@@ -178,9 +221,9 @@ impl<R: Real> Checker<R> {
     /// (what each test of [`law_tests!`](crate::law_tests) runs).
     pub fn map_law<A, F, C>(&self, law: Law, f: &F, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Map<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Map<A> + Clone + Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
         self.map_checks(f, cases, &[(law, 1)])
@@ -188,23 +231,25 @@ impl<R: Real> Checker<R> {
 
     fn map_checks<A, F, C>(&self, f: &F, cases: C, checks: &[(Law, u8)]) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Map<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Map<A> + Clone + Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
+        let strategy = cases.cases(f);
+        let f = f.clone();
         self.run(
             short_type_name::<F>(),
             checks,
-            &cases.cases(f),
-            |tol, law, _, c| {
+            &strategy,
+            move |tol, law, _, c| {
                 escalated(
                     tol,
                     c,
-                    |c| in_range(f, c),
-                    |c| output_size(f, c),
+                    |c| in_range(&f, c),
+                    |c| output_size(&f, c),
                     |tol, c| {
-                        map_law_real(tol, law, f, c)
+                        map_law_real(tol, law, &f, c)
                             .unwrap_or_else(|| Err(not_for_maps(law).into()))
                     },
                 )
@@ -219,9 +264,10 @@ impl<R: Real> Checker<R> {
     /// wrong second derivative is caught.
     pub fn reverse<A, F, C>(&self, f: &F, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Reverse<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Reverse<A> + Send + Sync + 'static,
+        F::Rev: Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
         let checks: Vec<(Law, u8)> = [1, 2]
@@ -234,9 +280,10 @@ impl<R: Real> Checker<R> {
     /// Checks one law of [`Law::FOR_REVERSE`] at `order` (1 or 2).
     pub fn reverse_law<A, F, C>(&self, law: Law, order: u8, f: &F, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Reverse<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Reverse<A> + Send + Sync + 'static,
+        F::Rev: Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
         self.reverse_checks(f, cases, &[(law, order)])
@@ -244,17 +291,20 @@ impl<R: Real> Checker<R> {
 
     fn reverse_checks<A, F, C>(&self, f: &F, cases: C, checks: &[(Law, u8)]) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Reverse<A>,
-        F::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Reverse<A> + Send + Sync + 'static,
+        F::Rev: Send + Sync + 'static,
+        F::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, F::Output>,
     {
-        let rev = f.rev();
+        let strategy = cases.cases(f);
+        let (f, rev) = (f.clone(), f.rev());
         self.run(
             short_type_name::<F>(),
             checks,
-            &cases.cases(f),
-            |tol, law, order, c| {
+            &strategy,
+            move |tol, law, order, c| {
+                let f = &f;
                 let outcome = match order {
                     1 => escalated(
                         tol,
@@ -294,17 +344,19 @@ impl<R: Real> Checker<R> {
     /// passes ([`Law::SameMap`] at order 1).
     pub fn same_map<A, M, N, C>(&self, a: &M, b: &N, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        M: Map<A>,
-        M::Output: Euclidean<R> + 'static,
-        N: Map<A, Output = M::Output>,
+        A: Euclidean<R> + Send + 'static,
+        M: Map<A> + Clone + Send + Sync + 'static,
+        M::Output: Euclidean<R> + Send + 'static,
+        N: Map<A, Output = M::Output> + Clone + Send + Sync + 'static,
         C: CaseSource<R, A, M::Output>,
     {
+        let strategy = cases.cases(a);
+        let (a, b) = (a.clone(), b.clone());
         self.run(
             short_type_name::<M>(),
             &[(Law::SameMap, 1)],
-            &cases.cases(a),
-            |tol, _, _, c| pairs::same_map(tol, a, b, c),
+            &strategy,
+            move |tol, _, _, c| pairs::same_map(tol, &a, &b, c),
         )
     }
 
@@ -312,19 +364,21 @@ impl<R: Real> Checker<R> {
     /// ([`Law::SameMap`] at order 2), for maps with reverse maps.
     pub fn same_reverse<A, M, N, C>(&self, a: &M, b: &N, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        M: Reverse<A>,
-        M::Output: Euclidean<R> + 'static,
-        N: Reverse<A, Output = M::Output>,
+        A: Euclidean<R> + Send + 'static,
+        M: Reverse<A> + Send + Sync + 'static,
+        M::Output: Euclidean<R> + Send + 'static,
+        N: Reverse<A, Output = M::Output> + Send + Sync + 'static,
         C: CaseSource<R, A, M::Output>,
     {
+        let strategy = cases.cases(a);
+        let (a, b) = (a.clone(), b.clone());
         self.run(
             short_type_name::<M>(),
             &[(Law::SameMap, 1), (Law::SameMap, 2)],
-            &cases.cases(a),
-            |tol, _, order, c| match order {
-                1 => pairs::same_map(tol, a, b, c),
-                _ => pairs::same_second_order(tol, a, b, c),
+            &strategy,
+            move |tol, _, order, c| match order {
+                1 => pairs::same_map(tol, &a, &b, c),
+                _ => pairs::same_second_order(tol, &a, &b, c),
             },
         )
     }
@@ -333,18 +387,20 @@ impl<R: Real> Checker<R> {
     /// the same values and the chain rule's backward pass.
     pub fn chain_rule<A, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Map<A>,
-        G: Map<F::Output>,
-        H: Map<A, Output = G::Output>,
-        G::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Map<A> + Clone + Send + Sync + 'static,
+        G: Map<F::Output> + Clone + Send + Sync + 'static,
+        H: Map<A, Output = G::Output> + Clone + Send + Sync + 'static,
+        G::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, G::Output>,
     {
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::ChainRule, 1)],
-            &cases.cases(h),
-            |tol, _, _, c| pairs::chain_rule(tol, h, f, g, c),
+            &strategy,
+            move |tol, _, _, c| pairs::chain_rule(tol, &h, &f, &g, c),
         )
     }
 
@@ -352,22 +408,24 @@ impl<R: Real> Checker<R> {
     /// of `h` against that of the library's composite `f.then(g)`.
     pub fn chain_rule_reverse<A, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        F: Reverse<A>,
-        G: Reverse<F::Output>,
-        H: Reverse<A, Output = G::Output>,
-        G::Output: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        F: Reverse<A> + Send + Sync + 'static,
+        G: Reverse<F::Output> + Send + Sync + 'static,
+        H: Reverse<A, Output = G::Output> + Send + Sync + 'static,
+        G::Output: Euclidean<R> + Send + 'static,
         C: CaseSource<R, A, G::Output>,
         Then<F, G>: Reverse<A, Output = G::Output>,
     {
         let composite = f.clone().then(g.clone());
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::ChainRule, 1), (Law::SameMap, 2)],
-            &cases.cases(h),
-            |tol, law, _, c| match law {
-                Law::ChainRule => pairs::chain_rule(tol, h, f, g, c),
-                _ => pairs::same_second_order(tol, h, &composite, c),
+            &strategy,
+            move |tol, law, _, c| match law {
+                Law::ChainRule => pairs::chain_rule(tol, &h, &f, &g, c),
+                _ => pairs::same_second_order(tol, &h, &composite, c),
             },
         )
     }
@@ -377,21 +435,23 @@ impl<R: Real> Checker<R> {
     /// ([`Law::Projection`]).
     pub fn pairing<A, B, D, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
-        D: Euclidean<R> + 'static,
-        F: Map<A, Output = B>,
-        G: Map<A, Output = D>,
-        H: Map<A, Output = (B, D)>,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
+        D: Euclidean<R> + Send + 'static,
+        F: Map<A, Output = B> + Clone + Send + Sync + 'static,
+        G: Map<A, Output = D> + Clone + Send + Sync + 'static,
+        H: Map<A, Output = (B, D)> + Clone + Send + Sync + 'static,
         C: CaseSource<R, A, (B, D)>,
     {
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::Pairing, 1), (Law::Projection, 1)],
-            &cases.cases(h),
-            |tol, law, _, c| match law {
-                Law::Pairing => pairs::pairing(tol, h, f, g, c),
-                _ => pairs::projection(tol, h, f, g, c),
+            &strategy,
+            move |tol, law, _, c| match law {
+                Law::Pairing => pairs::pairing(tol, &h, &f, &g, c),
+                _ => pairs::projection(tol, &h, &f, &g, c),
             },
         )
     }
@@ -400,24 +460,26 @@ impl<R: Real> Checker<R> {
     /// against that of the library's `f.pair(g)`.
     pub fn pairing_reverse<A, B, D, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
-        D: Euclidean<R> + 'static,
-        F: Reverse<A, Output = B>,
-        G: Reverse<A, Output = D>,
-        H: Reverse<A, Output = (B, D)>,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
+        D: Euclidean<R> + Send + 'static,
+        F: Reverse<A, Output = B> + Send + Sync + 'static,
+        G: Reverse<A, Output = D> + Send + Sync + 'static,
+        H: Reverse<A, Output = (B, D)> + Send + Sync + 'static,
         C: CaseSource<R, A, (B, D)>,
         Pair<F, G>: Reverse<A, Output = (B, D)>,
     {
         let composite = f.clone().pair(g.clone());
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::Pairing, 1), (Law::Projection, 1), (Law::SameMap, 2)],
-            &cases.cases(h),
-            |tol, law, _, c| match law {
-                Law::Pairing => pairs::pairing(tol, h, f, g, c),
-                Law::Projection => pairs::projection(tol, h, f, g, c),
-                _ => pairs::same_second_order(tol, h, &composite, c),
+            &strategy,
+            move |tol, law, _, c| match law {
+                Law::Pairing => pairs::pairing(tol, &h, &f, &g, c),
+                Law::Projection => pairs::projection(tol, &h, &f, &g, c),
+                _ => pairs::same_second_order(tol, &h, &composite, c),
             },
         )
     }
@@ -426,18 +488,20 @@ impl<R: Real> Checker<R> {
     /// summed backward pass.
     pub fn sum_rule<A, B, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
-        F: Map<A, Output = B>,
-        G: Map<A, Output = B>,
-        H: Map<A, Output = B>,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
+        F: Map<A, Output = B> + Clone + Send + Sync + 'static,
+        G: Map<A, Output = B> + Clone + Send + Sync + 'static,
+        H: Map<A, Output = B> + Clone + Send + Sync + 'static,
         C: CaseSource<R, A, B>,
     {
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::SumRule, 1)],
-            &cases.cases(h),
-            |tol, _, _, c| pairs::sum_rule(tol, h, f, g, c),
+            &strategy,
+            move |tol, _, _, c| pairs::sum_rule(tol, &h, &f, &g, c),
         )
     }
 
@@ -445,52 +509,68 @@ impl<R: Real> Checker<R> {
     /// `h` against that of the library's `f.plus(g)`.
     pub fn sum_rule_reverse<A, B, F, G, H, C>(&self, h: &H, f: &F, g: &G, cases: C) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
-        F: Reverse<A, Output = B>,
-        G: Reverse<A, Output = B>,
-        H: Reverse<A, Output = B>,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
+        F: Reverse<A, Output = B> + Send + Sync + 'static,
+        G: Reverse<A, Output = B> + Send + Sync + 'static,
+        H: Reverse<A, Output = B> + Send + Sync + 'static,
         C: CaseSource<R, A, B>,
         Plus<F, G>: Reverse<A, Output = B>,
     {
         let composite = f.clone().plus(g.clone());
+        let strategy = cases.cases(h);
+        let (h, f, g) = (h.clone(), f.clone(), g.clone());
         self.run(
             short_type_name::<H>(),
             &[(Law::SumRule, 1), (Law::SameMap, 2)],
-            &cases.cases(h),
-            |tol, law, _, c| match law {
-                Law::SumRule => pairs::sum_rule(tol, h, f, g, c),
-                _ => pairs::same_second_order(tol, h, &composite, c),
+            &strategy,
+            move |tol, law, _, c| match law {
+                Law::SumRule => pairs::sum_rule(tol, &h, &f, &g, c),
+                _ => pairs::same_second_order(tol, &h, &composite, c),
             },
         )
     }
 
     /// Runs each check over the strategy, shrinking failures, and collects
     /// the report.
-    fn run<A, B, S>(
+    fn run<A, B, S, E>(
         &self,
         subject: String,
         checks: &[(Law, u8)],
         strategy: &S,
-        eval: impl Fn(&Tolerance<R>, Law, u8, &Case<A, B>) -> Outcome,
+        eval: E,
     ) -> LawReport
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
         S: Strategy<Value = Drawn<A, B>>,
+        E: Fn(&Tolerance<R>, Law, u8, &Case<A, B>) -> Outcome + Send + Sync + 'static,
     {
+        let eval = Arc::new(eval);
         let mut report = LawReport::new(
             subject,
             format!("{} drawn cases per law, seed {:#x}", self.cases, self.seed),
         );
         for &(law, order) in checks {
+            // After a case overruns the time limit, the law is broken there:
+            // the rest of its cases (and proptest's shrinking) are skipped,
+            // not run into the limit again and again.
+            let overran = std::cell::RefCell::new(None::<Discrepancy>);
             let judged = |d: &Drawn<A, B>| -> Outcome {
                 match d {
                     Drawn::Case(c) if c.x.dimension() == 0 => Err(Discrepancy::failure(
                         "the input has no coordinates: a law checked on an empty input checks nothing",
                     )
                     .into()),
-                    Drawn::Case(c) => self.judge_case(&eval, law, order, c),
+                    Drawn::Case(c) => {
+                        let outcome = self.judge_in_time(&eval, law, order, c);
+                        if let Err(Finding::Broken(b)) = &outcome
+                            && b.measure.starts_with(OVERRAN)
+                        {
+                            *overran.borrow_mut() = Some(b.clone());
+                        }
+                        outcome
+                    }
                     Drawn::Unevaluable { reason, .. } => {
                         Err(Discrepancy::failure(reason.clone()).into())
                     }
@@ -506,33 +586,45 @@ impl<R: Real> Checker<R> {
             };
             let rng = TestRng::from_seed(RngAlgorithm::ChaCha, &seed_bytes(self.seed, law, order));
             let mut runner = TestRunner::new_with_rng(config, rng);
-            let result = runner.run(strategy, |d| match judged(&d) {
-                Ok(()) => Ok(()),
-                Err(Finding::Undecided(reason)) => {
-                    let mut slot = undecided.borrow_mut();
-                    match slot.as_mut() {
-                        Some(u) => u.cases += 1,
-                        None => {
-                            let shown = match &d {
-                                Drawn::Case(c) => show_case(&self.tolerance, law, order, c),
-                                Drawn::Unevaluable { .. } => Vec::new(),
-                            };
-                            *slot = Some(Undecided {
-                                law,
-                                order,
-                                cases: 1,
-                                reason,
-                                shown,
-                            });
-                        }
-                    }
-                    Ok(())
+            let result = runner.run(strategy, |d| {
+                if overran.borrow().is_some() {
+                    return Ok(());
                 }
-                Err(Finding::Broken(b)) => Err(TestCaseError::fail(b.summary())),
+                match judged(&d) {
+                    Ok(()) => Ok(()),
+                    Err(Finding::Undecided(reason)) => {
+                        let mut slot = undecided.borrow_mut();
+                        match slot.as_mut() {
+                            Some(u) => u.cases += 1,
+                            None => {
+                                let shown = match &d {
+                                    Drawn::Case(c) => show_case(&self.tolerance, law, order, c),
+                                    Drawn::Unevaluable { .. } => Vec::new(),
+                                };
+                                *slot = Some(Undecided {
+                                    law,
+                                    order,
+                                    cases: 1,
+                                    reason,
+                                    shown,
+                                });
+                            }
+                        }
+                        Ok(())
+                    }
+                    Err(Finding::Broken(b)) => Err(TestCaseError::fail(b.summary())),
+                }
             });
-            let violation = match result {
-                Ok(()) => None,
-                Err(TestError::Fail(_, drawn)) => {
+            let stored = overran.borrow().clone();
+            let violation = match (result, stored) {
+                (Ok(()), None) => None,
+                // The overrun case was the one proptest reports (its
+                // shrinks were skipped), and it is not run again.
+                (Ok(()), Some(b)) => Some(Violation::without_case(law, order, b)),
+                (Err(TestError::Fail(_, drawn)), Some(b)) => {
+                    Some(self.violation(law, order, b, drawn))
+                }
+                (Err(TestError::Fail(_, drawn)), None) => {
                     let breach = match judged(&drawn) {
                         Err(Finding::Broken(b)) => b,
                         _ => Discrepancy::failure(
@@ -541,7 +633,7 @@ impl<R: Real> Checker<R> {
                     };
                     Some(self.violation(law, order, breach, drawn))
                 }
-                Err(TestError::Abort(why)) => Some(Violation::without_case(
+                (Err(TestError::Abort(why)), _) => Some(Violation::without_case(
                     law,
                     order,
                     Discrepancy::failure(format!("the case generator gave up: {why}")),
@@ -558,19 +650,48 @@ impl<R: Real> Checker<R> {
         report
     }
 
+    /// [`judge_case`](Self::judge_case) on a thread of its own, given
+    /// [`time_limit`](Self::time_limit) to finish.
+    fn judge_in_time<A, B, E>(&self, eval: &Arc<E>, law: Law, order: u8, c: &Case<A, B>) -> Outcome
+    where
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
+        E: Fn(&Tolerance<R>, Law, u8, &Case<A, B>) -> Outcome + Send + Sync + 'static,
+    {
+        let (sender, receiver) = std::sync::mpsc::channel();
+        let (checker, shared, case) = (self.clone(), Arc::clone(eval), c.clone());
+        let spawned = std::thread::Builder::new()
+            .name("revdiff law case".to_string())
+            .spawn(move || {
+                // The receiver may have given up waiting: nothing to do then.
+                let _ = sender.send(checker.judge_case(&*shared, law, order, &case));
+            });
+        if spawned.is_err() {
+            // No thread to be had: judge here, without a limit.
+            return self.judge_case(eval.as_ref(), law, order, c);
+        }
+        match receiver.recv_timeout(self.time_limit) {
+            Ok(outcome) => outcome,
+            Err(std::sync::mpsc::RecvTimeoutError::Timeout) => Err(Discrepancy::failure(format!(
+                "{OVERRAN} of {:?}: the map may never return at this case (its thread was left \
+                 running, and the law's remaining cases were skipped)",
+                self.time_limit
+            ))
+            .into()),
+            Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                Err(Discrepancy::failure("the check of this case ended without a result").into())
+            }
+        }
+    }
+
     /// Judges one case. A comparison that fails is re-evaluated at tiny
     /// perturbations of the case: a broken law survives them, rounding does
     /// not (see [`Tolerance`]).
-    fn judge_case<A, B>(
-        &self,
-        eval: &impl Fn(&Tolerance<R>, Law, u8, &Case<A, B>) -> Outcome,
-        law: Law,
-        order: u8,
-        c: &Case<A, B>,
-    ) -> Outcome
+    fn judge_case<A, B, E>(&self, eval: &E, law: Law, order: u8, c: &Case<A, B>) -> Outcome
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
+        E: Fn(&Tolerance<R>, Law, u8, &Case<A, B>) -> Outcome + ?Sized,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
     {
         let first = guarded(|| eval(&self.tolerance, law, order, c));
         let mut breach = match first {
@@ -642,8 +763,8 @@ impl<R: Real> Checker<R> {
         drawn: Drawn<A, B>,
     ) -> Violation
     where
-        A: Euclidean<R> + 'static,
-        B: Euclidean<R> + 'static,
+        A: Euclidean<R> + Send + 'static,
+        B: Euclidean<R> + Send + 'static,
     {
         let shown = match &drawn {
             Drawn::Case(c) => show_case(&self.tolerance, law, order, c),
@@ -652,6 +773,11 @@ impl<R: Real> Checker<R> {
         Violation::new(law, order, shown, breach, drawn)
     }
 }
+
+/// The time each case may take by default.
+const DEFAULT_TIME_LIMIT: Duration = Duration::from_secs(60);
+/// How the message of a case that overran the time limit begins.
+const OVERRAN: &str = "the case did not finish within the time limit";
 
 /// Relative sizes of the perturbations that tell rounding from a broken
 /// law: large enough to change every rounding, small enough that a broken

@@ -17,6 +17,7 @@ use std::fmt;
 /// [`Training`](crate::Training) take it as they take a tuple.
 pub type LayerParameters<T> = Vec<(Array2<T>, Array1<T>)>;
 
+#[derive(Clone)]
 enum Stage<T> {
     /// Affine stage: `(rows, inputs) -> (rows, outputs)`, parameters at `slot`.
     Affine {
@@ -69,6 +70,7 @@ enum Stage<T> {
 ///     .unwrap();
 /// assert!(run.epoch_losses.last() < run.epoch_losses.first());
 /// ```
+#[derive(Clone)]
 pub struct Layers<T> {
     input_width: usize,
     width: usize,
@@ -141,7 +143,7 @@ impl<T: Real> Layers<T> {
     /// messages and in the model's `Display`.
     pub fn elementwise<F>(mut self, name: &str, map: F) -> Self
     where
-        F: Map<Array2<T>, Output = Array2<T>> + 'static,
+        F: Map<Array2<T>, Output = Array2<T>> + Send + Sync + 'static,
         F::Memo: 'static,
     {
         self.stages.push(Stage::Elementwise {
