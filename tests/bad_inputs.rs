@@ -99,10 +99,12 @@ fn each_bad_input_gets_its_typed_error() {
             laws::strategies::matrices(2, 2, f64::NAN, 1.0), Error::InvalidSetting { .. },
         "a detection limit below the estimated allowance" =>
             Tolerance::<f64>::default().detection_limit(1e-9), Error::InvalidSetting { .. },
+        "a power with a NaN exponent" =>
+            Powf::new(f64::NAN).forward(&2.0), Error::InvalidSetting { .. },
         "boxed maps nested past the limit" =>
             Boxed::new(deepest.then(Sin)), Error::NestingTooDeep { .. },
     };
-    assert_eq!(checked, 30);
+    assert_eq!(checked, 31);
 
     // The chain's message names the stage that broke its shape.
     let err = chain.forward(&x3).unwrap_err();

@@ -379,8 +379,10 @@ impl<R: Real> Tolerance<R> {
             error,
             allowed,
             (vec![to_f64(expected.1 - observed.1.value)], size),
-            || format!("{} = {}", expected.0, number(expected.1)),
-            || format!("{} = {}", observed.0, number(observed.1.value)),
+            (
+                || format!("{} = {}", expected.0, number(expected.1)),
+                || format!("{} = {}", observed.0, number(observed.1.value)),
+            ),
             format!(
                 "|expected - observed| against {:.1e} x size + the estimate's own error {:.1e} \
                  + rounding {:.1e} (size {:.3e}: the larger of |expected| and |observed|)",
@@ -400,8 +402,7 @@ impl<R: Real> Tolerance<R> {
         error: R,
         allowed: R,
         (difference, scale): (Vec<f64>, R),
-        expected: impl FnOnce() -> String,
-        observed: impl FnOnce() -> String,
+        (expected, observed): (impl FnOnce() -> String, impl FnOnce() -> String),
         measure: String,
     ) -> Outcome {
         if error <= allowed && !self.probes(compared) {
@@ -515,8 +516,8 @@ impl<R: Real> Comparison for Tolerance<R> {
             (e.value - o.value).abs(),
             allowed,
             (vec![to_f64(e.value - o.value)], scale),
-            || format!("{} = {}", expected.0, number(e.value)),
-            || format!("{} = {}", observed.0, number(o.value)),
+            (|| format!("{} = {}", expected.0, number(e.value)),
+            || format!("{} = {}", observed.0, number(o.value))),
             format!(
                 "|expected - observed| against {:.1e} x scale (scale {:.3e}: the sum of |terms| of the inner products)",
                 to_f64(self.exact),
@@ -553,8 +554,8 @@ impl<R: Real, S: Euclidean<R>> ComparisonIn<S> for Tolerance<R> {
             norm(&diff),
             allowed,
             (diff.iter().map(|d| to_f64(*d)).collect(), scale),
-            || format!("{} = {}", expected.0, self.show(expected.1)),
-            || format!("{} = {}", observed.0, self.show(observed.1)),
+            (|| format!("{} = {}", expected.0, self.show(expected.1)),
+            || format!("{} = {}", observed.0, self.show(observed.1))),
             format!(
                 "|expected - observed| (Euclidean norm) against {:.1e} x scale (scale {:.3e}: the largest norm of the values compared and their parts)",
                 to_f64(self.exact),

@@ -88,6 +88,10 @@
 //! println!("{report}");
 //! ```
 
+// An outcome is built at most once per case and carries a report's worth of
+// text; boxing its error would only move that allocation.
+#![allow(clippy::result_large_err)]
+
 mod case;
 mod differences;
 mod exhaustive;

@@ -14,7 +14,7 @@
 //! a primitive of this module, so reverse derivatives of every order exist.
 
 use crate::combinators::{Fst, Id, MultiplyBy, Pair, Snd, Then, ZeroMap};
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
 
@@ -52,6 +52,24 @@ trait Elementwise<T: Real> {
     /// product cannot computes it without the overflow.
     fn slope_times(&self, x: T, d: T) -> T {
         self.slope(x) * d
+    }
+    /// An error if the map's settings (public fields, so not checked at
+    /// construction) make no sense; checked at every pass.
+    fn settings(&self) -> Result<()> {
+        Ok(())
+    }
+}
+
+/// `Ok` if `value` is finite, else [`Error::InvalidSetting`] naming it.
+fn finite_setting<T: Real>(name: &'static str, value: T) -> Result<()> {
+    if value.is_finite() {
+        Ok(())
+    } else {
+        Err(Error::InvalidSetting {
+            name,
+            value: value.to_string(),
+            reason: "the setting of a power must be finite",
+        })
     }
 }
 
@@ -97,6 +115,7 @@ macro_rules! elementwise {
             type Output = E;
             type Memo = E;
             fn forward(&self, x: &E) -> Result<E> {
+                Elementwise::<E::Elem>::settings(self)?;
                 Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
             }
             fn forward_memo(&self, x: &E) -> Result<(E, E)> {
@@ -105,6 +124,7 @@ macro_rules! elementwise {
                 Ok((y, kept))
             }
             fn backward_memo(&self, kept: &E, dy: &E) -> Result<E> {
+                Elementwise::<E::Elem>::settings(self)?;
                 let name = <Self as Elementwise<E::Elem>>::NAME;
                 let $map = self;
                 kept.zip_elems(dy, name, |$k, $d| $product)
@@ -242,6 +262,9 @@ impl<T: Real> Elementwise<T> for Powi<T> {
         }
         r
     }
+    fn settings(&self) -> Result<()> {
+        finite_setting("Powi coefficient", self.coef)
+    }
 }
 
 impl<T: Real> Powi<T> {
@@ -259,6 +282,8 @@ elementwise!([T: Real, E: Pointwise<Elem = T>] Powi<T>, slope map Powi<T> = |s| 
 /// ```
 /// use revdiff::{Map, Powf};
 /// assert_eq!(Powf::new(0.5).forward(&9.0_f64).unwrap(), 3.0);
+/// // A setting that is not finite is an error at the first pass.
+/// assert!(Powf::new(f64::NAN).forward(&9.0_f64).is_err());
 /// ```
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Powf<T> {
@@ -293,6 +318,10 @@ impl<T: Real> Elementwise<T> for Powf<T> {
     }
     fn slope(&self, x: T) -> T {
         self.rev_slope().value(x)
+    }
+    fn settings(&self) -> Result<()> {
+        finite_setting("Powf coefficient", self.coef)?;
+        finite_setting("Powf exponent", self.p)
     }
 }
 elementwise!([T: Real, E: Pointwise<Elem = T>] Powf<T>, slope map Powf<T> = |s| s.rev_slope());
