@@ -15,6 +15,7 @@
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::primitives::Affine;
+use crate::retention::{PassCost, Retention};
 use crate::space::{Real, Space, shape_tuple};
 use ndarray::{Array1, Array2, ArrayD, Ix1, IxDyn};
 use std::any::Any;
@@ -233,6 +234,25 @@ pub struct Chain<T> {
     input_shape: Vec<usize>,
     output_shape: Vec<usize>,
     stages: Vec<Stage<T>>,
+    retention: Retention,
+}
+
+/// What a [`Chain`]'s forward pass keeps, by its [`Retention`].
+pub enum ChainMemo<T> {
+    /// Every stage's memo.
+    Stages(Vec<Box<dyn Any>>),
+    /// Stored stage inputs (the chain's input first), for the strategies
+    /// that recompute.
+    Checkpoints(Vec<ArrayD<T>>),
+}
+
+impl<T> fmt::Debug for ChainMemo<T> {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            ChainMemo::Stages(m) => write!(f, "ChainMemo::Stages({} memos)", m.len()),
+            ChainMemo::Checkpoints(c) => write!(f, "ChainMemo::Checkpoints({} states)", c.len()),
+        }
+    }
 }
 
 impl<T> fmt::Debug for Chain<T> {
@@ -253,9 +273,285 @@ impl<T: Real> Chain<T> {
             input_shape: input_shape.to_vec(),
             output_shape: input_shape.to_vec(),
             stages: Vec::new(),
+            retention: Retention::All,
         }
     }
 
+    /// Chooses what the forward pass keeps for the backward pass (see
+    /// [`Retention`]); every choice gives the same numbers, bit for bit.
+    /// A setting that makes no sense is [`Error::InvalidSetting`].
+    ///
+    /// ```
+    /// use revdiff::{Chain, Map, Retention, Tanh};
+    /// use ndarray::ArrayD;
+    ///
+    /// let mut chain = Chain::<f64>::new(&[4]);
+    /// for _ in 0..10 {
+    ///     chain.push_elementwise("tanh", Tanh)?;
+    /// }
+    /// let x = ArrayD::from_elem(vec![4], 0.5);
+    /// let dy = ArrayD::from_elem(vec![4], 1.0);
+    /// let (kept, all) = chain.gradient_and_cost(&x, &dy)?;
+    /// chain.retaining(Retention::Binomial { states: 3 })?;
+    /// let (binomial, cost) = chain.gradient_and_cost(&x, &dy)?;
+    /// assert_eq!(kept, binomial);
+    /// assert_eq!(all.advances, 0);
+    /// assert_eq!(cost.advances, revdiff::binomial_advances(10, 3).unwrap());
+    /// assert!(cost.peak_states < all.peak_states);
+    /// # Ok::<(), revdiff::Error>(())
+    /// ```
+    pub fn retaining(&mut self, retention: Retention) -> Result<()> {
+        self.retention = retention.checked()?;
+        Ok(())
+    }
+
+    /// What the forward pass keeps.
+    pub fn retention(&self) -> Retention {
+        self.retention
+    }
+
+    /// The input change for output change `dy` at `x`, and what the
+    /// backward pass cost under the chain's [`Retention`]: forward passes
+    /// repeated, and the most states held at once.
+    pub fn gradient_and_cost(
+        &self,
+        x: &ArrayD<T>,
+        dy: &ArrayD<T>,
+    ) -> Result<(ArrayD<T>, PassCost)> {
+        let (_, memo) = self.forward_memo(x)?;
+        let mut cost = PassCost::default();
+        let dx = self.backward_counted(&memo, dy, &mut cost)?;
+        Ok((dx, cost))
+    }
+
+    /// The gradient at `x`, `dy` under each strategy of `retentions`,
+    /// timed over `repeats` runs each (the median is kept): a table of
+    /// time per gradient, forward passes repeated and states held, for
+    /// choosing a strategy for this chain. The chain's own setting is left
+    /// as it was. All strategies must give the same gradient bit for bit;
+    /// if one does not, that is an error naming it (it would be a bug).
+    ///
+    /// ```
+    /// use revdiff::{Chain, Retention, Sin};
+    /// use ndarray::ArrayD;
+    ///
+    /// let mut chain = Chain::<f64>::new(&[8]);
+    /// for _ in 0..50 {
+    ///     chain.push_elementwise("sin", Sin)?;
+    /// }
+    /// let (x, dy) = (ArrayD::from_elem(vec![8], 0.3), ArrayD::from_elem(vec![8], 1.0));
+    /// let table = chain.compare_retentions(
+    ///     &x,
+    ///     &dy,
+    ///     &[Retention::All, Retention::EveryKth(7), Retention::Binomial { states: 4 }],
+    ///     5,
+    /// )?;
+    /// assert_eq!(table.rows[2].cost.advances, revdiff::binomial_advances(50, 4).unwrap());
+    /// println!("{table}");
+    /// # Ok::<(), revdiff::Error>(())
+    /// ```
+    pub fn compare_retentions(
+        &self,
+        x: &ArrayD<T>,
+        dy: &ArrayD<T>,
+        retentions: &[Retention],
+        repeats: usize,
+    ) -> Result<crate::retention::RetentionComparison> {
+        if retentions.is_empty() || repeats == 0 {
+            return Err(Error::InvalidSetting {
+                name: "compare_retentions",
+                value: format!("{} strategies, {repeats} repeats", retentions.len()),
+                reason: "a comparison needs at least one strategy and one run",
+            });
+        }
+        let mut trial = self.clone();
+        let mut rows = Vec::with_capacity(retentions.len());
+        let mut first: Option<ArrayD<T>> = None;
+        for &retention in retentions {
+            trial.retaining(retention)?;
+            let mut times = Vec::with_capacity(repeats);
+            let mut last = None;
+            for _ in 0..repeats {
+                let started = std::time::Instant::now();
+                let (dx, cost) = trial.gradient_and_cost(x, dy)?;
+                times.push(started.elapsed());
+                last = Some((dx, cost));
+            }
+            let (dx, cost) = last.expect("at least one run");
+            match &first {
+                None => first = Some(dx),
+                Some(expected) if *expected != dx => {
+                    return Err(Error::InvalidSetting {
+                        name: "retention",
+                        value: format!("{retention:?}"),
+                        reason: "this strategy changed the gradient, which no strategy may do",
+                    });
+                }
+                Some(_) => {}
+            }
+            times.sort();
+            rows.push(crate::retention::RetentionRow {
+                retention,
+                time: times[times.len() / 2],
+                cost,
+            });
+        }
+        Ok(crate::retention::RetentionComparison { rows })
+    }
+
+    fn backward_counted(
+        &self,
+        memo: &ChainMemo<T>,
+        dy: &ArrayD<T>,
+        cost: &mut PassCost,
+    ) -> Result<ArrayD<T>> {
+        if dy.shape() != self.output_shape.as_slice() {
+            return Err(Error::shape(
+                "output change of a chain",
+                shape_tuple(&self.output_shape),
+                shape_tuple(dy.shape()),
+            ));
+        }
+        let n = self.stages.len();
+        let bytes = |a: &ArrayD<T>| a.len() * std::mem::size_of::<T>();
+        match (memo, self.retention) {
+            (ChainMemo::Stages(memos), _) => {
+                if memos.len() != n {
+                    return Err(Error::ForeignMemo {
+                        operation: "backward pass of a chain",
+                    });
+                }
+                cost.peak_states = n;
+                self.backward_through(0, memos, dy.clone())
+            }
+            (ChainMemo::Checkpoints(states), Retention::EveryKth(k)) if !states.is_empty() => {
+                cost.peak_checkpoint_bytes = states.iter().map(bytes).sum();
+                let mut d = dy.clone();
+                for (segment, start) in states.iter().enumerate().rev() {
+                    let first = segment * k;
+                    let memos = self.record(first, (first + k).min(n), start, cost)?;
+                    cost.peak_states = cost.peak_states.max(states.len() + memos.len());
+                    d = self.backward_through(first, &memos, d)?;
+                }
+                Ok(d)
+            }
+            (ChainMemo::Checkpoints(states), Retention::Binomial { states: slots })
+                if states.len() == 1 =>
+            {
+                if n == 0 {
+                    return Ok(dy.clone());
+                }
+                let mut held = Held {
+                    now: 1,
+                    bytes: bytes(&states[0]),
+                    peak: 1,
+                    peak_bytes: bytes(&states[0]),
+                };
+                let d = self.reverse_range(0, n, &states[0], slots, dy.clone(), cost, &mut held)?;
+                // One memo is alive at a time, beside the stored states.
+                cost.peak_states = held.peak + 1;
+                cost.peak_checkpoint_bytes = held.peak_bytes;
+                Ok(d)
+            }
+            (ChainMemo::Checkpoints(states), _) if states.len() == 1 => {
+                cost.peak_checkpoint_bytes = bytes(&states[0]);
+                let memos = self.record(0, n, &states[0], cost)?;
+                cost.peak_states = 1 + memos.len();
+                self.backward_through(0, &memos, dy.clone())
+            }
+            _ => Err(Error::ForeignMemo {
+                operation: "backward pass of a chain",
+            }),
+        }
+    }
+
+    /// Backward through stages `first..first + memos.len()`.
+    fn backward_through(
+        &self,
+        first: usize,
+        memos: &[Box<dyn Any>],
+        mut d: ArrayD<T>,
+    ) -> Result<ArrayD<T>> {
+        for (offset, r) in memos.iter().enumerate().rev() {
+            d = self.stages[first + offset].map.backward_memo(r, &d)?;
+        }
+        Ok(d)
+    }
+
+    /// Runs stages `from..to` on `state` keeping their memos.
+    fn record(
+        &self,
+        from: usize,
+        to: usize,
+        state: &ArrayD<T>,
+        cost: &mut PassCost,
+    ) -> Result<Vec<Box<dyn Any>>> {
+        let mut memos = Vec::with_capacity(to - from);
+        let mut y = state.clone();
+        for k in from..to {
+            let (next, r) = self.stages[k].map.forward_memo(&y)?;
+            self.stages[k].check_output(k, &next)?;
+            cost.recorded += 1;
+            memos.push(r);
+            y = next;
+        }
+        Ok(memos)
+    }
+
+    /// Runs stages `from..to` on `state` without memos.
+    fn advance(
+        &self,
+        from: usize,
+        to: usize,
+        state: &ArrayD<T>,
+        cost: &mut PassCost,
+    ) -> Result<ArrayD<T>> {
+        let mut y = state.clone();
+        for k in from..to {
+            y = self.stages[k].map.forward(&y)?;
+            self.stages[k].check_output(k, &y)?;
+            cost.advances += 1;
+        }
+        Ok(y)
+    }
+
+    /// Reverses stages `a..b` from `state` (the input of stage `a`) with
+    /// `slots` states, `state` among them, by the binomial schedule.
+    #[allow(clippy::too_many_arguments)]
+    fn reverse_range(
+        &self,
+        a: usize,
+        b: usize,
+        state: &ArrayD<T>,
+        slots: usize,
+        dy: ArrayD<T>,
+        cost: &mut PassCost,
+        held: &mut Held,
+    ) -> Result<ArrayD<T>> {
+        let n = b - a;
+        if n == 1 {
+            let memos = self.record(a, b, state, cost)?;
+            return self.backward_through(a, &memos, dy);
+        }
+        if slots == 1 {
+            // No state to spare: reach each stage from `state` again.
+            let mut d = dy;
+            for k in (a..b).rev() {
+                let input = self.advance(a, k, state, cost)?;
+                let memos = self.record(k, k + 1, &input, cost)?;
+                d = self.backward_through(k, &memos, d)?;
+            }
+            return Ok(d);
+        }
+        let j = crate::retention::best_split(n, slots);
+        let stored = self.advance(a, a + j, state, cost)?;
+        let size = stored.len() * std::mem::size_of::<T>();
+        held.take(size);
+        let d = self.reverse_range(a + j, b, &stored, slots - 1, dy, cost, held)?;
+        drop(stored);
+        held.release(size);
+        self.reverse_range(a, a + j, state, slots, d, cost, held)
+    }
     /// Appends a stage after checking that it accepts the current output
     /// shape. On refusal the chain is unchanged.
     pub fn push<F>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
@@ -364,7 +660,7 @@ impl<T> Compose for Chain<T> {
 
 impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     type Output = ArrayD<T>;
-    type Memo = Vec<Box<dyn Any>>;
+    type Memo = ChainMemo<T>;
     fn forward(&self, x: &ArrayD<T>) -> Result<ArrayD<T>> {
         self.check_input(x)?;
         let Some((first, rest)) = self.stages.split_first() else {
@@ -381,33 +677,60 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     fn forward_memo(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Memo)> {
         self.check_input(x)?;
         let mut y = x.clone();
-        let mut memos = Vec::with_capacity(self.stages.len());
-        for (k, stage) in self.stages.iter().enumerate() {
-            let (next, r) = stage.map.forward_memo(&y)?;
-            stage.check_output(k, &next)?;
-            memos.push(r);
-            y = next;
+        match self.retention {
+            Retention::All => {
+                let mut memos = Vec::with_capacity(self.stages.len());
+                for (k, stage) in self.stages.iter().enumerate() {
+                    let (next, r) = stage.map.forward_memo(&y)?;
+                    stage.check_output(k, &next)?;
+                    memos.push(r);
+                    y = next;
+                }
+                Ok((y, ChainMemo::Stages(memos)))
+            }
+            Retention::EveryKth(k) => {
+                let mut states = Vec::with_capacity(self.stages.len() / k.max(1) + 1);
+                for (i, stage) in self.stages.iter().enumerate() {
+                    if i % k.max(1) == 0 {
+                        states.push(y.clone());
+                    }
+                    y = stage.map.forward(&y)?;
+                    stage.check_output(i, &y)?;
+                }
+                if states.is_empty() {
+                    states.push(x.clone());
+                }
+                Ok((y, ChainMemo::Checkpoints(states)))
+            }
+            Retention::InputOnly | Retention::Binomial { .. } => {
+                let y = self.forward(x)?;
+                Ok((y, ChainMemo::Checkpoints(vec![x.clone()])))
+            }
         }
-        Ok((y, memos))
     }
-    fn backward_memo(&self, memos: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        if memos.len() != self.stages.len() {
-            return Err(Error::ForeignMemo {
-                operation: "backward pass of a chain",
-            });
-        }
-        if dy.shape() != self.output_shape.as_slice() {
-            return Err(Error::shape(
-                "output change of a chain",
-                shape_tuple(&self.output_shape),
-                shape_tuple(dy.shape()),
-            ));
-        }
-        let mut d = dy.clone();
-        for (stage, r) in self.stages.iter().zip(memos).rev() {
-            d = stage.map.backward_memo(r, &d)?;
-        }
-        Ok(d)
+    fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        self.backward_counted(memo, dy, &mut PassCost::default())
+    }
+}
+
+/// The states a binomial schedule holds, and their peak.
+struct Held {
+    now: usize,
+    bytes: usize,
+    peak: usize,
+    peak_bytes: usize,
+}
+
+impl Held {
+    fn take(&mut self, bytes: usize) {
+        self.now += 1;
+        self.bytes += bytes;
+        self.peak = self.peak.max(self.now);
+        self.peak_bytes = self.peak_bytes.max(self.bytes);
+    }
+    fn release(&mut self, bytes: usize) {
+        self.now -= 1;
+        self.bytes -= bytes;
     }
 }
 

@@ -56,6 +56,7 @@ pub mod laws;
 pub mod learning;
 pub mod map;
 pub mod primitives;
+pub mod retention;
 pub mod space;
 
 /// The ndarray this crate is built on, re-exported so that a user's arrays
@@ -66,7 +67,7 @@ pub use ndarray;
 pub use proptest;
 
 pub use combinators::*;
-pub use dynamic::{Boxed, Chain, StageShape};
+pub use dynamic::{Boxed, Chain, ChainMemo, StageShape};
 pub use error::{Error, Result};
 pub use formula::{Formula, as_formula, input, input_at, parameter};
 pub use higher::{
@@ -77,6 +78,9 @@ pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use learning::*;
 pub use map::{Compose, Linear, Map, Reverse};
 pub use primitives::*;
+pub use retention::{
+    PassCost, Recomputed, Retention, RetentionComparison, RetentionRow, binomial_advances,
+};
 pub use space::{Euclidean, Pointwise, Real, RunVisitor, Scalable, Space};
 
 /// The README's code, compiled and run as doc-tests.

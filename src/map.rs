@@ -254,6 +254,15 @@ pub trait Compose {
         Scaled::new(self, s)
     }
 
+    /// The same map, keeping only its input for the backward pass and
+    /// recomputing the rest there. See [`Recomputed`](crate::Recomputed).
+    fn recomputed(self) -> crate::Recomputed<Self>
+    where
+        Self: Sized,
+    {
+        crate::Recomputed { map: self }
+    }
+
     /// How deeply [`Boxed`](crate::Boxed) maps nest inside this map: 0
     /// for a map that holds none. Combinators report the deepest of their
     /// parts, so that [`Boxed::new`](crate::Boxed::new) can refuse nesting
