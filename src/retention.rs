@@ -111,6 +111,62 @@ impl Retention {
     }
 }
 
+/// The strategy in a few words, as tables and benchmarks name it.
+impl std::fmt::Display for Retention {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            Retention::All => f.write_str("keep all"),
+            Retention::InputOnly => f.write_str("input only"),
+            Retention::EveryKth(k) => write!(f, "segments of {k}"),
+            Retention::Binomial { states } => write!(f, "binomial, {states} states"),
+        }
+    }
+}
+
+/// Registers one benchmark per strategy of `retentions` in a criterion
+/// group: a gradient of `chain` at `x`, `dy` under that strategy, named as
+/// the strategy's `Display`. Needs the `criterion` feature. A strategy
+/// whose setting makes no sense is [`Error::InvalidSetting`], before any
+/// benchmark is registered.
+///
+/// ```ignore
+/// // benches/my_model.rs, with `revdiff = { features = ["criterion"] }`
+/// let mut group = c.benchmark_group("my model");
+/// revdiff::retention::bench_retentions(
+///     &mut group,
+///     &model,
+///     &x,
+///     &dy,
+///     &[Retention::All, Retention::Binomial { states: 8 }],
+/// )?;
+/// group.finish();
+/// ```
+#[cfg(feature = "criterion")]
+pub fn bench_retentions<T, M>(
+    group: &mut criterion::BenchmarkGroup<'_, M>,
+    chain: &crate::Chain<T>,
+    x: &ndarray::ArrayD<T>,
+    dy: &ndarray::ArrayD<T>,
+    retentions: &[Retention],
+) -> Result<()>
+where
+    T: crate::Real,
+    M: criterion::measurement::Measurement,
+{
+    let mut trials = Vec::with_capacity(retentions.len());
+    for &retention in retentions {
+        let mut trial = chain.clone();
+        trial.retaining(retention)?;
+        trials.push((retention, trial));
+    }
+    for (retention, trial) in &trials {
+        group.bench_function(retention.to_string(), |b| {
+            b.iter(|| trial.gradient_and_cost(std::hint::black_box(x), dy))
+        });
+    }
+    Ok(())
+}
+
 /// What one backward pass of a [`Chain`](crate::Chain) cost under its
 /// [`Retention`]: see [`Chain::gradient_and_cost`](crate::Chain::gradient_and_cost).
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -294,12 +350,7 @@ impl std::fmt::Display for RetentionComparison {
             "checkpoint bytes"
         )?;
         for row in &self.rows {
-            let name = match row.retention {
-                Retention::All => "keep all".to_string(),
-                Retention::InputOnly => "input only".to_string(),
-                Retention::EveryKth(k) => format!("segments of {k}"),
-                Retention::Binomial { states } => format!("binomial, {states} states"),
-            };
+            let name = row.retention.to_string();
             let ratio = base
                 .filter(|b| *b > 0.0)
                 .map_or(f64::NAN, |b| row.time.as_secs_f64() / b);

@@ -70,10 +70,10 @@ proptest! {
     fn copy_add_discard_zero_constant_scale(x in vector(3), d1 in vector(3), d2 in vector(3)) {
         prop_assert_eq!(duplicate().backward(&x, &(d1.clone(), d2.clone())).unwrap(), &d1 + &d2);
         prop_assert_eq!(add_pair().backward(&(x.clone(), x.clone()), &d1).unwrap(), (d1.clone(), d1.clone()));
-        prop_assert_eq!(discard().backward(&x, &()).unwrap(), Array1::zeros(3));
-        prop_assert_eq!(zero_map().backward(&x, &d1).unwrap(), Array1::zeros(3));
+        prop_assert_eq!(discard().backward(&x, &()).unwrap(), Array1::<f64>::zeros(3));
+        prop_assert_eq!(zero_map().backward(&x, &d1).unwrap(), Array1::<f64>::zeros(3));
         prop_assert_eq!(constant(d2.clone()).forward(&x).unwrap(), d2.clone());
-        prop_assert_eq!(constant(d2.clone()).backward(&x, &d1).unwrap(), Array1::zeros(3));
+        prop_assert_eq!(constant(d2.clone()).backward(&x, &d1).unwrap(), Array1::<f64>::zeros(3));
         prop_assert_eq!(multiply_by(2.5).backward(&x, &d1).unwrap(), &d1 * 2.5);
         prop_assert_eq!(Sin.scaled(2.5).backward(&x, &d1).unwrap(), Sin.backward(&x, &(&d1 * 2.5)).unwrap());
     }
