@@ -1,5 +1,5 @@
 //! What each composition strategy costs on deep run-time chains: time per
-//! gradient for chains of 10, 100 and 1,000 stages of one-element and
+//! gradient for chains of 10, 100, 1,000 and 10,000 stages of one-element and
 //! 256-wide arrays, keeping everything, recomputing from the input,
 //! checkpointing every sqrt(n)-th stage and binomial checkpointing with 8
 //! states, registered through the crate's own helper
@@ -14,7 +14,7 @@ use revdiff::{Chain, Retention, Sin, Tanh};
 
 fn deep_chains(c: &mut Criterion) {
     for width in [1usize, 256] {
-        for n in [10usize, 100, 1000] {
+        for n in [10usize, 100, 1000, 10_000] {
             let mut chain = Chain::<f64>::new(&[width]);
             for k in 0..n {
                 if k % 2 == 0 {

@@ -1,0 +1,902 @@
+//! The same algebra over the two-element field Z2: XOR is addition, AND is
+//! multiplication, and the reverse derivative of a polynomial map is given
+//! by its formal partial derivatives.
+//!
+//! - [`Bit`] is the scalar; [`Bits`] holds bit-sliced values: `wires`
+//!   wires, each with one bit per example, packed 64 examples to a `u64`,
+//!   so that a gate costs one word operation per 64 examples.
+//! - Gates are maps with reverse derivatives as maps, closed under
+//!   repetition: [`XorGate`], [`AndGate`], [`NotGate`] (`1 + x`),
+//!   [`OrGate`] (`x + y + xy`) and [`MuxGate`] (`s ? b : a`). Constants
+//!   and copies are the crate's own [`Constant`](crate::Constant) and
+//!   [`Duplicate`](crate::Duplicate), and every combinator works unchanged.
+//! - [`Polynomial`] is a function's algebraic normal form, computed from its
+//!   truth table by the Moebius transform, printed readably, and made into a
+//!   map by [`PolynomialMap`].
+//!
+//! # The derivative belongs to the polynomial
+//!
+//! Over Z2, `x` and `x * x` are the same function but different
+//! polynomials, and their reverse derivatives differ: `1` and `2x = 0`.
+//!
+//! ```
+//! use revdiff::bits::{AndGate, Bits};
+//! use revdiff::{Compose, Duplicate, Id, Map};
+//!
+//! let x = Bits::from_fn(1, 2, |_, e| e == 1); // x = 0 and x = 1
+//! let square = Duplicate.then(AndGate); // x -> x * x
+//! assert_eq!(square.forward(&x).unwrap(), Id.forward(&x).unwrap());
+//! let dz = Bits::from_fn(1, 2, |_, _| true);
+//! // d(x)/dx = 1, but d(x x)/dx = x + x = 0.
+//! assert_eq!(Id.backward(&x, &dz).unwrap(), dz);
+//! assert_eq!(square.backward(&x, &dz).unwrap(), Bits::zeros(1, 2));
+//! ```
+
+use crate::combinators::{Fst, Pair, Snd, Then};
+use crate::error::{Error, Result};
+use crate::laws::{ExactPairing, ExactScalar};
+use crate::map::{Compose, Map, Reverse};
+use crate::space::Space;
+use std::fmt;
+
+/// An element of Z2: `Bit(true) + Bit(true) = Bit(false)`.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
+pub struct Bit(pub bool);
+
+impl Space for Bit {
+    type Shape = ();
+    fn shape(&self) {}
+    fn zero_of(_: &()) -> Self {
+        Bit(false)
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        Ok(Bit(self.0 ^ other.0))
+    }
+    fn shape_string(&self) -> String {
+        "bit".to_string()
+    }
+}
+
+impl ExactScalar for Bit {
+    fn zero() -> Self {
+        Bit(false)
+    }
+    fn plus(&self, other: &Self) -> Self {
+        Bit(self.0 ^ other.0)
+    }
+}
+
+impl ExactPairing<Bit> for Bit {
+    fn pair_exactly(&self, other: &Self) -> Result<Bit> {
+        Ok(Bit(self.0 & other.0))
+    }
+    fn show_exactly(&self) -> String {
+        u8::from(self.0).to_string()
+    }
+}
+
+/// Bit-sliced values: `wires` wires, each holding one bit per example,
+/// packed 64 examples to a word. Addition is XOR; values of different
+/// shapes do not add (a typed error names both shapes).
+///
+/// ```
+/// use revdiff::bits::Bits;
+/// use revdiff::Space;
+///
+/// // Two wires over three examples.
+/// let a = Bits::from_fn(2, 3, |wire, example| (wire + example) % 2 == 0);
+/// assert!(a.get(0, 0) && !a.get(1, 0));
+/// assert_eq!(a.try_add(&a).unwrap(), Bits::zeros(2, 3));
+/// assert!(a.try_add(&Bits::zeros(2, 4)).is_err());
+/// ```
+#[derive(Clone, PartialEq, Eq, Hash)]
+pub struct Bits {
+    wires: usize,
+    examples: usize,
+    // Wire-major; bits past `examples` in a wire's last word are always 0.
+    words: Vec<u64>,
+}
+
+fn words_for(examples: usize) -> usize {
+    examples.div_ceil(64)
+}
+
+impl Bits {
+    /// All zeros.
+    pub fn zeros(wires: usize, examples: usize) -> Self {
+        Bits {
+            wires,
+            examples,
+            words: vec![0; wires * words_for(examples)],
+        }
+    }
+
+    /// Bit `f(wire, example)` on each wire for each example.
+    pub fn from_fn(wires: usize, examples: usize, f: impl Fn(usize, usize) -> bool) -> Self {
+        let mut out = Bits::zeros(wires, examples);
+        for w in 0..wires {
+            for e in 0..examples {
+                if f(w, e) {
+                    out.set(w, e, true);
+                }
+            }
+        }
+        out
+    }
+
+    /// The number of wires.
+    pub fn wires(&self) -> usize {
+        self.wires
+    }
+
+    /// The number of examples.
+    pub fn examples(&self) -> usize {
+        self.examples
+    }
+
+    /// The bit of `wire` for `example` (false outside the shape).
+    pub fn get(&self, wire: usize, example: usize) -> bool {
+        if wire >= self.wires || example >= self.examples {
+            return false;
+        }
+        let word = self.words[wire * words_for(self.examples) + example / 64];
+        (word >> (example % 64)) & 1 == 1
+    }
+
+    /// Sets the bit of `wire` for `example` (ignored outside the shape).
+    pub fn set(&mut self, wire: usize, example: usize, bit: bool) {
+        if wire >= self.wires || example >= self.examples {
+            return;
+        }
+        let index = wire * words_for(self.examples) + example / 64;
+        let mask = 1u64 << (example % 64);
+        if bit {
+            self.words[index] |= mask;
+        } else {
+            self.words[index] &= !mask;
+        }
+    }
+
+    /// The words of one wire.
+    pub fn wire(&self, wire: usize) -> &[u64] {
+        let n = words_for(self.examples);
+        &self.words[wire * n..(wire + 1) * n]
+    }
+
+    /// How many bits are set.
+    pub fn count_ones(&self) -> u64 {
+        self.words.iter().map(|w| u64::from(w.count_ones())).sum()
+    }
+
+    /// The mask of the examples a wire's `k`-th word holds.
+    fn valid(&self, k: usize) -> u64 {
+        let n = words_for(self.examples);
+        let rest = self.examples - 64 * (k % n.max(1));
+        if rest >= 64 {
+            u64::MAX
+        } else {
+            (1u64 << rest) - 1
+        }
+    }
+
+    fn same_shape(&self, other: &Bits, operation: &'static str) -> Result<()> {
+        if (self.wires, self.examples) == (other.wires, other.examples) {
+            Ok(())
+        } else {
+            Err(Error::shape(
+                operation,
+                self.shape_string(),
+                other.shape_string(),
+            ))
+        }
+    }
+
+    /// `op` word by word on two values of one shape.
+    fn zip(
+        &self,
+        other: &Bits,
+        operation: &'static str,
+        op: impl Fn(u64, u64) -> u64,
+    ) -> Result<Bits> {
+        self.same_shape(other, operation)?;
+        Ok(Bits {
+            wires: self.wires,
+            examples: self.examples,
+            words: self
+                .words
+                .iter()
+                .zip(&other.words)
+                .map(|(a, b)| op(*a, *b))
+                .collect(),
+        })
+    }
+
+    /// `1 + x` on every bit, padding kept at 0.
+    fn complement(&self) -> Bits {
+        let mut out = self.clone();
+        for (k, w) in out.words.iter_mut().enumerate() {
+            *w = !*w & self.valid(k);
+        }
+        out
+    }
+}
+
+impl fmt::Debug for Bits {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "Bits{}", self.shape_string())?;
+        for w in 0..self.wires.min(16) {
+            let shown: String = (0..self.examples.min(64))
+                .map(|e| if self.get(w, e) { '1' } else { '0' })
+                .collect();
+            write!(f, " {shown}")?;
+        }
+        Ok(())
+    }
+}
+
+impl Space for Bits {
+    type Shape = (usize, usize);
+    fn shape(&self) -> (usize, usize) {
+        (self.wires, self.examples)
+    }
+    fn zero_of(&(wires, examples): &(usize, usize)) -> Self {
+        Bits::zeros(wires, examples)
+    }
+    fn try_add(&self, other: &Self) -> Result<Self> {
+        self.zip(other, "adding bit values", |a, b| a ^ b)
+    }
+    fn try_add_assign(&mut self, other: &Self) -> Result<()> {
+        self.same_shape(other, "adding bit values")?;
+        for (a, b) in self.words.iter_mut().zip(&other.words) {
+            *a ^= b;
+        }
+        Ok(())
+    }
+    fn shape_string(&self) -> String {
+        format!("({} wires, {} examples)", self.wires, self.examples)
+    }
+}
+
+impl ExactPairing<Bit> for Bits {
+    /// The sum over Z2 of the products of corresponding bits.
+    fn pair_exactly(&self, other: &Self) -> Result<Bit> {
+        let both = self.zip(other, "pairing bit values", |a, b| a & b)?;
+        Ok(Bit(both.count_ones() % 2 == 1))
+    }
+    fn show_exactly(&self) -> String {
+        format!("{self:?}")
+    }
+}
+
+/// `(x, y) -> x + y` (XOR), bit by bit. Reverse derivative: `dz -> (dz, dz)`.
+///
+/// Truth table (common practice, no source): 0 0 -> 0, 0 1 -> 1, 1 0 -> 1,
+/// 1 1 -> 0.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct XorGate;
+
+/// `(x, y) -> x y` (AND), bit by bit. Reverse derivative:
+/// `((x, y), dz) -> (y dz, x dz)`.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct AndGate;
+
+/// `x -> 1 + x` (NOT), bit by bit. Reverse derivative: `dz -> dz`.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct NotGate;
+
+/// `(x, y) -> x + y + x y` (OR), bit by bit. Its reverse derivative,
+/// `((x, y), dz) -> ((1 + y) dz, (1 + x) dz)`, is that of the equal
+/// composite of XOR and AND gates.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct OrGate;
+
+/// `(s, (a, b)) -> a + s (a + b)`: `b` where `s` is 1, `a` where it is 0.
+/// Its reverse derivative, `((a + b) dz, ((1 + s) dz, s dz))`, is that of
+/// the equal composite of gates.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct MuxGate;
+
+impl Compose for XorGate {}
+impl Compose for AndGate {}
+impl Compose for NotGate {}
+impl Compose for OrGate {}
+impl Compose for MuxGate {}
+
+impl Map<(Bits, Bits)> for XorGate {
+    type Output = Bits;
+    type Memo = ();
+    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, ())> {
+        Ok((x.zip(y, "XOR gate", |a, b| a ^ b)?, ()))
+    }
+    fn backward_memo(&self, _: &(), dz: &Bits) -> Result<(Bits, Bits)> {
+        Ok((dz.clone(), dz.clone()))
+    }
+}
+
+impl Reverse<(Bits, Bits)> for XorGate {
+    type Rev = Then<Snd, crate::Duplicate>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(crate::Duplicate)
+    }
+}
+
+impl Map<(Bits, Bits)> for AndGate {
+    type Output = Bits;
+    type Memo = (Bits, Bits);
+    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
+        Ok((x.zip(y, "AND gate", |a, b| a & b)?, (x.clone(), y.clone())))
+    }
+    fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
+        let op = "the output change of an AND gate";
+        Ok((y.zip(dz, op, |a, b| a & b)?, x.zip(dz, op, |a, b| a & b)?))
+    }
+}
+
+/// `((x, y), dz) -> (y dz, x dz)` from gates.
+pub type AndGateRev =
+    Pair<Then<Pair<Then<Fst, Snd>, Snd>, AndGate>, Then<Pair<Then<Fst, Fst>, Snd>, AndGate>>;
+
+impl Reverse<(Bits, Bits)> for AndGate {
+    type Rev = AndGateRev;
+    fn rev(&self) -> AndGateRev {
+        Pair::new(
+            Fst.then(Snd).pair(Snd).then(AndGate),
+            Fst.then(Fst).pair(Snd).then(AndGate),
+        )
+    }
+}
+
+impl Map<Bits> for NotGate {
+    type Output = Bits;
+    type Memo = ();
+    fn forward_memo(&self, x: &Bits) -> Result<(Bits, ())> {
+        Ok((x.complement(), ()))
+    }
+    fn backward_memo(&self, _: &(), dz: &Bits) -> Result<Bits> {
+        Ok(dz.clone())
+    }
+}
+
+impl Reverse<Bits> for NotGate {
+    type Rev = Snd;
+    fn rev(&self) -> Snd {
+        Snd
+    }
+}
+
+/// `x + y + x y` from gates.
+pub type OrComposite = Then<Pair<XorGate, AndGate>, XorGate>;
+
+impl OrGate {
+    /// The equal composite of XOR and AND gates.
+    pub fn composite(&self) -> OrComposite {
+        XorGate.pair(AndGate).then(XorGate)
+    }
+}
+
+impl Map<(Bits, Bits)> for OrGate {
+    type Output = Bits;
+    type Memo = (Bits, Bits);
+    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
+        Ok((x.zip(y, "OR gate", |a, b| a | b)?, (x.clone(), y.clone())))
+    }
+    fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
+        let op = "the output change of an OR gate";
+        Ok((y.zip(dz, op, |a, b| !a & b)?, x.zip(dz, op, |a, b| !a & b)?))
+    }
+}
+
+impl Reverse<(Bits, Bits)> for OrGate {
+    type Rev = <OrComposite as Reverse<(Bits, Bits)>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        self.composite().rev()
+    }
+}
+
+/// `a + s (a + b)` from gates, on `(s, (a, b))`.
+pub type MuxComposite =
+    Then<Pair<Then<Snd, Fst>, Then<Pair<Fst, Then<Snd, XorGate>>, AndGate>>, XorGate>;
+
+impl MuxGate {
+    /// The equal composite of XOR and AND gates.
+    pub fn composite(&self) -> MuxComposite {
+        Snd.then(Fst)
+            .pair(Fst.pair(Snd.then(XorGate)).then(AndGate))
+            .then(XorGate)
+    }
+}
+
+type MuxInput = (Bits, (Bits, Bits));
+
+impl Map<MuxInput> for MuxGate {
+    type Output = Bits;
+    type Memo = MuxInput;
+    fn forward_memo(&self, input: &MuxInput) -> Result<(Bits, MuxInput)> {
+        let (s, (a, b)) = input;
+        s.same_shape(a, "multiplexer, its selector against its first input")?;
+        let chosen = a.zip(b, "multiplexer inputs", |_, _| 0)?;
+        let words = s
+            .words
+            .iter()
+            .zip(&a.words)
+            .zip(&b.words)
+            .map(|((s, a), b)| (a & !s) | (b & s))
+            .collect();
+        Ok((Bits { words, ..chosen }, input.clone()))
+    }
+    fn backward_memo(&self, (s, (a, b)): &MuxInput, dz: &Bits) -> Result<MuxInput> {
+        let op = "the output change of a multiplexer";
+        Ok((
+            a.zip(b, op, |a, b| a ^ b)?.zip(dz, op, |d, z| d & z)?,
+            (s.zip(dz, op, |s, z| !s & z)?, s.zip(dz, op, |s, z| s & z)?),
+        ))
+    }
+}
+
+impl Reverse<MuxInput> for MuxGate {
+    type Rev = <MuxComposite as Reverse<MuxInput>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        self.composite().rev()
+    }
+}
+
+/// A polynomial over Z2 in at most 64 variables, in algebraic normal form:
+/// a sum of distinct monomials, each a product of distinct variables (a bit
+/// mask; the empty product is 1).
+///
+/// Variables print as `a`, `b`, `c`, ... up to 26 variables, as `x0`, `x1`,
+/// ... beyond.
+///
+/// ```
+/// use revdiff::bits::Polynomial;
+/// // 3-input majority (common fact, no source): ab + ac + bc.
+/// let majority = Polynomial::from_truth_table(3, |x| x.count_ones() >= 2).unwrap();
+/// assert_eq!(majority.to_string(), "ab + ac + bc");
+/// // 3-input parity: a + b + c.
+/// let parity = Polynomial::from_truth_table(3, |x| x.count_ones() % 2 == 1).unwrap();
+/// assert_eq!(parity.to_string(), "a + b + c");
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq, Hash)]
+pub struct Polynomial {
+    vars: usize,
+    monomials: Vec<u64>,
+}
+
+/// The most inputs a truth table may have (its length is `2^inputs`).
+pub const MAX_TRUTH_TABLE_INPUTS: usize = 30;
+
+impl Polynomial {
+    /// The algebraic normal form of the function `f` of `inputs` bits
+    /// (`f(x)` reads input `i` as bit `i` of `x`), by the Moebius transform
+    /// of its truth table, `O(inputs 2^inputs)` bit operations, 64 at a
+    /// time. More than [`MAX_TRUTH_TABLE_INPUTS`] inputs is
+    /// [`Error::InvalidSetting`].
+    pub fn from_truth_table(inputs: usize, f: impl Fn(u64) -> bool) -> Result<Self> {
+        if inputs > MAX_TRUTH_TABLE_INPUTS {
+            return Err(Error::InvalidSetting {
+                name: "truth table inputs",
+                value: inputs.to_string(),
+                reason: "a truth table of more than 30 inputs does not fit in memory",
+            });
+        }
+        let size = 1usize << inputs;
+        let mut table = vec![0u64; size.div_ceil(64)];
+        for x in 0..size {
+            if f(x as u64) {
+                table[x / 64] |= 1 << (x % 64);
+            }
+        }
+        moebius(&mut table, inputs);
+        let monomials: Vec<u64> = (0..size)
+            .filter(|&m| (table[m / 64] >> (m % 64)) & 1 == 1)
+            .map(|m| m as u64)
+            .collect();
+        Ok(Polynomial::new(inputs, monomials))
+    }
+
+    /// The polynomial with these monomials (bit masks of variables; a
+    /// monomial listed twice cancels, as over Z2 it must).
+    pub fn new(vars: usize, monomials: impl IntoIterator<Item = u64>) -> Self {
+        let mut ms: Vec<u64> = monomials.into_iter().collect();
+        // By degree, then by the variables in order: ab before ac before bc.
+        ms.sort_by_key(|&m| {
+            let vars: Vec<u32> = (0..64).filter(|i| m >> i & 1 == 1).collect();
+            (m.count_ones(), vars)
+        });
+        let mut out: Vec<u64> = Vec::with_capacity(ms.len());
+        for m in ms {
+            if out.last() == Some(&m) {
+                out.pop();
+            } else {
+                out.push(m);
+            }
+        }
+        Polynomial {
+            vars,
+            monomials: out,
+        }
+    }
+
+    /// The number of variables.
+    pub fn variables(&self) -> usize {
+        self.vars
+    }
+
+    /// The monomials, as bit masks of variables.
+    pub fn monomials(&self) -> &[u64] {
+        &self.monomials
+    }
+
+    /// The value at `x` (variable `i` is bit `i` of `x`).
+    pub fn eval(&self, x: u64) -> bool {
+        self.monomials.iter().filter(|&&m| x & m == m).count() % 2 == 1
+    }
+
+    /// The formal partial derivative in variable `i`: the monomials that
+    /// contain it, without it.
+    pub fn derivative(&self, i: usize) -> Polynomial {
+        let bit = 1u64 << i;
+        Polynomial::new(
+            self.vars,
+            self.monomials
+                .iter()
+                .filter(|&&m| m & bit != 0)
+                .map(|m| m & !bit),
+        )
+    }
+}
+
+impl fmt::Display for Polynomial {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        if self.monomials.is_empty() {
+            return f.write_str("0");
+        }
+        let name = |i: usize| {
+            if self.vars <= 26 {
+                ((b'a' + i as u8) as char).to_string()
+            } else {
+                format!("x{i}")
+            }
+        };
+        let terms: Vec<String> = self
+            .monomials
+            .iter()
+            .map(|&m| {
+                if m == 0 {
+                    "1".to_string()
+                } else {
+                    (0..64).filter(|i| m >> i & 1 == 1).map(name).collect()
+                }
+            })
+            .collect();
+        f.write_str(&terms.join(" + "))
+    }
+}
+
+/// The Moebius transform over Z2 in place: entry `m` becomes the sum of the
+/// entries at all subsets of `m`.
+fn moebius(table: &mut [u64], inputs: usize) {
+    // Within a word: variables 0..6, by shifts.
+    const MASKS: [u64; 6] = [
+        0x5555_5555_5555_5555,
+        0x3333_3333_3333_3333,
+        0x0f0f_0f0f_0f0f_0f0f,
+        0x00ff_00ff_00ff_00ff,
+        0x0000_ffff_0000_ffff,
+        0x0000_0000_ffff_ffff,
+    ];
+    for (k, mask) in MASKS.iter().enumerate().take(inputs.min(6)) {
+        for w in table.iter_mut() {
+            *w ^= (*w & mask) << (1 << k);
+        }
+    }
+    // Across words: variables 6 and up.
+    for k in 6..inputs {
+        let step = 1usize << (k - 6);
+        for j in 0..table.len() {
+            if j & step != 0 {
+                table[j] ^= table[j ^ step];
+            }
+        }
+    }
+}
+
+/// A map from bit-sliced inputs (a [`Bits`] whose wires are the variables)
+/// to one output wire per polynomial, evaluated monomial by monomial, 64
+/// examples per word operation.
+///
+/// Its reverse derivative is again a polynomial map, of the inputs and the
+/// output change together: input change `i` is the sum over outputs `j` of
+/// `dz_j` times the formal derivative of polynomial `j` in variable `i`.
+///
+/// ```
+/// use revdiff::bits::{Bits, Polynomial, PolynomialMap};
+/// use revdiff::Map;
+///
+/// let majority = Polynomial::from_truth_table(3, |x| x.count_ones() >= 2)?;
+/// let map = PolynomialMap::new(3, vec![majority])?;
+/// // All eight inputs at once, one example each.
+/// let x = Bits::from_fn(3, 8, |wire, example| example >> wire & 1 == 1);
+/// let y = map.forward(&x)?;
+/// for e in 0..8 {
+///     assert_eq!(y.get(0, e), (e as u32).count_ones() >= 2);
+/// }
+/// # Ok::<(), revdiff::Error>(())
+/// ```
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct PolynomialMap {
+    inputs: usize,
+    outputs: Vec<Polynomial>,
+}
+
+impl Compose for PolynomialMap {}
+
+impl PolynomialMap {
+    /// The map `x -> (p_0(x), p_1(x), ...)` of `inputs` input wires. More
+    /// than 64 inputs, or a polynomial in another number of variables, is
+    /// [`Error::InvalidSetting`].
+    pub fn new(inputs: usize, outputs: Vec<Polynomial>) -> Result<Self> {
+        if inputs > 64 || outputs.iter().any(|p| p.vars != inputs) {
+            return Err(Error::InvalidSetting {
+                name: "polynomial map",
+                value: format!("{inputs} inputs"),
+                reason: "every polynomial must be in the map's inputs, at most 64",
+            });
+        }
+        Ok(PolynomialMap { inputs, outputs })
+    }
+
+    /// The polynomials, one per output wire.
+    pub fn polynomials(&self) -> &[Polynomial] {
+        &self.outputs
+    }
+
+    fn evaluate(&self, x: &Bits) -> Result<Bits> {
+        if x.wires != self.inputs {
+            return Err(Error::shape(
+                "polynomial map input",
+                format!("({} wires, any examples)", self.inputs),
+                x.shape_string(),
+            ));
+        }
+        let n = words_for(x.examples);
+        let mut out = Bits::zeros(self.outputs.len(), x.examples);
+        for (j, p) in self.outputs.iter().enumerate() {
+            for &m in &p.monomials {
+                for k in 0..n {
+                    let mut term = x.valid(k);
+                    for i in 0..self.inputs {
+                        if m >> i & 1 == 1 {
+                            term &= x.words[i * n + k];
+                        }
+                    }
+                    out.words[j * n + k] ^= term;
+                }
+            }
+        }
+        Ok(out)
+    }
+
+    /// The reverse derivative as a map of the inputs followed by the
+    /// output change, concatenated as wires.
+    fn derivative_map(&self) -> PolynomialMap {
+        let m = self.outputs.len();
+        let vars = self.inputs + m;
+        let lift = |p: &Polynomial| Polynomial::new(vars, p.monomials.iter().copied());
+        let outputs = (0..self.inputs)
+            .map(|i| {
+                let mut monomials = Vec::new();
+                for (j, p) in self.outputs.iter().enumerate() {
+                    let dz = 1u64 << (self.inputs + j);
+                    monomials.extend(lift(&p.derivative(i)).monomials.iter().map(|t| t | dz));
+                }
+                Polynomial::new(vars, monomials)
+            })
+            .collect();
+        PolynomialMap {
+            inputs: vars,
+            outputs,
+        }
+    }
+}
+
+impl Map<Bits> for PolynomialMap {
+    type Output = Bits;
+    type Memo = Bits;
+    fn forward_memo(&self, x: &Bits) -> Result<(Bits, Bits)> {
+        Ok((self.evaluate(x)?, x.clone()))
+    }
+    fn backward_memo(&self, x: &Bits, dz: &Bits) -> Result<Bits> {
+        if dz.wires != self.outputs.len() {
+            return Err(Error::shape(
+                "the output change of a polynomial map",
+                format!("({} wires, {} examples)", self.outputs.len(), x.examples),
+                dz.shape_string(),
+            ));
+        }
+        self.derivative_map().evaluate(&stack(x, dz)?)
+    }
+}
+
+/// The reverse map: stack `(x, dz)` as wires, then the derivative's own
+/// polynomial map, so the reverse map is again made of these two, to any
+/// order.
+impl Reverse<Bits> for PolynomialMap {
+    type Rev = Then<Stack, PolynomialMap>;
+    fn rev(&self) -> Self::Rev {
+        Then::new(Stack { at: self.inputs }, self.derivative_map())
+    }
+}
+
+/// The wires of `x` followed by those of `dz`, for the same examples.
+fn stack(x: &Bits, dz: &Bits) -> Result<Bits> {
+    if x.examples != dz.examples {
+        return Err(Error::shape(
+            "stacking bit values",
+            x.shape_string(),
+            dz.shape_string(),
+        ));
+    }
+    let mut words = x.words.clone();
+    words.extend_from_slice(&dz.words);
+    Ok(Bits {
+        wires: x.wires + dz.wires,
+        examples: x.examples,
+        words,
+    })
+}
+
+/// The first `at` wires and the rest.
+fn split(s: &Bits, at: usize) -> Result<(Bits, Bits)> {
+    if at > s.wires {
+        return Err(Error::shape(
+            "splitting bit values",
+            format!("at least {at} wires"),
+            s.shape_string(),
+        ));
+    }
+    let n = words_for(s.examples);
+    let part = |from: usize, to: usize| Bits {
+        wires: to - from,
+        examples: s.examples,
+        words: s.words[from * n..to * n].to_vec(),
+    };
+    Ok((part(0, at), part(at, s.wires)))
+}
+
+/// `(x, y) -> x ++ y`: the wires of `x` (which must have `at` wires)
+/// followed by those of `y`. Linear; its reverse map is [`Split`].
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Stack {
+    /// The wires of the first part.
+    pub at: usize,
+}
+
+/// `s -> (the first at wires, the rest)`. Linear; its reverse map is
+/// [`Stack`].
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Split {
+    /// The wires of the first part.
+    pub at: usize,
+}
+
+impl Compose for Stack {}
+impl Compose for Split {}
+
+impl Map<(Bits, Bits)> for Stack {
+    type Output = Bits;
+    type Memo = ();
+    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, ())> {
+        if x.wires != self.at {
+            return Err(Error::shape(
+                "stacking bit values, the first part",
+                format!("({} wires, {} examples)", self.at, x.examples),
+                x.shape_string(),
+            ));
+        }
+        Ok((stack(x, y)?, ()))
+    }
+    fn backward_memo(&self, _: &(), d: &Bits) -> Result<(Bits, Bits)> {
+        split(d, self.at)
+    }
+}
+
+impl Reverse<(Bits, Bits)> for Stack {
+    type Rev = Then<Snd, Split>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Split { at: self.at })
+    }
+}
+
+impl Map<Bits> for Split {
+    type Output = (Bits, Bits);
+    type Memo = ();
+    fn forward_memo(&self, s: &Bits) -> Result<((Bits, Bits), ())> {
+        Ok((split(s, self.at)?, ()))
+    }
+    fn backward_memo(&self, _: &(), (a, b): &(Bits, Bits)) -> Result<Bits> {
+        stack(a, b)
+    }
+}
+
+impl Reverse<Bits> for Split {
+    type Rev = Then<Snd, Stack>;
+    fn rev(&self) -> Self::Rev {
+        Snd.then(Stack { at: self.at })
+    }
+}
+
+/// Where a map's backward pass disagrees with the Boolean difference.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct DifferenceMismatch {
+    /// The input, variable `i` as bit `i`.
+    pub input: u64,
+    /// The variable differentiated in.
+    pub variable: usize,
+    /// `f(x with x_i = 1) + f(x with x_i = 0)`, per output wire (bit `j`).
+    pub expected: u64,
+    /// The backward pass's partial derivative, per output wire.
+    pub observed: u64,
+}
+
+/// Checks a multilinear map's backward pass against the Boolean difference,
+/// at every input of `inputs` wires: for each variable `i`, the partial
+/// derivative `R[f](x, e_j)_i` must equal `f(x | x_i = 1) + f(x | x_i = 0)`
+/// for every output wire `j`. (For multilinear polynomials the formal
+/// derivative and the Boolean difference agree; for others, such as
+/// `x x`, they need not.) All `2^inputs` inputs run at once, one example
+/// each. Returns the first mismatch, in order of input then variable.
+///
+/// ```
+/// use revdiff::bits::{boolean_difference_mismatch, AndGate, Split};
+/// use revdiff::Compose;
+///
+/// let and = Split { at: 1 }.then(AndGate); // two wires -> one
+/// assert_eq!(boolean_difference_mismatch(&and, 2).unwrap(), None);
+/// ```
+pub fn boolean_difference_mismatch<F>(f: &F, inputs: usize) -> Result<Option<DifferenceMismatch>>
+where
+    F: Map<Bits, Output = Bits>,
+{
+    if inputs > 20 {
+        return Err(Error::InvalidSetting {
+            name: "inputs",
+            value: inputs.to_string(),
+            reason: "the Boolean difference is checked at every input: at most 20 inputs",
+        });
+    }
+    let cases = 1usize << inputs;
+    let x = Bits::from_fn(inputs, cases, |wire, example| example >> wire & 1 == 1);
+    let (y, memo) = f.forward_memo(&x)?;
+    let outputs = y.wires;
+    for i in 0..inputs {
+        let with = |bit: bool| {
+            Bits::from_fn(inputs, cases, |wire, e| {
+                if wire == i { bit } else { e >> wire & 1 == 1 }
+            })
+        };
+        let difference = f.forward(&with(true))?.try_add(&f.forward(&with(false))?)?;
+        // Partial derivatives of every output: one backward pass per output.
+        let mut observed = vec![0u64; cases];
+        for j in 0..outputs {
+            let dz = Bits::from_fn(outputs, cases, |wire, _| wire == j);
+            let dx = f.backward_memo(&memo, &dz)?;
+            for (e, o) in observed.iter_mut().enumerate() {
+                *o |= u64::from(dx.get(i, e)) << j;
+            }
+        }
+        for (e, &o) in observed.iter().enumerate() {
+            let expected =
+                (0..outputs).fold(0u64, |acc, j| acc | u64::from(difference.get(j, e)) << j);
+            if expected != o {
+                return Ok(Some(DifferenceMismatch {
+                    input: e as u64,
+                    variable: i,
+                    expected,
+                    observed: o,
+                }));
+            }
+        }
+    }
+    Ok(None)
+}

@@ -1,0 +1,267 @@
+//! Maps over Z2: gate truth tables, exact law checks of gates and their
+//! composites at every input and change, the Boolean difference, wrong
+//! gates caught, and algebraic normal forms.
+
+use revdiff::bits::{
+    AndGate, Bit, Bits, MuxGate, NotGate, OrGate, Polynomial, PolynomialMap, Split, XorGate,
+    boolean_difference_mismatch,
+};
+use revdiff::laws::{Exhaustive, FiniteDomain};
+use revdiff::*;
+
+/// Every value of `wires` wires over `examples` examples.
+fn all_bits(wires: usize, examples: usize) -> Vec<Bits> {
+    let n = wires * examples;
+    (0..1u64 << n)
+        .map(|code| Bits::from_fn(wires, examples, |w, e| code >> (w * examples + e) & 1 == 1))
+        .collect()
+}
+
+fn all_pairs(examples: usize) -> Vec<(Bits, Bits)> {
+    let one = all_bits(1, examples);
+    one.iter()
+        .flat_map(|a| one.iter().map(move |b| (a.clone(), b.clone())))
+        .collect()
+}
+
+/// One wire per input over all `2^k` input combinations, one example each.
+fn inputs(k: usize) -> Vec<Bits> {
+    (0..k)
+        .map(|i| Bits::from_fn(1, 1 << k, |_, e| e >> i & 1 == 1))
+        .collect()
+}
+
+fn column(b: &Bits) -> Vec<u8> {
+    (0..b.examples()).map(|e| u8::from(b.get(0, e))).collect()
+}
+
+#[test]
+fn gate_truth_tables() {
+    // Truth tables (common practice, no source). Inputs in the order
+    // (x, y) = (0,0), (1,0), (0,1), (1,1).
+    let v = inputs(2);
+    let (x, y) = (v[0].clone(), v[1].clone());
+    let xy = (x.clone(), y.clone());
+    assert_eq!(column(&XorGate.forward(&xy).unwrap()), [0, 1, 1, 0]);
+    assert_eq!(column(&AndGate.forward(&xy).unwrap()), [0, 0, 0, 1]);
+    assert_eq!(column(&OrGate.forward(&xy).unwrap()), [0, 1, 1, 1]);
+    assert_eq!(column(&NotGate.forward(&x).unwrap()), [1, 0, 1, 0]);
+    // The multiplexer, (s, a, b) over all eight inputs: b where s is 1.
+    let v = inputs(3);
+    let mux = MuxGate
+        .forward(&(v[0].clone(), (v[1].clone(), v[2].clone())))
+        .unwrap();
+    for e in 0..8 {
+        let (s, a, b) = (e & 1 == 1, e >> 1 & 1 == 1, e >> 2 & 1 == 1);
+        assert_eq!(mux.get(0, e), if s { b } else { a }, "input {e:03b}");
+    }
+    // The same as the composites the reverse maps come from.
+    assert_eq!(
+        OrGate.forward(&xy).unwrap(),
+        OrGate.composite().forward(&xy).unwrap()
+    );
+}
+
+#[test]
+fn gates_and_composites_pass_every_law_exactly_at_every_case() {
+    let checker = Exhaustive::<Bit>::new();
+    // One example: every value of every slot (law checks range over up to
+    // five slots at once; bit-slicing itself is exercised elsewhere).
+    let pairs = all_pairs(1);
+    let singles = all_bits(1, 1);
+    let on_pairs = FiniteDomain::new(pairs.clone(), pairs.clone(), singles.clone()).unwrap();
+    for report in [
+        checker.reverse(&XorGate, &on_pairs),
+        checker.reverse(&AndGate, &on_pairs),
+        checker.reverse(&OrGate, &on_pairs),
+        checker.reverse(&XorGate.pair(AndGate).then(OrGate), &on_pairs),
+    ] {
+        report.assert_clean();
+        assert!(report.checked().iter().any(|c| c.order == 2 && c.cases > 0));
+    }
+    let on_singles = FiniteDomain::new(singles.clone(), singles.clone(), singles.clone()).unwrap();
+    checker.reverse(&NotGate, &on_singles).assert_clean();
+    checker
+        .reverse(&Duplicate.then(AndGate), &on_singles)
+        .assert_clean();
+    checker
+        .reverse(
+            &Duplicate.then(NotGate.alongside(Id)).then(OrGate),
+            &on_singles,
+        )
+        .assert_clean();
+    // The multiplexer over one example: every (s, (a, b)).
+    let one = all_bits(1, 1);
+    let triples: Vec<(Bits, (Bits, Bits))> = one
+        .iter()
+        .flat_map(|s| all_pairs(1).into_iter().map(move |ab| (s.clone(), ab)))
+        .collect();
+    let on_triples = FiniteDomain::new(triples.clone(), triples, one).unwrap();
+    checker.reverse(&MuxGate, &on_triples).assert_clean();
+}
+
+#[test]
+fn backward_passes_are_the_boolean_difference() {
+    let two = Split { at: 1 };
+    assert_eq!(
+        boolean_difference_mismatch(&two.then(XorGate), 2).unwrap(),
+        None
+    );
+    assert_eq!(
+        boolean_difference_mismatch(&two.then(AndGate), 2).unwrap(),
+        None
+    );
+    assert_eq!(
+        boolean_difference_mismatch(&two.then(OrGate), 2).unwrap(),
+        None
+    );
+    assert_eq!(boolean_difference_mismatch(&NotGate, 1).unwrap(), None);
+    let three = Split { at: 1 }.then(Id.alongside(Split { at: 1 }));
+    assert_eq!(
+        boolean_difference_mismatch(&three.then(MuxGate), 3).unwrap(),
+        None
+    );
+    let majority = Polynomial::from_truth_table(3, |x| x.count_ones() >= 2).unwrap();
+    let map = PolynomialMap::new(3, vec![majority]).unwrap();
+    assert_eq!(boolean_difference_mismatch(&map, 3).unwrap(), None);
+}
+
+/// A gate with a (possibly wrong) hand-written backward pass.
+#[derive(Clone, Debug)]
+struct Gate {
+    value: fn(u64, u64) -> u64,
+    backward: fn(u64, u64, u64) -> (u64, u64),
+}
+impl Compose for Gate {}
+impl Map<(Bits, Bits)> for Gate {
+    type Output = Bits;
+    type Memo = (Bits, Bits);
+    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
+        let z = Bits::from_fn(1, x.examples(), |_, e| {
+            (self.value)(u64::from(x.get(0, e)), u64::from(y.get(0, e))) == 1
+        });
+        Ok((z, (x.clone(), y.clone())))
+    }
+    fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
+        let at = |e| {
+            (self.backward)(
+                u64::from(x.get(0, e)),
+                u64::from(y.get(0, e)),
+                u64::from(dz.get(0, e)),
+            )
+        };
+        Ok((
+            Bits::from_fn(1, x.examples(), |_, e| at(e).0 == 1),
+            Bits::from_fn(1, x.examples(), |_, e| at(e).1 == 1),
+        ))
+    }
+}
+
+#[test]
+fn three_wrong_gate_derivatives_are_caught_at_the_first_failing_case() {
+    let two = Split { at: 1 };
+    // AND with its partial derivatives swapped: (x dz, y dz).
+    let swapped = Gate {
+        value: |x, y| x & y,
+        backward: |x, y, d| (x & d, y & d),
+    };
+    let m = boolean_difference_mismatch(&two.then(swapped), 2)
+        .unwrap()
+        .expect("caught");
+    // First failing case: variable 0 at x = 1, y = 0 (input 0b01), where
+    // d(xy)/dx = y = 0 but the wrong pass gives x = 1.
+    assert_eq!(
+        (m.variable, m.input, m.expected, m.observed),
+        (0, 0b01, 0, 1)
+    );
+
+    // OR without the (1 + y) factor: (dz, dz).
+    let no_factor = Gate {
+        value: |x, y| x | y,
+        backward: |_, _, d| (d, d),
+    };
+    let m = boolean_difference_mismatch(&two.then(no_factor), 2)
+        .unwrap()
+        .expect("caught");
+    assert_eq!((m.variable, m.input), (0, 0b10));
+
+    // XOR whose derivative in y forgets the change: (dz, 0). Linear in dz,
+    // so the exact laws of one map hold; the Boolean difference does not.
+    let dropped = Gate {
+        value: |x, y| x ^ y,
+        backward: |_, _, d| (d, 0),
+    };
+    let m = boolean_difference_mismatch(&two.then(dropped.clone()), 2)
+        .unwrap()
+        .expect("caught");
+    assert_eq!((m.variable, m.input, m.expected, m.observed), (1, 0, 1, 0));
+    // And against the gate it claims to be, exactly, at the first case.
+    let pairs = all_pairs(1);
+    let domain = FiniteDomain::new(pairs.clone(), pairs, all_bits(1, 1)).unwrap();
+    let report = Exhaustive::<Bit>::new().same_map(&dropped, &XorGate, &domain);
+    assert!(!report.is_clean(), "{report}");
+}
+
+#[test]
+fn algebraic_normal_forms_from_truth_tables_and_back() {
+    // Majority and parity of three (common fact, no source).
+    let majority = Polynomial::from_truth_table(3, |x| x.count_ones() >= 2).unwrap();
+    assert_eq!(majority.to_string(), "ab + ac + bc");
+    let parity = Polynomial::from_truth_table(3, |x| x.count_ones() % 2 == 1).unwrap();
+    assert_eq!(parity.to_string(), "a + b + c");
+    // OR of two: a + b + ab; NOT: 1 + a; the constants.
+    assert_eq!(
+        Polynomial::from_truth_table(2, |x| x != 0)
+            .unwrap()
+            .to_string(),
+        "a + b + ab"
+    );
+    assert_eq!(
+        Polynomial::from_truth_table(1, |x| x == 0)
+            .unwrap()
+            .to_string(),
+        "1 + a"
+    );
+    assert_eq!(
+        Polynomial::from_truth_table(2, |_| false)
+            .unwrap()
+            .to_string(),
+        "0"
+    );
+    // Round trip on a function of 12 inputs with many terms.
+    let rule = |x: u64| (x.wrapping_mul(0x9e37_79b9) >> 7) & 1 == 1;
+    let p = Polynomial::from_truth_table(12, rule).unwrap();
+    for x in 0..(1u64 << 12) {
+        assert_eq!(p.eval(x), rule(x), "x = {x}");
+    }
+    // And as a map, all 4,096 inputs at once.
+    let map = PolynomialMap::new(12, vec![p]).unwrap();
+    let xs = Bits::from_fn(12, 4096, |w, e| e >> w & 1 == 1);
+    let y = map.forward(&xs).unwrap();
+    assert!((0..4096).all(|e| y.get(0, e) == rule(e as u64)));
+    assert!(Polynomial::from_truth_table(31, |_| true).is_err());
+}
+
+#[test]
+fn polynomial_maps_pass_the_laws_at_orders_1_and_2_exactly() {
+    let majority = Polynomial::from_truth_table(3, |x| x.count_ones() >= 2).unwrap();
+    let parity = Polynomial::from_truth_table(3, |x| x.count_ones() % 2 == 1).unwrap();
+    let map = PolynomialMap::new(3, vec![majority, parity]).unwrap();
+    let domain = FiniteDomain::new(all_bits(3, 1), all_bits(3, 1), all_bits(2, 1)).unwrap();
+    let report = Exhaustive::<Bit>::new().reverse(&map, &domain);
+    report.assert_clean();
+    assert!(report.checked().iter().any(|c| c.order == 2 && c.cases > 0));
+}
+
+#[test]
+fn shapes_that_differ_are_a_typed_error_naming_both() {
+    let err = XorGate
+        .forward(&(Bits::zeros(1, 3), Bits::zeros(1, 4)))
+        .unwrap_err();
+    let text = err.to_string();
+    assert!(
+        text.contains("(1 wires, 3 examples)") && text.contains("(1 wires, 4 examples)"),
+        "{text}"
+    );
+    assert!(matches!(err, Error::ShapeMismatch { .. }));
+}
