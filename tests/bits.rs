@@ -265,3 +265,144 @@ fn shapes_that_differ_are_a_typed_error_naming_both() {
     );
     assert!(matches!(err, Error::ShapeMismatch { .. }));
 }
+
+mod learning {
+    use super::*;
+    use revdiff::bits::{Aggregate, CircuitFit, CircuitTraining, SumOfProducts};
+
+    /// All `2^k` inputs of `k` wires, one example each, and `rule` on them.
+    fn truth(k: usize, rule: impl Fn(u64) -> bool) -> (Bits, Bits) {
+        let n = 1usize << k;
+        (
+            Bits::from_fn(k, n, |w, e| e >> w & 1 == 1),
+            Bits::from_fn(1, n, |_, e| rule(e as u64)),
+        )
+    }
+
+    /// The outcome's best parameters, checked to get exactly the number of
+    /// examples wrong that the outcome reports.
+    fn checked(sop: &SumOfProducts, fit: &CircuitFit, x: &Bits, y: &Bits) -> (Bits, u64) {
+        let (p, wrong) = match fit {
+            CircuitFit::Exact { parameters, .. } => (parameters.clone(), 0),
+            CircuitFit::Revisited { best, wrong, .. }
+            | CircuitFit::OutOfPasses { best, wrong, .. } => (best.clone(), *wrong),
+        };
+        let wide = Bits::from_fn(p.wires(), x.examples(), |w, _| p.get(w, 0));
+        let z = sop.forward(&(wide, x.clone())).unwrap();
+        assert_eq!(z.try_add(y).unwrap().count_ones(), wrong, "{fit:?}");
+        (p, wrong)
+    }
+
+    #[test]
+    fn the_sum_of_products_backward_pass_is_the_boolean_difference() {
+        // Parameters and inputs as one bundle of wires: 2 terms over 3
+        // inputs is 8 parameter wires and 3 input wires, 2,048 inputs.
+        let sop = SumOfProducts::new(3, 2).unwrap();
+        let bundle = Split {
+            at: sop.parameter_wires(),
+        }
+        .then(sop);
+        assert_eq!(boolean_difference_mismatch(&bundle, 11).unwrap(), None);
+    }
+
+    #[test]
+    fn learning_three_input_majority_from_its_truth_table_stops_with_an_honest_outcome() {
+        let (x, y) = truth(3, |e| e.count_ones() >= 2);
+        let sop = SumOfProducts::new(3, 3).unwrap();
+        // Starts from a fixed pseudo-random sequence (splitmix64), until one
+        // fits exactly: reverse derivative ascent can revisit a state, and a
+        // new start is the way out.
+        let mut state = 0x5eed_u64;
+        let mut next = || {
+            state = state.wrapping_add(0x9e37_79b9_7f4a_7c15);
+            let mut z = state;
+            z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+            z ^ (z >> 31)
+        };
+        let mut attempts = 0;
+        let (fit, p, wrong) = loop {
+            attempts += 1;
+            let bits = next();
+            let start = Bits::from_fn(sop.parameter_wires(), 1, |w, _| bits >> w & 1 == 1);
+            let fit = CircuitTraining::new(200)
+                .unwrap()
+                .aggregate(Aggregate::EachExample)
+                .run(&sop, start, &x, &y)
+                .unwrap();
+            let (p, wrong) = checked(&sop, &fit, &x, &y);
+            if wrong == 0 || attempts == 64 {
+                break (fit, p, wrong);
+            }
+        };
+        println!("attempts: {attempts}");
+        println!(
+            "majority: {fit:?}\nlearned {} ({wrong} of 8 wrong)",
+            sop.polynomial(&p)
+        );
+        // Not yet an exact fit (see the issue): every start revisits a
+        // state, and the outcome says so rather than looping.
+        if wrong > 0 {
+            assert!(matches!(fit, CircuitFit::Revisited { .. }), "{fit:?}");
+        }
+    }
+
+    #[test]
+    fn learning_the_parity_of_a_hidden_subset_of_eight_inputs() {
+        // Hidden subset: inputs 1, 4 and 6. One term per input, each with
+        // at most that input: the circuit is a choice of inputs to XOR.
+        let hidden = 0b0101_0010u64;
+        let (x, y) = truth(8, |e| (e & hidden).count_ones() % 2 == 1);
+        let sop = SumOfProducts::new(8, 8).unwrap();
+        // Start with term k selecting input k alone, all terms off.
+        let start = Bits::from_fn(sop.parameter_wires(), 1, |w, _| w >= 8 && (w - 8) % 9 == 0);
+        for aggregate in [Aggregate::Vote, Aggregate::Sum, Aggregate::EachExample] {
+            let fit = CircuitTraining::new(500)
+                .unwrap()
+                .aggregate(aggregate)
+                .run(&sop, start.clone(), &x, &y)
+                .unwrap();
+            let (p, wrong) = checked(&sop, &fit, &x, &y);
+            println!(
+                "parity, {aggregate:?}: {fit:?}\nlearned {} ({wrong} of 256 wrong)",
+                sop.polynomial(&p)
+            );
+        }
+    }
+
+    #[test]
+    fn learning_a_rule_of_twelve_inputs() {
+        // A shipping depot's rule of our own: a parcel goes on the early
+        // van if it is prepaid (input 0) and light (input 1), or if it is
+        // marked urgent (input 2) and the route is open (input 3); the
+        // other eight inputs (colour codes, shelf numbers) do not matter.
+        let rule = |e: u64| (e & 0b11 == 0b11) ^ (e & 0b1100 == 0b1100);
+        let (x, y) = truth(12, rule);
+        let sop = SumOfProducts::new(12, 2).unwrap();
+        let start = Bits::zeros(sop.parameter_wires(), 1);
+        let fit = CircuitTraining::new(300)
+            .unwrap()
+            .run(&sop, start, &x, &y)
+            .unwrap();
+        let (p, wrong) = checked(&sop, &fit, &x, &y);
+        println!(
+            "depot rule: {fit:?}\nlearned {} ({wrong} of 4096 wrong)",
+            sop.polynomial(&p)
+        );
+    }
+
+    #[test]
+    fn bad_settings_and_shapes_are_errors() {
+        assert!(CircuitTraining::new(0).is_err());
+        assert!(SumOfProducts::new(0, 2).is_err());
+        let sop = SumOfProducts::new(2, 1).unwrap();
+        let (x, y) = truth(2, |e| e == 3);
+        let wrong_start = Bits::zeros(sop.parameter_wires(), 2);
+        assert!(matches!(
+            CircuitTraining::new(5)
+                .unwrap()
+                .run(&sop, wrong_start, &x, &y),
+            Err(Error::ShapeMismatch { .. })
+        ));
+    }
+}
