@@ -722,9 +722,9 @@ impl Map<Bits> for PolynomialMap {
 /// polynomial map, so the reverse map is again made of these two, to any
 /// order.
 impl Reverse<Bits> for PolynomialMap {
-    type Rev = Then<Stack, PolynomialMap>;
+    type Rev = Then<JoinWires, PolynomialMap>;
     fn rev(&self) -> Self::Rev {
-        Then::new(Stack { at: self.inputs }, self.derivative_map())
+        Then::new(JoinWires { at: self.inputs }, self.derivative_map())
     }
 }
 
@@ -765,25 +765,25 @@ fn split(s: &Bits, at: usize) -> Result<(Bits, Bits)> {
 }
 
 /// `(x, y) -> x ++ y`: the wires of `x` (which must have `at` wires)
-/// followed by those of `y`. Linear; its reverse map is [`Split`].
+/// followed by those of `y`. Linear; its reverse map is [`SeparateWires`].
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-pub struct Stack {
+pub struct JoinWires {
     /// The wires of the first part.
     pub at: usize,
 }
 
 /// `s -> (the first at wires, the rest)`. Linear; its reverse map is
-/// [`Stack`].
+/// [`JoinWires`].
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-pub struct Split {
+pub struct SeparateWires {
     /// The wires of the first part.
     pub at: usize,
 }
 
-impl Compose for Stack {}
-impl Compose for Split {}
+impl Compose for JoinWires {}
+impl Compose for SeparateWires {}
 
-impl Map<(Bits, Bits)> for Stack {
+impl Map<(Bits, Bits)> for JoinWires {
     type Output = Bits;
     type Memo = ();
     fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, ())> {
@@ -801,14 +801,14 @@ impl Map<(Bits, Bits)> for Stack {
     }
 }
 
-impl Reverse<(Bits, Bits)> for Stack {
-    type Rev = Then<Snd, Split>;
+impl Reverse<(Bits, Bits)> for JoinWires {
+    type Rev = Then<Snd, SeparateWires>;
     fn rev(&self) -> Self::Rev {
-        Snd.then(Split { at: self.at })
+        Snd.then(SeparateWires { at: self.at })
     }
 }
 
-impl Map<Bits> for Split {
+impl Map<Bits> for SeparateWires {
     type Output = (Bits, Bits);
     type Memo = ();
     fn forward_memo(&self, s: &Bits) -> Result<((Bits, Bits), ())> {
@@ -819,10 +819,10 @@ impl Map<Bits> for Split {
     }
 }
 
-impl Reverse<Bits> for Split {
-    type Rev = Then<Snd, Stack>;
+impl Reverse<Bits> for SeparateWires {
+    type Rev = Then<Snd, JoinWires>;
     fn rev(&self) -> Self::Rev {
-        Snd.then(Stack { at: self.at })
+        Snd.then(JoinWires { at: self.at })
     }
 }
 
@@ -848,10 +848,10 @@ pub struct DifferenceMismatch {
 /// each. Returns the first mismatch, in order of input then variable.
 ///
 /// ```
-/// use revdiff::bits::{boolean_difference_mismatch, AndGate, Split};
+/// use revdiff::bits::{boolean_difference_mismatch, AndGate, SeparateWires};
 /// use revdiff::Compose;
 ///
-/// let and = Split { at: 1 }.then(AndGate); // two wires -> one
+/// let and = SeparateWires { at: 1 }.then(AndGate); // two wires -> one
 /// assert_eq!(boolean_difference_mismatch(&and, 2).unwrap(), None);
 /// ```
 pub fn boolean_difference_mismatch<F>(f: &F, inputs: usize) -> Result<Option<DifferenceMismatch>>

@@ -3,8 +3,8 @@
 //! gates caught, and algebraic normal forms.
 
 use revdiff::bits::{
-    AndGate, Bit, Bits, MuxGate, NotGate, OrGate, Polynomial, PolynomialMap, Split, XorGate,
-    boolean_difference_mismatch,
+    AndGate, Bit, Bits, MuxGate, NotGate, OrGate, Polynomial, PolynomialMap, SeparateWires,
+    XorGate, boolean_difference_mismatch,
 };
 use revdiff::laws::{Exhaustive, FiniteDomain};
 use revdiff::*;
@@ -102,7 +102,7 @@ fn gates_and_composites_pass_every_law_exactly_at_every_case() {
 
 #[test]
 fn backward_passes_are_the_boolean_difference() {
-    let two = Split { at: 1 };
+    let two = SeparateWires { at: 1 };
     assert_eq!(
         boolean_difference_mismatch(&two.then(XorGate), 2).unwrap(),
         None
@@ -116,7 +116,7 @@ fn backward_passes_are_the_boolean_difference() {
         None
     );
     assert_eq!(boolean_difference_mismatch(&NotGate, 1).unwrap(), None);
-    let three = Split { at: 1 }.then(Id.alongside(Split { at: 1 }));
+    let three = SeparateWires { at: 1 }.then(Id.alongside(SeparateWires { at: 1 }));
     assert_eq!(
         boolean_difference_mismatch(&three.then(MuxGate), 3).unwrap(),
         None
@@ -159,7 +159,7 @@ impl Map<(Bits, Bits)> for Gate {
 
 #[test]
 fn three_wrong_gate_derivatives_are_caught_at_the_first_failing_case() {
-    let two = Split { at: 1 };
+    let two = SeparateWires { at: 1 };
     // AND with its partial derivatives swapped: (x dz, y dz).
     let swapped = Gate {
         value: |x, y| x & y,
@@ -298,7 +298,7 @@ mod learning {
         // Parameters and inputs as one bundle of wires: 2 terms over 3
         // inputs is 8 parameter wires and 3 input wires, 2,048 inputs.
         let sop = SumOfProducts::new(3, 2).unwrap();
-        let bundle = Split {
+        let bundle = SeparateWires {
             at: sop.parameter_wires(),
         }
         .then(sop);
