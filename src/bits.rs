@@ -1221,7 +1221,7 @@ impl CircuitTraining {
                     passes: pass,
                 });
             }
-            if self.aggregate == Aggregate::EachExample {
+            let next = if self.aggregate == Aggregate::EachExample {
                 let mut next = p.clone();
                 for e in 0..examples {
                     let one = |b: &Bits| Bits::from_fn(b.wires, 1, |w, _| b.get(w, e));
@@ -1230,39 +1230,33 @@ impl CircuitTraining {
                     let (dp, _) = model.backward_memo(&m1, &z1.try_add(&y1)?)?;
                     next.try_add_assign(&dp)?;
                 }
-                if !seen.insert(next.clone()) {
-                    return Ok(CircuitFit::Revisited {
-                        best: best.1,
-                        wrong: best.0,
-                        passes: pass,
-                    });
+                next
+            } else {
+                let (requests, _) = model.backward_memo(&memo, &change)?;
+                let asked: Vec<u64> = (0..p.wires)
+                    .map(|w| {
+                        requests
+                            .wire(w)
+                            .iter()
+                            .map(|x| u64::from(x.count_ones()))
+                            .sum()
+                    })
+                    .collect();
+                let most = asked.iter().copied().max().unwrap_or(0);
+                let mut next = p.clone();
+                for (w, &a) in asked.iter().enumerate() {
+                    let flip = match self.aggregate {
+                        Aggregate::Sum | Aggregate::EachExample => a % 2 == 1,
+                        // The most asked-for flip only, and only if a
+                        // majority of the wrong examples ask for it.
+                        Aggregate::Vote => a == most && 2 * a > wrong,
+                    };
+                    if flip {
+                        next.set(w, 0, !p.get(w, 0));
+                    }
                 }
-                p = next;
-                continue;
-            }
-            let (requests, _) = model.backward_memo(&memo, &change)?;
-            let asked: Vec<u64> = (0..p.wires)
-                .map(|w| {
-                    requests
-                        .wire(w)
-                        .iter()
-                        .map(|x| u64::from(x.count_ones()))
-                        .sum()
-                })
-                .collect();
-            let most = asked.iter().copied().max().unwrap_or(0);
-            let mut next = p.clone();
-            for (w, &a) in asked.iter().enumerate() {
-                let flip = match self.aggregate {
-                    Aggregate::Sum | Aggregate::EachExample => a % 2 == 1,
-                    // The most asked-for flip only, and only if a majority
-                    // of the wrong examples ask for it.
-                    Aggregate::Vote => a == most && 2 * a > wrong,
-                };
-                if flip {
-                    next.set(w, 0, !p.get(w, 0));
-                }
-            }
+                next
+            };
             if !seen.insert(next.clone()) {
                 return Ok(CircuitFit::Revisited {
                     best: best.1,

@@ -6,6 +6,9 @@ use ndarray::{Array1, array};
 use revdiff::laws::strategies::{log_uniform, matrices, nonzero, vectors};
 use revdiff::laws::{Exhaustive, FiniteDomain, grid};
 use revdiff::*;
+// The library's space of one bit (XOR as addition), for the exhaustive
+// checker's extension point.
+use revdiff::bits::Bit;
 
 fn v(n: usize) -> impl proptest::strategy::Strategy<Value = Array1<f64>> + Clone {
     vectors(n, -2.0, 2.0).unwrap()
@@ -178,40 +181,6 @@ fn zero_cases_is_an_invalid_setting() {
         matches!(err, Error::InvalidSetting { name: "cases", .. }),
         "{err}"
     );
-}
-
-/// A space of one bit, with XOR as addition, defined here the way a Boolean
-/// extension would: the exhaustive checker takes it with no change.
-#[derive(Clone, Copy, Debug, PartialEq)]
-struct Bit(bool);
-
-impl Space for Bit {
-    type Shape = ();
-    fn shape(&self) {}
-    fn zero_of(_: &()) -> Self {
-        Bit(false)
-    }
-    fn try_add(&self, other: &Self) -> Result<Self> {
-        Ok(Bit(self.0 ^ other.0))
-    }
-    fn shape_string(&self) -> String {
-        "bit".to_string()
-    }
-}
-
-impl laws::ExactScalar for Bit {
-    fn zero() -> Self {
-        Bit(false)
-    }
-    fn plus(&self, other: &Self) -> Self {
-        Bit(self.0 ^ other.0)
-    }
-}
-
-impl laws::ExactPairing<Bit> for Bit {
-    fn pair_exactly(&self, other: &Self) -> Result<Bit> {
-        Ok(Bit(self.0 & other.0))
-    }
 }
 
 /// The AND gate `(a, b) -> a b` over Z2, whose reverse derivative is
