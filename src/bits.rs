@@ -414,7 +414,7 @@ impl Map<MuxInput> for MuxGate {
     fn forward_memo(&self, input: &MuxInput) -> Result<(Bits, MuxInput)> {
         let (s, (a, b)) = input;
         s.same_shape(a, "multiplexer, its selector against its first input")?;
-        let chosen = a.zip(b, "multiplexer inputs", |_, _| 0)?;
+        a.same_shape(b, "multiplexer inputs")?;
         let words = s
             .words
             .iter()
@@ -422,7 +422,12 @@ impl Map<MuxInput> for MuxGate {
             .zip(&b.words)
             .map(|((s, a), b)| (a & !s) | (b & s))
             .collect();
-        Ok((Bits { words, ..chosen }, input.clone()))
+        let chosen = Bits {
+            wires: a.wires,
+            examples: a.examples,
+            words,
+        };
+        Ok((chosen, input.clone()))
     }
     fn backward_memo(&self, (s, (a, b)): &MuxInput, dz: &Bits) -> Result<MuxInput> {
         let op = "the output change of a multiplexer";

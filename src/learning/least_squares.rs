@@ -714,14 +714,7 @@ impl LeastSquares {
         let real = |v: f64| R::from(v).expect("settings fit every real type");
         let mut p = start.coordinates();
         let n = p.len();
-        let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
-        check_pair(&r, &j, n, "at the start")?;
-        if r.len() < n {
-            return Err(Error::Underdetermined {
-                residuals: r.len(),
-                parameters: n,
-            });
-        }
+        let (mut r, mut j) = at_the_start(residuals, &start, n)?;
         let mut rss = r.dot(&r);
         let mut evaluations = 1;
         let mut iterations = 0;
@@ -843,14 +836,7 @@ impl LeastSquares {
         let real = |v: f64| R::from(v).expect("settings fit every real type");
         let mut p = Array1::from(start.coordinates());
         let n = p.len();
-        let (mut r, mut j) = residuals.residuals_and_jacobian(&start)?;
-        check_pair(&r, &j, n, "at the start")?;
-        if r.len() < n {
-            return Err(Error::Underdetermined {
-                residuals: r.len(),
-                parameters: n,
-            });
-        }
+        let (mut r, mut j) = at_the_start(residuals, &start, n)?;
         let mut evaluations = 1;
         let mut iterations = 0;
         let mut rss = r.dot(&r);
@@ -1109,6 +1095,25 @@ fn same_length<R>(trial: &Array1<R>, current: &Array1<R>) -> Result<()> {
         ));
     }
     Ok(())
+}
+
+/// The residuals and Jacobian at the start, checked: shapes that fit, and
+/// at least as many residuals as parameters.
+fn at_the_start<R, P, F>(residuals: &F, start: &P, n: usize) -> Result<(Array1<R>, Array2<R>)>
+where
+    R: Real,
+    F: Residuals<P, Real = R>,
+    P: Euclidean<R>,
+{
+    let (r, j) = residuals.residuals_and_jacobian(start)?;
+    check_pair(&r, &j, n, "at the start")?;
+    if r.len() < n {
+        return Err(Error::Underdetermined {
+            residuals: r.len(),
+            parameters: n,
+        });
+    }
+    Ok((r, j))
 }
 
 /// Residuals and Jacobian finite, and the Jacobian shaped `m x n`.
