@@ -331,6 +331,65 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
 
 /// Runs this program again with one thread per matrix product (so that the
 /// shards, not the products, use the cores) and reads its answer.
+/// Hessian-vector product against one backward pass of the same map.
+fn hessian_ratio<A, F>(rounds: usize, reps: usize, f: &F, x: &A, v: &A) -> f64
+where
+    A: revdiff::Space,
+    F: revdiff::Reverse<A, Output = f64>,
+{
+    let (hv, back) = race(
+        rounds,
+        reps,
+        || {
+            black_box(revdiff::hessian_vector(f, black_box(x), v).unwrap());
+        },
+        || {
+            black_box(f.backward(black_box(x), &1.0).unwrap());
+        },
+    );
+    hv / back
+}
+
+fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
+    let s8 = double(double(double(Sin)));
+    let s32 = double(double(s8));
+    let s64 = double(s32);
+    let s128 = double(s64);
+    let s256 = double(s128);
+    let s10 = s8.then(Sin).then(Sin);
+    let s100 = s64.then(s32).then(double(double(Sin)));
+    let s1000 = double(s256)
+        .then(s256)
+        .then(s128)
+        .then(s64)
+        .then(s32)
+        .then(s8);
+    let (x, v) = (0.7_f64, 1.0_f64);
+    for (n, ratio) in [
+        (10, hessian_ratio(rounds, 2000, &s10, &x, &v)),
+        (100, hessian_ratio(rounds, 100, &s100, &x, &v)),
+        (1000, hessian_ratio(rounds, 3, &s1000, &x, &v)),
+    ] {
+        lines.push(at_most(
+            format!("Hessian-vector product / backward, static scalar chain, n = {n}"),
+            ratio,
+            4.0,
+            "<= 4",
+        ));
+    }
+    // The network on one row, summed to a scalar: the Hessian in the
+    // parameters and the input together, along a direction of their shape.
+    let model = library_model().then(revdiff::ElementReduction::sum());
+    let input: (Params<f64>, Array1<f64>) = (start::<f64>(), Array1::from_elem(WIDTHS[0], 0.3));
+    let direction = (start::<f64>(), Array1::from_elem(WIDTHS[0], -0.1));
+    lines.push(at_most(
+        "Hessian-vector product / backward, the network on one row",
+        hessian_ratio(rounds, 3, &model, &input, &direction),
+        4.0,
+        "<= 4",
+    ));
+}
+
 fn sharded_speed_up(rounds: usize) -> f64 {
     let exe = std::env::current_exe().expect("the running program has a path");
     let out = std::process::Command::new(exe)
@@ -413,6 +472,7 @@ fn main() {
     training_lines::<f64>("f64", rounds, epochs, &mut lines);
     training_lines::<f32>("f32", rounds, epochs, &mut lines);
     chain_lines(rounds, &mut lines);
+    second_order_lines(rounds, &mut lines);
     let speed_up = sharded_speed_up(rounds);
     lines.push(Line {
         measure: "data-parallel speed-up on 2 cores, batch 1,024 (2 shards against 1)".into(),

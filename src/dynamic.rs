@@ -14,6 +14,7 @@
 
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
+use crate::memory::HeldBytes;
 use crate::primitives::Affine;
 use crate::retention::{PassCost, Retention};
 use crate::space::{Real, Space, shape_tuple};
@@ -24,26 +25,53 @@ use std::sync::Arc;
 
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
-    fn erased_forward_memo(&self, x: &A) -> Result<(B, Box<dyn Any>)>;
+    fn erased_forward_memo(&self, x: &A) -> Result<(B, BoxedMemo)>;
     fn erased_backward(&self, memo: &dyn Any, dy: &B) -> Result<A>;
 }
 
 impl<A: Space, F: Map<A>> ErasedMap<A, F::Output> for F
 where
-    F::Memo: 'static,
+    F::Memo: HeldBytes + 'static,
 {
     fn erased_forward(&self, x: &A) -> Result<F::Output> {
         Map::forward(self, x)
     }
-    fn erased_forward_memo(&self, x: &A) -> Result<(F::Output, Box<dyn Any>)> {
+    fn erased_forward_memo(&self, x: &A) -> Result<(F::Output, BoxedMemo)> {
         let (y, r) = Map::forward_memo(self, x)?;
-        Ok((y, Box::new(r)))
+        // Measured once here, where the type is known.
+        let bytes = r.held_bytes();
+        Ok((
+            y,
+            BoxedMemo {
+                memo: Box::new(r),
+                bytes,
+            },
+        ))
     }
     fn erased_backward(&self, memo: &dyn Any, dy: &F::Output) -> Result<A> {
         let r = memo.downcast_ref::<F::Memo>().ok_or(Error::ForeignMemo {
             operation: "backward pass of a boxed map",
         })?;
         Map::backward_memo(self, r, dy)
+    }
+}
+
+/// What a [`Boxed`] map's forward pass keeps: the erased map's own memo,
+/// and its size in bytes ([`HeldBytes`]), measured when it was made.
+pub struct BoxedMemo {
+    memo: Box<dyn Any>,
+    bytes: usize,
+}
+
+impl fmt::Debug for BoxedMemo {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "BoxedMemo({} bytes)", self.bytes)
+    }
+}
+
+impl HeldBytes for BoxedMemo {
+    fn held_bytes(&self) -> usize {
+        self.bytes
     }
 }
 
@@ -108,7 +136,7 @@ impl<A: Space, B: Space> Boxed<A, B> {
     pub fn new<F>(map: F) -> Result<Self>
     where
         F: Map<A, Output = B> + Send + Sync + 'static,
-        F::Memo: 'static,
+        F::Memo: HeldBytes + 'static,
     {
         let depth = map.boxed_depth() + 1;
         if depth > Self::MAX_DEPTH {
@@ -125,7 +153,7 @@ impl<A: Space, B: Space> Boxed<A, B> {
     pub(crate) fn unchecked<F>(map: F) -> Self
     where
         F: Map<A, Output = B> + Send + Sync + 'static,
-        F::Memo: 'static,
+        F::Memo: HeldBytes + 'static,
     {
         Boxed {
             depth: map.boxed_depth() + 1,
@@ -148,15 +176,15 @@ impl<A, B> Compose for Boxed<A, B> {
 
 impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
     type Output = B;
-    type Memo = Box<dyn Any>;
+    type Memo = BoxedMemo;
     fn forward(&self, x: &A) -> Result<B> {
         self.inner.erased_forward(x)
     }
-    fn forward_memo(&self, x: &A) -> Result<(B, Box<dyn Any>)> {
+    fn forward_memo(&self, x: &A) -> Result<(B, BoxedMemo)> {
         self.inner.erased_forward_memo(x)
     }
-    fn backward_memo(&self, memo: &Box<dyn Any>, dy: &B) -> Result<A> {
-        self.inner.erased_backward(memo.as_ref(), dy)
+    fn backward_memo(&self, memo: &BoxedMemo, dy: &B) -> Result<A> {
+        self.inner.erased_backward(memo.memo.as_ref(), dy)
     }
 }
 
@@ -240,10 +268,19 @@ pub struct Chain<T> {
 /// What a [`Chain`]'s forward pass keeps, by its [`Retention`].
 pub enum ChainMemo<T> {
     /// Every stage's memo.
-    Stages(Vec<Box<dyn Any>>),
+    Stages(Vec<BoxedMemo>),
     /// Stored stage inputs (the chain's input first), for the strategies
     /// that recompute.
     Checkpoints(Vec<ArrayD<T>>),
+}
+
+impl<T> HeldBytes for ChainMemo<T> {
+    fn held_bytes(&self) -> usize {
+        match self {
+            ChainMemo::Stages(memos) => memos.held_bytes(),
+            ChainMemo::Checkpoints(states) => states.held_bytes(),
+        }
+    }
 }
 
 impl<T> fmt::Debug for ChainMemo<T> {
@@ -413,63 +450,63 @@ impl<T: Real> Chain<T> {
             ));
         }
         let n = self.stages.len();
-        let bytes = |a: &ArrayD<T>| a.len() * std::mem::size_of::<T>();
-        match (memo, self.retention) {
+        let mut held = Held::default();
+        let d = match (memo, self.retention) {
             (ChainMemo::Stages(memos), _) => {
                 if memos.len() != n {
                     return Err(Error::ForeignMemo {
                         operation: "backward pass of a chain",
                     });
                 }
-                cost.peak_states = n;
+                held.keep_memos(memos);
                 self.backward_through(0, memos, dy.clone())
             }
             (ChainMemo::Checkpoints(states), Retention::EveryKth(k)) if !states.is_empty() => {
-                cost.peak_checkpoint_bytes = states.iter().map(bytes).sum();
+                for state in states {
+                    held.store(state.held_bytes());
+                }
                 let mut d = dy.clone();
                 for (segment, start) in states.iter().enumerate().rev() {
                     let first = segment * k;
                     let memos = self.record(first, (first + k).min(n), start, cost)?;
-                    cost.peak_states = cost.peak_states.max(states.len() + memos.len());
+                    held.keep_memos(&memos);
                     d = self.backward_through(first, &memos, d)?;
+                    held.free_memos(&memos);
                 }
                 Ok(d)
             }
             (ChainMemo::Checkpoints(states), Retention::Binomial { states: slots })
                 if states.len() == 1 =>
             {
+                held.store(states[0].held_bytes());
                 if n == 0 {
-                    return Ok(dy.clone());
+                    Ok(dy.clone())
+                } else {
+                    self.reverse_range(0, n, &states[0], slots, dy.clone(), cost, &mut held)
                 }
-                let mut held = Held {
-                    now: 1,
-                    bytes: bytes(&states[0]),
-                    peak: 1,
-                    peak_bytes: bytes(&states[0]),
-                };
-                let d = self.reverse_range(0, n, &states[0], slots, dy.clone(), cost, &mut held)?;
-                // One memo is alive at a time, beside the stored states.
-                cost.peak_states = held.peak + 1;
-                cost.peak_checkpoint_bytes = held.peak_bytes;
-                Ok(d)
             }
             (ChainMemo::Checkpoints(states), _) if states.len() == 1 => {
-                cost.peak_checkpoint_bytes = bytes(&states[0]);
+                held.store(states[0].held_bytes());
                 let memos = self.record(0, n, &states[0], cost)?;
-                cost.peak_states = 1 + memos.len();
+                held.keep_memos(&memos);
                 self.backward_through(0, &memos, dy.clone())
             }
             _ => Err(Error::ForeignMemo {
                 operation: "backward pass of a chain",
             }),
-        }
+        }?;
+        cost.peak_states = held.peak_states;
+        cost.peak_checkpoint_bytes = held.peak_checkpoint_bytes;
+        cost.peak_memo_bytes = held.peak_memo_bytes;
+        cost.peak_bytes = held.peak_bytes;
+        Ok(d)
     }
 
     /// Backward through stages `first..first + memos.len()`.
     fn backward_through(
         &self,
         first: usize,
-        memos: &[Box<dyn Any>],
+        memos: &[BoxedMemo],
         mut d: ArrayD<T>,
     ) -> Result<ArrayD<T>> {
         for (offset, r) in memos.iter().enumerate().rev() {
@@ -485,7 +522,7 @@ impl<T: Real> Chain<T> {
         to: usize,
         state: &ArrayD<T>,
         cost: &mut PassCost,
-    ) -> Result<Vec<Box<dyn Any>>> {
+    ) -> Result<Vec<BoxedMemo>> {
         let mut memos = Vec::with_capacity(to - from);
         let mut y = state.clone();
         for k in from..to {
@@ -531,7 +568,10 @@ impl<T: Real> Chain<T> {
         let n = b - a;
         if n == 1 {
             let memos = self.record(a, b, state, cost)?;
-            return self.backward_through(a, &memos, dy);
+            held.keep_memos(&memos);
+            let d = self.backward_through(a, &memos, dy);
+            held.free_memos(&memos);
+            return d;
         }
         if slots == 1 {
             // No state to spare: reach each stage from `state` again.
@@ -539,14 +579,16 @@ impl<T: Real> Chain<T> {
             for k in (a..b).rev() {
                 let input = self.advance(a, k, state, cost)?;
                 let memos = self.record(k, k + 1, &input, cost)?;
+                held.keep_memos(&memos);
                 d = self.backward_through(k, &memos, d)?;
+                held.free_memos(&memos);
             }
             return Ok(d);
         }
         let j = crate::retention::best_split(n, slots);
         let stored = self.advance(a, a + j, state, cost)?;
-        let size = stored.len() * std::mem::size_of::<T>();
-        held.take(size);
+        let size = stored.held_bytes();
+        held.store(size);
         let d = self.reverse_range(a + j, b, &stored, slots - 1, dy, cost, held)?;
         drop(stored);
         held.release(size);
@@ -554,10 +596,10 @@ impl<T: Real> Chain<T> {
     }
     /// Appends a stage after checking that it accepts the current output
     /// shape. On refusal the chain is unchanged.
-    pub fn push<F>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
+    pub fn push<F, M>(&mut self, name: &str, map: F, shape: StageShape) -> Result<()>
     where
-        F: Map<ArrayD<T>, Output = ArrayD<T>> + Send + Sync + 'static,
-        F::Memo: 'static,
+        F: Map<ArrayD<T>, Output = ArrayD<T>, Memo = M> + Send + Sync + 'static,
+        M: HeldBytes + 'static,
     {
         let output = match &shape {
             StageShape::Preserving => self.output_shape.clone(),
@@ -584,10 +626,10 @@ impl<T: Real> Chain<T> {
     }
 
     /// Appends an elementwise stage (any map that keeps shapes).
-    pub fn push_elementwise<F>(&mut self, name: &str, map: F) -> Result<()>
+    pub fn push_elementwise<F, M>(&mut self, name: &str, map: F) -> Result<()>
     where
-        F: Map<ArrayD<T>, Output = ArrayD<T>> + Send + Sync + 'static,
-        F::Memo: 'static,
+        F: Map<ArrayD<T>, Output = ArrayD<T>, Memo = M> + Send + Sync + 'static,
+        M: HeldBytes + 'static,
     {
         self.push(name, map, StageShape::Preserving)
     }
@@ -713,24 +755,44 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     }
 }
 
-/// The states a binomial schedule holds, and their peak.
+/// What a backward pass holds: stored stage inputs (checkpoints) and stage
+/// memos, counted and in bytes, with their peaks. Transients (the value
+/// being advanced, the change being passed back) are not counted.
+#[derive(Default)]
 struct Held {
-    now: usize,
-    bytes: usize,
-    peak: usize,
+    states: usize,
+    checkpoint_bytes: usize,
+    memo_bytes: usize,
+    peak_states: usize,
+    peak_checkpoint_bytes: usize,
+    peak_memo_bytes: usize,
     peak_bytes: usize,
 }
 
 impl Held {
-    fn take(&mut self, bytes: usize) {
-        self.now += 1;
-        self.bytes += bytes;
-        self.peak = self.peak.max(self.now);
-        self.peak_bytes = self.peak_bytes.max(self.bytes);
+    fn update_peaks(&mut self) {
+        self.peak_states = self.peak_states.max(self.states);
+        self.peak_checkpoint_bytes = self.peak_checkpoint_bytes.max(self.checkpoint_bytes);
+        self.peak_memo_bytes = self.peak_memo_bytes.max(self.memo_bytes);
+        self.peak_bytes = self.peak_bytes.max(self.checkpoint_bytes + self.memo_bytes);
+    }
+    fn store(&mut self, bytes: usize) {
+        self.states += 1;
+        self.checkpoint_bytes += bytes;
+        self.update_peaks();
     }
     fn release(&mut self, bytes: usize) {
-        self.now -= 1;
-        self.bytes -= bytes;
+        self.states -= 1;
+        self.checkpoint_bytes -= bytes;
+    }
+    fn keep_memos(&mut self, memos: &[BoxedMemo]) {
+        self.states += memos.len();
+        self.memo_bytes += memos.held_bytes();
+        self.update_peaks();
+    }
+    fn free_memos(&mut self, memos: &[BoxedMemo]) {
+        self.states -= memos.len();
+        self.memo_bytes -= memos.held_bytes();
     }
 }
 

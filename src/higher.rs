@@ -42,7 +42,9 @@ pub fn forward_derivative<A: Space, F: Reverse<A>>(f: &F, x: &A, v: &A) -> Resul
         )
     })?;
     let zero = f.forward(x)?.zero_like();
-    let (_, dy) = second_reverse(f).forward(&((x.clone(), zero), v.clone()))?;
+    // R[R[f]]((x, 0), v) is the reverse derivative of R[f] at (x, 0) with
+    // change v: one backward pass of R[f], cheaper than evaluating R[R[f]].
+    let (_, dy) = f.rev().backward(&(x.clone(), zero), v)?;
     Ok(dy)
 }
 
@@ -62,7 +64,8 @@ where
     R: Real + Space,
     F: Reverse<A, Output = R>,
 {
-    let (hv, _) = second_reverse(f).forward(&((x.clone(), R::one()), v.clone()))?;
+    // As in `forward_derivative`: a backward pass of R[f] at (x, 1).
+    let (hv, _) = f.rev().backward(&(x.clone(), R::one()), v)?;
     Ok(hv)
 }
 
@@ -118,11 +121,14 @@ where
     F::Output: Euclidean<R>,
 {
     let zero = f.forward(x)?.zero_like();
-    let rr = second_reverse(f);
     let (m, n) = (zero.dimension(), x.dimension());
+    // Columns are backward passes of R[f] at (x, 0), as in
+    // `forward_derivative`; one forward pass of R[f] serves them all.
+    let rev = f.rev();
+    let (_, memo) = rev.forward_memo(&(x.clone(), zero))?;
     let mut j = Array2::zeros((m, n));
     for k in 0..n {
-        let (_, col) = rr.forward(&((x.clone(), zero.clone()), basis(x, k)?))?;
+        let (_, col) = rev.backward_memo(&memo, &basis(x, k)?)?;
         let col = col.coordinates();
         check_len(m, col.len())?;
         j.column_mut(k).assign(&ndarray::ArrayView1::from(&col[..]));

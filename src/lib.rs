@@ -23,6 +23,7 @@
 //! - [`formula`]: maps written with arithmetic operators, for models.
 //! - [`higher`]: forward derivatives, Hessian-vector products, Jacobians.
 //! - [`dynamic`]: type-erased maps and run-time chains.
+//! - [`retention`] and [`memory`]: what a forward pass keeps for the backward pass, and its size in bytes.
 //! - [`laws`]: checkers that put any map through the laws of reverse derivatives.
 //! - [`learning`]: parametrised maps, losses, optimisers, training and least squares.
 //!
@@ -56,6 +57,7 @@ pub mod higher;
 pub mod laws;
 pub mod learning;
 pub mod map;
+pub mod memory;
 pub mod primitives;
 pub mod retention;
 pub mod space;
@@ -68,7 +70,7 @@ pub use ndarray;
 pub use proptest;
 
 pub use combinators::*;
-pub use dynamic::{Boxed, Chain, ChainMemo, StageShape};
+pub use dynamic::{Boxed, BoxedMemo, Chain, ChainMemo, StageShape};
 pub use error::{Error, Result};
 pub use formula::{Formula, as_formula, input, input_at, parameter};
 pub use higher::{
@@ -78,6 +80,7 @@ pub use higher::{
 pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use learning::*;
 pub use map::{Compose, Linear, Map, Reverse};
+pub use memory::{HeldBytes, kept_bytes};
 pub use primitives::*;
 pub use retention::{
     PassCost, Recomputed, Retention, RetentionComparison, RetentionRow, binomial_advances,

@@ -177,11 +177,16 @@ pub struct PassCost {
     /// Stage forward passes run again keeping their memo, in the backward
     /// pass (0 when every memo was kept).
     pub recorded: u64,
-    /// The most arrays held at once: stored stage inputs and stage memos.
+    /// The most values held at once: stored stage inputs and stage memos.
     pub peak_states: usize,
-    /// The bytes of the stored stage inputs at their peak (memos are the
-    /// stages' own and are counted in `peak_states` only).
+    /// The bytes of the stored stage inputs at their peak.
     pub peak_checkpoint_bytes: usize,
+    /// The bytes of the stages' memos at their peak ([`HeldBytes`](crate::HeldBytes)).
+    pub peak_memo_bytes: usize,
+    /// The bytes of stored inputs and memos together at their peak: what
+    /// the strategy holds beyond a pass's transients (the value being
+    /// advanced and the change being passed back, one array each).
+    pub peak_bytes: usize,
 }
 
 /// `C(s + r, s)`, saturating.
@@ -340,14 +345,16 @@ impl std::fmt::Display for RetentionComparison {
         let base = self.rows.first().map(|r| r.time.as_secs_f64());
         writeln!(
             f,
-            "{:<22} {:>12} {:>9} {:>9} {:>9} {:>7} {:>16}",
+            "{:<22} {:>12} {:>9} {:>9} {:>9} {:>7} {:>16} {:>12} {:>12}",
             "strategy",
             "per gradient",
             "vs first",
             "advances",
             "recorded",
             "states",
-            "checkpoint bytes"
+            "checkpoint bytes",
+            "memo bytes",
+            "peak bytes"
         )?;
         for row in &self.rows {
             let name = row.retention.to_string();
@@ -356,14 +363,16 @@ impl std::fmt::Display for RetentionComparison {
                 .map_or(f64::NAN, |b| row.time.as_secs_f64() / b);
             writeln!(
                 f,
-                "{:<22} {:>12} {:>9.2} {:>9} {:>9} {:>7} {:>16}",
+                "{:<22} {:>12} {:>9.2} {:>9} {:>9} {:>7} {:>16} {:>12} {:>12}",
                 name,
                 format!("{:.1?}", row.time),
                 ratio,
                 row.cost.advances,
                 row.cost.recorded,
                 row.cost.peak_states,
-                row.cost.peak_checkpoint_bytes
+                row.cost.peak_checkpoint_bytes,
+                row.cost.peak_memo_bytes,
+                row.cost.peak_bytes
             )?;
         }
         Ok(())

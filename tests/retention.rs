@@ -57,6 +57,18 @@ fn every_retention_gives_the_same_gradient_and_reports_its_cost() {
         let mut c = chain(n);
         let (kept, all) = c.gradient_and_cost(&x, &dy).unwrap();
         assert_eq!((all.advances, all.recorded, all.peak_states), (0, 0, n));
+        // Every stage keeps one array of three values (tanh its output,
+        // sin its input) or, affine, its input and its 3 x 3 weights.
+        let memo_bytes = |stages: std::ops::Range<usize>| -> usize {
+            stages
+                .map(|k| if k % 3 == 1 { 12 * 8 } else { 3 * 8 })
+                .sum()
+        };
+        assert_eq!(all.peak_memo_bytes, memo_bytes(0..n));
+        assert_eq!(
+            (all.peak_checkpoint_bytes, all.peak_bytes),
+            (0, memo_bytes(0..n))
+        );
         // The same as the plain backward pass.
         assert_eq!(kept, c.backward(&x, &dy).unwrap());
 
@@ -68,6 +80,8 @@ fn every_retention_gives_the_same_gradient_and_reports_its_cost() {
             (0, n as u64, n + 1)
         );
         assert_eq!(cost.peak_checkpoint_bytes, 3 * 8);
+        assert_eq!(cost.peak_memo_bytes, memo_bytes(0..n));
+        assert_eq!(cost.peak_bytes, 3 * 8 + memo_bytes(0..n));
 
         for k in [1usize, 3, 4] {
             c.retaining(Retention::EveryKth(k)).unwrap();
@@ -77,6 +91,13 @@ fn every_retention_gives_the_same_gradient_and_reports_its_cost() {
             let segments = n.div_ceil(k);
             assert_eq!(cost.peak_states, segments + k.min(n));
             assert_eq!(cost.peak_checkpoint_bytes, segments * 3 * 8);
+            // The memos of one segment at a time: the largest segment's.
+            let largest = (0..segments)
+                .map(|j| memo_bytes(j * k..((j + 1) * k).min(n)))
+                .max()
+                .unwrap();
+            assert_eq!(cost.peak_memo_bytes, largest);
+            assert_eq!(cost.peak_bytes, segments * 3 * 8 + largest);
         }
 
         for states in [1usize, 2, 3, 5] {
@@ -91,6 +112,10 @@ fn every_retention_gives_the_same_gradient_and_reports_its_cost() {
             assert_eq!(cost.recorded, n as u64);
             assert!(cost.peak_states <= states + 1, "{cost:?}");
             assert!(cost.peak_checkpoint_bytes <= states * 3 * 8);
+            // One stage's memo at a time.
+            let largest_stage = (0..n).map(|k| memo_bytes(k..k + 1)).max().unwrap();
+            assert_eq!(cost.peak_memo_bytes, largest_stage);
+            assert!(cost.peak_bytes <= cost.peak_checkpoint_bytes + cost.peak_memo_bytes);
         }
     }
 }

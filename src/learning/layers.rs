@@ -1,15 +1,15 @@
 //! Trainable models assembled at run time: depth, widths and activations
 //! read from a configuration rather than written as types.
 
-use crate::dynamic::Boxed;
+use crate::dynamic::{Boxed, BoxedMemo};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
+use crate::memory::HeldBytes;
 use crate::space::{Real, shape_tuple};
 use ndarray::linalg::general_mat_mul;
 use ndarray::{Array1, Array2, Axis};
 use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
-use std::any::Any;
 use std::fmt;
 
 /// The parameters of [`Layers`]: one `(weights, bias)` pair per affine
@@ -141,10 +141,10 @@ impl<T: Real> Layers<T> {
     /// Appends a parameter-free map on the batch that keeps its shape (an
     /// elementwise map such as [`Tanh`](crate::Tanh)); `name` shows in
     /// messages and in the model's `Display`.
-    pub fn elementwise<F>(mut self, name: &str, map: F) -> Self
+    pub fn elementwise<F, M>(mut self, name: &str, map: F) -> Self
     where
-        F: Map<Array2<T>, Output = Array2<T>> + Send + Sync + 'static,
-        F::Memo: 'static,
+        F: Map<Array2<T>, Output = Array2<T>, Memo = M> + Send + Sync + 'static,
+        M: HeldBytes + 'static,
     {
         self.stages.push(Stage::Elementwise {
             name: name.to_string(),
@@ -234,7 +234,16 @@ pub enum StageMemo<T> {
     /// An affine stage: its input rows and its weights.
     Affine(Array2<T>, Array2<T>),
     /// A parameter-free stage's own memo.
-    Elementwise(Box<dyn Any>),
+    Elementwise(BoxedMemo),
+}
+
+impl<T> HeldBytes for StageMemo<T> {
+    fn held_bytes(&self) -> usize {
+        match self {
+            StageMemo::Affine(x, w) => x.held_bytes() + w.held_bytes(),
+            StageMemo::Elementwise(memo) => memo.held_bytes(),
+        }
+    }
 }
 
 impl<T> fmt::Debug for StageMemo<T> {
