@@ -1,7 +1,8 @@
 //! What each way of composing costs: one forward-and-backward pass of the same
 //! eight-stage elementwise model on 1,000-element arrays, built statically,
-//! as a run-time chain and as nested boxed maps; and the fast backward pass
-//! against the reverse derivative evaluated as a map.
+//! as a run-time chain and as nested boxed maps; the fast backward pass
+//! against the reverse derivative evaluated as a map; and Hessian-vector
+//! products against backward passes of static scalar chains.
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, ArrayD};
@@ -62,5 +63,48 @@ fn compositions(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, compositions);
+/// `f` then `f`: chains of 2^k stages with a type of depth k.
+fn double<F: Compose + Clone>(f: F) -> revdiff::Then<F, F> {
+    f.clone().then(f)
+}
+
+fn backward_and_hessian<F: revdiff::Reverse<f64, Output = f64>>(
+    group: &mut criterion::BenchmarkGroup<'_, criterion::measurement::WallTime>,
+    n: usize,
+    f: &F,
+) {
+    let x = 0.7_f64;
+    group.bench_function(format!("backward, n = {n}"), |b| {
+        b.iter(|| f.backward(black_box(&x), &1.0).unwrap())
+    });
+    group.bench_function(format!("Hessian-vector product, n = {n}"), |b| {
+        b.iter(|| revdiff::hessian_vector(f, black_box(&x), &1.0).unwrap())
+    });
+}
+
+/// A Hessian-vector product against one backward pass of the same static
+/// chain of scalar stages, at 10, 100 and 1,000 stages: the ratio should be
+/// small and flat in depth (the comparison example prints it).
+fn second_order(c: &mut Criterion) {
+    let s8 = double(double(double(Sin)));
+    let s32 = double(double(s8));
+    let s64 = double(s32);
+    let s128 = double(s64);
+    let s256 = double(s128);
+    let s10 = s8.then(Sin).then(Sin);
+    let s100 = s64.then(s32).then(double(double(Sin)));
+    let s1000 = double(s256)
+        .then(s256)
+        .then(s128)
+        .then(s64)
+        .then(s32)
+        .then(s8);
+    let mut group = c.benchmark_group("second order, static scalar chains");
+    backward_and_hessian(&mut group, 10, &s10);
+    backward_and_hessian(&mut group, 100, &s100);
+    backward_and_hessian(&mut group, 1000, &s1000);
+    group.finish();
+}
+
+criterion_group!(benches, compositions, second_order);
 criterion_main!(benches);
