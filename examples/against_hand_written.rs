@@ -377,6 +377,26 @@ fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
             "<= 4",
         ));
     }
+    // Stages on 256-wide arrays (sine then tanh, repeated), summed to a
+    // scalar at the end.
+    let a2 = Sin.then(revdiff::Tanh);
+    let a8 = double(double(a2));
+    let a64 = double(double(double(a8)));
+    let a512 = double(double(double(a64)));
+    let sum = revdiff::ElementReduction::sum;
+    let row = Array1::from_elem(256, 0.3);
+    for (n, ratio) in [
+        (8, hessian_ratio(rounds, 200, &a8.then(sum()), &row, &row)),
+        (64, hessian_ratio(rounds, 30, &a64.then(sum()), &row, &row)),
+        (512, hessian_ratio(rounds, 4, &a512.then(sum()), &row, &row)),
+    ] {
+        lines.push(at_most(
+            format!("Hessian-vector product / backward, static chain on 256-wide arrays, n = {n}"),
+            ratio,
+            4.0,
+            "<= 4",
+        ));
+    }
     // The network on one row, summed to a scalar: the Hessian in the
     // parameters and the input together, along a direction of their shape.
     let model = library_model().then(revdiff::ElementReduction::sum());

@@ -43,7 +43,7 @@ type RiseInput<D> = ((f64, f64), Array<f64, D>);
 /// What the backward pass needs: `n`, `h`, `ln(t / h)`, `t`, and the slope
 /// `f (1 - f)` of the sigmoid at each element.
 #[derive(Clone, Debug)]
-struct RiseKept<D: Dimension> {
+struct RiseKept<D: Dimension + 'static> {
     n: f64,
     h: f64,
     log_ratio: Array<f64, D>,
@@ -51,7 +51,7 @@ struct RiseKept<D: Dimension> {
     slope: Array<f64, D>,
 }
 
-impl<D: Dimension> Map<RiseInput<D>> for Rise {
+impl<D: Dimension + 'static> Map<RiseInput<D>> for Rise {
     type Output = Array<f64, D>;
     type Memo = RiseKept<D>;
     fn forward_memo(&self, ((h, n), t): &RiseInput<D>) -> Result<(Array<f64, D>, RiseKept<D>)> {

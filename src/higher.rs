@@ -41,10 +41,13 @@ pub fn forward_derivative<A: Space, F: Reverse<A>>(f: &F, x: &A, v: &A) -> Resul
             v.shape_string(),
         )
     })?;
-    let zero = f.forward(x)?.zero_like();
     // R[R[f]]((x, 0), v) is the reverse derivative of R[f] at (x, 0) with
     // change v: one backward pass of R[f], cheaper than evaluating R[R[f]].
-    let (_, dy) = f.rev().backward(&(x.clone(), zero), v)?;
+    // The forward pass that gives the output's shape also serves R[f].
+    let rev = f.rev();
+    let (y, kept) = f.forward_keeping(x)?;
+    let (_, memo) = f.rev_forward_kept(&rev, x, &kept, &y.zero_like())?;
+    let (_, dy) = rev.backward_memo(&memo, v)?;
     Ok(dy)
 }
 
@@ -120,12 +123,13 @@ where
     F: Reverse<A>,
     F::Output: Euclidean<R>,
 {
-    let zero = f.forward(x)?.zero_like();
-    let (m, n) = (zero.dimension(), x.dimension());
     // Columns are backward passes of R[f] at (x, 0), as in
     // `forward_derivative`; one forward pass of R[f] serves them all.
     let rev = f.rev();
-    let (_, memo) = rev.forward_memo(&(x.clone(), zero))?;
+    let (y, kept) = f.forward_keeping(x)?;
+    let zero = y.zero_like();
+    let (m, n) = (zero.dimension(), x.dimension());
+    let (_, memo) = f.rev_forward_kept(&rev, x, &kept, &zero)?;
     let mut j = Array2::zeros((m, n));
     for k in 0..n {
         let (_, col) = rev.backward_memo(&memo, &basis(x, k)?)?;

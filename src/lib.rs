@@ -79,7 +79,7 @@ pub use higher::{
 };
 pub use laws::{Checker, Exhaustive, FiniteDomain, Law, LawReport, Tolerance};
 pub use learning::*;
-pub use map::{Compose, Linear, Map, Reverse};
+pub use map::{Compose, Kept, Linear, Map, Reverse};
 pub use memory::{HeldBytes, kept_bytes};
 pub use primitives::*;
 pub use retention::{

@@ -4,8 +4,10 @@
 //! methods).
 
 use crate::combinators::{Alongside, Pair, Plus, ReversedThrough, Scaled, Then, Transpose};
-use crate::error::Result;
+use crate::error::{Error, Result};
 use crate::space::Space;
+use std::any::Any;
+use std::rc::Rc;
 
 /// A map `A -> Self::Output` that carries its reverse derivative.
 ///
@@ -78,8 +80,9 @@ use crate::space::Space;
 pub trait Map<A: Space>: Compose {
     /// The output space.
     type Output: Space;
-    /// What the forward pass keeps for the backward pass.
-    type Memo;
+    /// What the forward pass keeps for the backward pass. It owns what it
+    /// keeps (`'static`), so that it can be held type-erased.
+    type Memo: 'static;
 
     /// Evaluates the map.
     fn forward(&self, x: &A) -> Result<Self::Output> {
@@ -156,7 +159,54 @@ pub trait Reverse<A: Space>: Map<A> + Clone {
 
     /// Builds the reverse derivative.
     fn rev(&self) -> Self::Rev;
+
+    /// Evaluates the map and keeps, at every level of a composite, what
+    /// its reverse map's forward pass at the same point needs, so that
+    /// [`rev_forward_kept`](Reverse::rev_forward_kept) repeats no part of
+    /// the forward pass. The default keeps the memo; sequential composition
+    /// ([`Then`](crate::Then)) keeps its parts' and the value between them.
+    /// Second-order quantities go through it; a hand-written map has no
+    /// reason to override it.
+    fn forward_keeping(&self, x: &A) -> Result<(Self::Output, Kept)> {
+        let (y, memo) = self.forward_memo(x)?;
+        Ok((y, Rc::new(memo)))
+    }
+
+    /// The backward pass from what [`forward_keeping`](Reverse::forward_keeping)
+    /// kept. Something else is [`Error::ForeignMemo`](crate::Error::ForeignMemo).
+    fn backward_kept(&self, kept: &Kept, dy: &Self::Output) -> Result<A> {
+        let memo = kept
+            .downcast_ref::<Self::Memo>()
+            .ok_or(Error::ForeignMemo {
+                operation: "backward pass from a kept forward pass",
+            })?;
+        self.backward_memo(memo, dy)
+    }
+
+    /// The reverse map `rev` (this map's [`rev`](Reverse::rev)) run forward
+    /// at `(x, dy)`, keeping its memo, where `kept` is what
+    /// [`forward_keeping`](Reverse::forward_keeping) kept at `x`. The
+    /// default evaluates `rev` afresh, which repeats this map's forward
+    /// pass; [`Then`](crate::Then) reads its parts' forward passes from
+    /// `kept` instead, so a composite's reverse map costs the same order of
+    /// work as its backward pass at any depth.
+    #[allow(clippy::type_complexity)]
+    fn rev_forward_kept(
+        &self,
+        rev: &Self::Rev,
+        x: &A,
+        kept: &Kept,
+        dy: &Self::Output,
+    ) -> Result<(A, <Self::Rev as Map<(A, Self::Output)>>::Memo)> {
+        let _ = kept;
+        rev.forward_memo(&(x.clone(), dy.clone()))
+    }
 }
+
+/// What [`Reverse::forward_keeping`] keeps: a shared, type-erased value,
+/// so that the reverse maps of a composite's parts can each hold their
+/// part of it without copying.
+pub type Kept = Rc<dyn Any>;
 
 /// A linear map: its reverse derivative does not depend on the point, so it
 /// has a transpose `B -> A`.

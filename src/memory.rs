@@ -71,7 +71,7 @@ impl HeldBytes for () {
     }
 }
 
-impl<T, D: Dimension> HeldBytes for ArrayBase<OwnedRepr<T>, D, T> {
+impl<T, D: Dimension + 'static> HeldBytes for ArrayBase<OwnedRepr<T>, D, T> {
     fn held_bytes(&self) -> usize {
         self.len() * std::mem::size_of::<T>()
     }

@@ -96,11 +96,11 @@ impl Real for f64 {}
     label = "not a `revdiff::Space`",
     note = "spaces are `f32`, `f64`, ndarray arrays of them, fixed-size arrays, `()` and tuples of spaces; a type of your own needs `impl Space`"
 )]
-pub trait Space: Clone + Debug {
+pub trait Space: Clone + Debug + 'static {
     /// What a zero needs to know about a value: its array dimensions, the
     /// shapes of a tuple's parts, nothing for a scalar. Cheap to keep, so
     /// that a backward pass can make zeros without keeping whole values.
-    type Shape: Clone + Debug;
+    type Shape: Clone + Debug + 'static;
 
     /// The shape of `self`.
     fn shape(&self) -> Self::Shape;
@@ -351,7 +351,7 @@ pub(crate) fn shape_tuple(shape: &[usize]) -> String {
     }
 }
 
-pub(crate) fn same_shape<T, D: Dimension>(
+pub(crate) fn same_shape<T, D: Dimension + 'static>(
     operation: &'static str,
     a: &Array<T, D>,
     b: &Array<T, D>,
@@ -367,7 +367,7 @@ pub(crate) fn same_shape<T, D: Dimension>(
     }
 }
 
-impl<T: Real, D: Dimension> Space for Array<T, D> {
+impl<T: Real, D: Dimension + 'static> Space for Array<T, D> {
     type Shape = D;
     fn shape(&self) -> D {
         self.raw_dim()
@@ -400,13 +400,13 @@ impl<T: Real, D: Dimension> Space for Array<T, D> {
     }
 }
 
-impl<T: Real, D: Dimension> Scalable<T> for Array<T, D> {
+impl<T: Real, D: Dimension + 'static> Scalable<T> for Array<T, D> {
     fn scale(&self, s: T) -> Self {
         self * s
     }
 }
 
-impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
+impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
     fn inner(&self, other: &Self) -> Result<T> {
         same_shape("inner product of arrays", self, other)?;
         Ok(self
@@ -465,7 +465,7 @@ impl<T: Real, D: Dimension> Euclidean<T> for Array<T, D> {
 #[cfg(feature = "threads")]
 const PARALLEL_FROM: usize = 1 << 15;
 
-impl<T: Real, D: Dimension> Pointwise for Array<T, D> {
+impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
     type Elem = T;
     fn map_elems(&self, f: impl Fn(T) -> T + Sync + Send) -> Self {
         #[cfg(feature = "threads")]

@@ -196,6 +196,55 @@ fn static_left_nesting_evaluates_each_map_once() {
 }
 
 #[test]
+fn second_order_of_a_left_nested_chain_evaluates_each_map_once() {
+    // The reverse map of `f.then(g)` reads every level from one forward
+    // pass; the composite form ran each prefix again at every level (36
+    // forward passes for these 8 stages).
+    let count = Arc::new(AtomicUsize::new(0));
+    let c = || Counting(count.clone()).reversed_through(Sin);
+    let f = c()
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c())
+        .then(c());
+    let x = 0.2_f64;
+    let hv = hessian_vector(&f, &x, &1.0).unwrap();
+    // Every stage but the last, whose output the reverse map never needs.
+    assert_eq!(count.load(Ordering::Relaxed), 7, "Hessian-vector product");
+    let d = forward_derivative(&f, &x, &1.0).unwrap();
+    // One forward pass of all eight, which also gives the output's shape.
+    assert_eq!(count.load(Ordering::Relaxed), 15, "forward derivative");
+
+    // The same numbers as the chain of catalogue sines, and as the
+    // composite form of the reverse map.
+    let sines = Sin
+        .then(Sin)
+        .then(Sin)
+        .then(Sin)
+        .then(Sin)
+        .then(Sin)
+        .then(Sin)
+        .then(Sin);
+    assert!((hv - hessian_vector(&sines, &x, &1.0).unwrap()).abs() <= 1e-15);
+    assert!((d - sines.backward(&x, &1.0).unwrap()).abs() <= 1e-15);
+    let rev = Reverse::<f64>::rev(&sines);
+    let composite = rev.composite();
+    for (dz, v) in [(1.0, 0.5), (-2.0, 3.0)] {
+        assert_eq!(
+            rev.forward(&(x, dz)).unwrap(),
+            composite.forward(&(x, dz)).unwrap()
+        );
+        assert_eq!(
+            rev.backward(&(x, dz), &v).unwrap(),
+            composite.backward(&(x, dz), &v).unwrap()
+        );
+    }
+}
+
+#[test]
 fn run_time_chain_matches_static_composite_and_checks_shapes() {
     let w1 = ndarray::array![[0.5, -1.0, 0.2], [0.1, 0.3, -0.7]];
     let b1 = ndarray::array![0.1, -0.1];

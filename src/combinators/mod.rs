@@ -8,7 +8,9 @@ mod compose;
 mod reversed_through;
 mod structural;
 
-pub use compose::{Alongside, AlongsideRev, Pair, PairRev, Plus, Scaled, Then, ThenRev, Transpose};
+pub use compose::{
+    Alongside, AlongsideRev, Pair, PairRev, Plus, Scaled, Then, ThenRev, ThenReverse, Transpose,
+};
 pub use reversed_through::ReversedThrough;
 pub use structural::{
     AddPair, Constant, Discard, Duplicate, Fst, Id, MultiplyBy, Snd, ZeroMap, add_pair, constant,

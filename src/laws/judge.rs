@@ -659,7 +659,7 @@ macro_rules! exact_real {
 }
 exact_real!(f32, f64);
 
-impl<T: Real + ExactScalar, D: Dimension> ExactPairing<T> for Array<T, D> {
+impl<T: Real + ExactScalar, D: Dimension + 'static> ExactPairing<T> for Array<T, D> {
     fn pair_exactly(&self, other: &Self) -> Result<T> {
         self.inner(other)
     }

@@ -662,6 +662,9 @@ impl<R: Real> Checker<R> {
         let (checker, shared, case) = (self.clone(), Arc::clone(eval), c.clone());
         let spawned = std::thread::Builder::new()
             .name("revdiff law case".to_string())
+            // Reverse maps of order three of deep composites recurse
+            // deeply; the stack is reserved, not touched, until used.
+            .stack_size(CASE_STACK_BYTES)
             .spawn(move || {
                 // The receiver may have given up waiting: nothing to do then.
                 let _ = sender.send(checker.judge_case(&*shared, law, order, &case));
@@ -873,3 +876,6 @@ fn not_for_maps(law: Law) -> Discrepancy {
         "{law} is not a law of one map; use the pair checks for it"
     ))
 }
+
+/// The stack of the thread each sampled case runs on.
+const CASE_STACK_BYTES: usize = 64 << 20;

@@ -171,7 +171,7 @@ fn real<T: Real>(v: f64) -> T {
 }
 
 /// Checks shapes and non-emptiness, and returns `y - t`.
-fn difference<T: Real, D: Dimension>(
+fn difference<T: Real, D: Dimension + 'static>(
     operation: &'static str,
     (y, t): &Pairs<T, D>,
 ) -> Result<Array<T, D>> {
@@ -179,7 +179,7 @@ fn difference<T: Real, D: Dimension>(
     Ok(y - t)
 }
 
-fn nonempty<T, D: Dimension>(operation: &'static str, y: &Array<T, D>) -> Result<()> {
+fn nonempty<T, D: Dimension + 'static>(operation: &'static str, y: &Array<T, D>) -> Result<()> {
     if y.is_empty() {
         Err(Error::Empty { operation })
     } else {
@@ -189,7 +189,7 @@ fn nonempty<T, D: Dimension>(operation: &'static str, y: &Array<T, D>) -> Result
 
 /// The change `(s r dl, -s r dl)` shared by the squared errors and Huber,
 /// where `r` is the kept slope array.
-fn opposite_pair<T: Real, D: Dimension>(slope: &Array<T, D>, dl: T) -> Pairs<T, D> {
+fn opposite_pair<T: Real, D: Dimension + 'static>(slope: &Array<T, D>, dl: T) -> Pairs<T, D> {
     let d = slope * dl;
     let neg = d.mapv(|v| -v);
     (d, neg)
@@ -271,7 +271,7 @@ impl<T: Real> Huber<T> {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Pairs<T, D>> for SquaredError {
+impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for SquaredError {
     type Output = T;
     type Memo = Array<T, D>;
     fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
@@ -284,7 +284,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for SquaredError {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
+impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for MeanSquaredError {
     type Output = T;
     type Memo = Array<T, D>;
     fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
@@ -299,7 +299,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for MeanSquaredError {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
+impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitCrossEntropy {
     type Output = T;
     /// `(sum(t) softmax(z) - t, logsumexp(z) - z)` per row: the change per unit `dl`.
     type Memo = Pairs<T, D>;
@@ -343,7 +343,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitCrossEntropy {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
+impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
     type Output = T;
     /// `(sigmoid(z) - t, -z)`: the change per unit `dl`.
     type Memo = Pairs<T, D>;
@@ -363,7 +363,7 @@ impl<T: Real, D: Dimension> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Pairs<T, D>> for Huber<T> {
+impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for Huber<T> {
     type Output = T;
     /// The clamped difference.
     type Memo = Array<T, D>;
@@ -399,8 +399,8 @@ macro_rules! reverse_through_composite {
     };
 }
 
-reverse_through_composite!(SquaredError, SquaredErrorComposite<T>, [T: Real, D: Dimension]);
-reverse_through_composite!(MeanSquaredError, MeanSquaredErrorComposite, [T: Real, D: Dimension]);
+reverse_through_composite!(SquaredError, SquaredErrorComposite<T>, [T: Real, D: Dimension + 'static]);
+reverse_through_composite!(MeanSquaredError, MeanSquaredErrorComposite, [T: Real, D: Dimension + 'static]);
 // On a batch the loss is a sum of per-row log-sum-exps, which the
 // composite (one log-sum-exp over the whole array) is not: second order is
 // for single examples.
@@ -408,6 +408,6 @@ reverse_through_composite!(LogitCrossEntropy, LogitCrossEntropyComposite, [T: Re
 reverse_through_composite!(
     LogitBinaryCrossEntropy,
     LogitBinaryCrossEntropyComposite,
-    [T: Real, D: Dimension]
+    [T: Real, D: Dimension + 'static]
 );
-reverse_through_composite!(Huber<T>, HuberComposite<T>, [T: Real, D: Dimension]);
+reverse_through_composite!(Huber<T>, HuberComposite<T>, [T: Real, D: Dimension + 'static]);

@@ -111,7 +111,7 @@ pub fn squared_norm() -> SquaredNorm {
 impl Compose for ElementReduction {}
 impl Compose for FillLike {}
 
-impl<T: Real, D: Dimension> Map<Array<T, D>> for ElementReduction {
+impl<T: Real, D: Dimension + 'static> Map<Array<T, D>> for ElementReduction {
     type Output = T;
     type Memo = D;
     fn forward(&self, x: &Array<T, D>) -> Result<T> {
@@ -126,14 +126,14 @@ impl<T: Real, D: Dimension> Map<Array<T, D>> for ElementReduction {
     }
 }
 
-impl<T: Real, D: Dimension> Reverse<Array<T, D>> for ElementReduction {
+impl<T: Real, D: Dimension + 'static> Reverse<Array<T, D>> for ElementReduction {
     type Rev = FillLike;
     fn rev(&self) -> FillLike {
         FillLike { mean: self.mean }
     }
 }
 
-impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
+impl<T: Real, D: Dimension + 'static> Map<(Array<T, D>, T)> for FillLike {
     type Output = Array<T, D>;
     type Memo = D;
     fn forward(&self, (x, s): &(Array<T, D>, T)) -> Result<Array<T, D>> {
@@ -164,7 +164,7 @@ impl<T: Real, D: Dimension> Map<(Array<T, D>, T)> for FillLike {
 /// `((x, s), D) -> (0, total(D))`.
 pub type FillLikeRev = Pair<Then<Then<Fst, Fst>, ZeroMap>, Then<Snd, ElementReduction>>;
 
-impl<T: Real, D: Dimension> Reverse<(Array<T, D>, T)> for FillLike {
+impl<T: Real, D: Dimension + 'static> Reverse<(Array<T, D>, T)> for FillLike {
     type Rev = FillLikeRev;
     fn rev(&self) -> FillLikeRev {
         Fst.then(Fst)
@@ -173,5 +173,5 @@ impl<T: Real, D: Dimension> Reverse<(Array<T, D>, T)> for FillLike {
     }
 }
 
-impl<T: Real, D: Dimension> Linear<Array<T, D>> for ElementReduction {}
-impl<T: Real, D: Dimension> Linear<(Array<T, D>, T)> for FillLike {}
+impl<T: Real, D: Dimension + 'static> Linear<Array<T, D>> for ElementReduction {}
+impl<T: Real, D: Dimension + 'static> Linear<(Array<T, D>, T)> for FillLike {}

@@ -9,7 +9,7 @@ use crate::primitives::{ElementReduction, FillLike, MulPair, SubPair};
 use crate::space::Real;
 use ndarray::{Array, Dimension};
 
-fn largest<T: Real, D: Dimension>(operation: &'static str, x: &Array<T, D>) -> Result<T> {
+fn largest<T: Real, D: Dimension + 'static>(operation: &'static str, x: &Array<T, D>) -> Result<T> {
     if x.is_empty() {
         return Err(Error::Empty { operation });
     }
@@ -17,7 +17,7 @@ fn largest<T: Real, D: Dimension>(operation: &'static str, x: &Array<T, D>) -> R
 }
 
 /// `(softmax(x), log-sum-exp(x))`, both from one shifted exponential.
-fn softmax_parts<T: Real, D: Dimension>(
+fn softmax_parts<T: Real, D: Dimension + 'static>(
     operation: &'static str,
     x: &Array<T, D>,
 ) -> Result<(Array<T, D>, T)> {
@@ -68,7 +68,7 @@ impl Compose for LogSumExp {}
 impl Compose for Softmax {}
 impl Compose for LogSoftmax {}
 
-impl<T: Real, D: Dimension> Map<Array<T, D>> for LogSumExp {
+impl<T: Real, D: Dimension + 'static> Map<Array<T, D>> for LogSumExp {
     type Output = T;
     type Memo = Array<T, D>;
     fn forward_memo(&self, x: &Array<T, D>) -> Result<(T, Array<T, D>)> {
@@ -83,14 +83,14 @@ impl<T: Real, D: Dimension> Map<Array<T, D>> for LogSumExp {
 /// `(x, dy) -> softmax(x) filled-dy`.
 pub type LogSumExpRev = Then<Pair<Then<Fst, Softmax>, FillLike>, MulPair>;
 
-impl<T: Real, D: Dimension> Reverse<Array<T, D>> for LogSumExp {
+impl<T: Real, D: Dimension + 'static> Reverse<Array<T, D>> for LogSumExp {
     type Rev = LogSumExpRev;
     fn rev(&self) -> LogSumExpRev {
         Fst.then(Softmax).pair(FillLike::sum()).then(MulPair)
     }
 }
 
-impl<T: Real, D: Dimension> Map<Array<T, D>> for Softmax {
+impl<T: Real, D: Dimension + 'static> Map<Array<T, D>> for Softmax {
     type Output = Array<T, D>;
     type Memo = Array<T, D>;
     fn forward_memo(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
@@ -123,7 +123,7 @@ pub type SoftmaxRev = Then<
     SubPair,
 >;
 
-impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Softmax {
+impl<T: Real, D: Dimension + 'static> Reverse<Array<T, D>> for Softmax {
     type Rev = SoftmaxRev;
     fn rev(&self) -> SoftmaxRev {
         let s_dy = || Fst.then(Softmax).pair(Snd).then(MulPair);
@@ -136,7 +136,7 @@ impl<T: Real, D: Dimension> Reverse<Array<T, D>> for Softmax {
     }
 }
 
-impl<T: Real, D: Dimension> Map<Array<T, D>> for LogSoftmax {
+impl<T: Real, D: Dimension + 'static> Map<Array<T, D>> for LogSoftmax {
     type Output = Array<T, D>;
     type Memo = Array<T, D>;
     fn forward_memo(&self, x: &Array<T, D>) -> Result<(Array<T, D>, Array<T, D>)> {
@@ -162,7 +162,7 @@ pub type LogSoftmaxRev = Then<
     SubPair,
 >;
 
-impl<T: Real, D: Dimension> Reverse<Array<T, D>> for LogSoftmax {
+impl<T: Real, D: Dimension + 'static> Reverse<Array<T, D>> for LogSoftmax {
     type Rev = LogSoftmaxRev;
     fn rev(&self) -> LogSoftmaxRev {
         let spread = Fst

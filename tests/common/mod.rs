@@ -110,6 +110,25 @@ where
 /// derivative equals the central-difference directional derivative.
 pub fn check_orders<A, F>(label: &str, f: &F, x: &A, seed: u64)
 where
+    A: Euclidean<f64> + Sync,
+    F: Reverse<A> + Sync,
+    F::Output: Euclidean<f64>,
+{
+    // Third-order maps of composites are deeply nested values whose passes
+    // recurse deeply: a test thread's 2 MiB stack is too small for some in
+    // an unoptimised build, so they run on a thread of their own.
+    std::thread::scope(|scope| {
+        std::thread::Builder::new()
+            .stack_size(64 << 20)
+            .spawn_scoped(scope, || check_orders_here(label, f, x, seed))
+            .expect("a thread for the check")
+            .join()
+            .unwrap_or_else(|panic| std::panic::resume_unwind(panic))
+    })
+}
+
+fn check_orders_here<A, F>(label: &str, f: &F, x: &A, seed: u64)
+where
     A: Euclidean<f64>,
     F: Reverse<A>,
     F::Output: Euclidean<f64>,
