@@ -215,6 +215,21 @@ fn stacked_models_pass_the_laws_and_agree_with_their_composite() {
     checker
         .same_reverse(&model, &model.composite(), inputs)
         .assert_clean();
+
+    // Three layers, so that a parametrised composite holds another and its
+    // reverse map reads the inner one's from the same forward pass.
+    let deep = Affine
+        .then(Tanh)
+        .then_parametrised(Affine.then(Tanh))
+        .then_parametrised(Affine);
+    let inputs = (
+        ((layer(3, 2), layer(2, 3)), layer(2, 2)),
+        vectors(2, -2.0, 2.0).unwrap(),
+    );
+    checker.reverse(&deep, inputs.clone()).assert_clean();
+    checker
+        .same_reverse(&deep, &deep.composite(), inputs)
+        .assert_clean();
 }
 
 #[test]

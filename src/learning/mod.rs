@@ -26,7 +26,8 @@ pub use least_squares::{
 pub use loss::{Huber, LogitBinaryCrossEntropy, LogitCrossEntropy, MeanSquaredError, SquaredError};
 pub use optimise::{Adagrad, Adam, GradientDescent, Momentum, Nesterov, Optimiser, RmsProp};
 pub use parametrised::{
-    Parametrised, Reparametrised, ThenParametrised, WithParameters, parameter_free,
+    Parametrised, Reparametrised, ThenParametrised, ThenParametrisedComposite,
+    ThenParametrisedReverse, WithParameters, parameter_free,
 };
 pub use rows::{RowMean, Rowwise};
 pub use schedule::Schedule;

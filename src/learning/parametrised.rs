@@ -16,9 +16,10 @@
 //! catalogue's combinators, so every order exists.
 
 use crate::combinators::{Alongside, Constant, Duplicate, Fst, Id, Pair, Snd, Then};
-use crate::error::Result;
-use crate::map::{Compose, Map, Reverse};
+use crate::error::{Error, Result};
+use crate::map::{Compose, Kept, Map, Reverse};
 use crate::space::Space;
+use std::rc::Rc;
 
 /// The methods that build parametrised maps, provided for every map.
 ///
@@ -288,9 +289,168 @@ where
     G: Reverse<(Q, F::Output)>,
     ThenParametrisedComposite<F, G>: Reverse<((P, Q), A), Output = G::Output>,
 {
-    type Rev = <ThenParametrisedComposite<F, G> as Reverse<((P, Q), A)>>::Rev;
+    type Rev = ThenParametrisedReverse<F, G, F::Rev, G::Rev>;
     fn rev(&self) -> Self::Rev {
-        self.composite().rev()
+        ThenParametrisedReverse {
+            map: self.clone(),
+            first_rev: self.first.rev(),
+            second_rev: self.second.rev(),
+        }
+    }
+    fn forward_keeping(&self, ((p, q), a): &((P, Q), A)) -> Result<(G::Output, Kept)> {
+        let first_input = (p.clone(), a.clone());
+        let (b, first) = self.first.forward_keeping(&first_input)?;
+        let second_input = (q.clone(), b);
+        let (c, second) = self.second.forward_keeping(&second_input)?;
+        let kept = ThenParametrisedKept {
+            first_input,
+            first,
+            second_input,
+            second,
+        };
+        Ok((c, Rc::new(kept)))
+    }
+    fn backward_kept(&self, kept: &Kept, dc: &G::Output) -> Result<((P, Q), A)> {
+        let kept = parametrised_kept::<P, A, Q, F::Output>(kept)?;
+        let (dq, db) = self.second.backward_kept(&kept.second, dc)?;
+        let (dp, da) = self.first.backward_kept(&kept.first, &db)?;
+        Ok(((dp, dq), da))
+    }
+    fn rev_forward_kept(
+        &self,
+        rev: &Self::Rev,
+        _: &((P, Q), A),
+        kept: &Kept,
+        dc: &G::Output,
+    ) -> Result<(
+        ((P, Q), A),
+        <Self::Rev as Map<(((P, Q), A), G::Output)>>::Memo,
+    )> {
+        let parts = parametrised_kept::<P, A, Q, F::Output>(kept)?;
+        let ((dq, db), rg) = self.second.rev_forward_kept(
+            &rev.second_rev,
+            &parts.second_input,
+            &parts.second,
+            dc,
+        )?;
+        let ((dp, da), rf) =
+            self.first
+                .rev_forward_kept(&rev.first_rev, &parts.first_input, &parts.first, &db)?;
+        Ok((((dp, dq), da), (Rc::clone(&parts.first), rg, rf)))
+    }
+}
+
+/// What [`ThenParametrised`] keeps for its reverse map: each part's input
+/// and what each part kept.
+struct ThenParametrisedKept<P, A, Q, B> {
+    first_input: (P, A),
+    first: Kept,
+    second_input: (Q, B),
+    second: Kept,
+}
+
+fn parametrised_kept<P: 'static, A: 'static, Q: 'static, B: 'static>(
+    kept: &Kept,
+) -> Result<&ThenParametrisedKept<P, A, Q, B>> {
+    kept.downcast_ref::<ThenParametrisedKept<P, A, Q, B>>()
+        .ok_or(Error::ForeignMemo {
+            operation: "reverse map of a parametrised composite",
+        })
+}
+
+/// The reverse derivative of [`ThenParametrised`] as a map
+/// `(((p, q), a), dc) -> ((dp, dq), da)`, with direct passes: like
+/// [`ThenReverse`](crate::ThenReverse) it runs the first map forward once,
+/// keeping what its reverse map needs, and threads the parameters without
+/// the projections of the equal composite [`ThenParametrisedComposite`]
+/// (which copy every parameter and fill zeros of their size at each step).
+/// It is differentiated again through that composite.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ThenParametrisedReverse<F, G, FR, GR> {
+    map: ThenParametrised<F, G>,
+    first_rev: FR,
+    second_rev: GR,
+}
+
+impl<F: Compose, G: Compose, FR: Compose, GR: Compose> Compose
+    for ThenParametrisedReverse<F, G, FR, GR>
+{
+    fn boxed_depth(&self) -> usize {
+        self.map
+            .boxed_depth()
+            .max(self.first_rev.boxed_depth())
+            .max(self.second_rev.boxed_depth())
+    }
+}
+
+impl<P, Q, A, F, G, FR, GR> Map<(((P, Q), A), G::Output)> for ThenParametrisedReverse<F, G, FR, GR>
+where
+    P: Space,
+    Q: Space,
+    A: Space,
+    F: Reverse<(P, A), Rev = FR>,
+    G: Reverse<(Q, F::Output), Rev = GR>,
+    FR: Reverse<((P, A), F::Output), Output = (P, A)>,
+    GR: Reverse<((Q, F::Output), G::Output), Output = (Q, F::Output)>,
+{
+    type Output = ((P, Q), A);
+    /// What the first map kept, and the memos of the two reverse maps.
+    type Memo = (
+        Kept,
+        <GR as Map<((Q, F::Output), G::Output)>>::Memo,
+        <FR as Map<((P, A), F::Output)>>::Memo,
+    );
+    fn forward_memo(
+        &self,
+        (((p, q), a), dc): &(((P, Q), A), G::Output),
+    ) -> Result<(((P, Q), A), Self::Memo)> {
+        let pa = (p.clone(), a.clone());
+        let (b, kept) = self.map.first.forward_keeping(&pa)?;
+        let ((dq, db), rg) = self
+            .second_rev
+            .forward_memo(&((q.clone(), b), dc.clone()))?;
+        let ((dp, da), rf) = self
+            .map
+            .first
+            .rev_forward_kept(&self.first_rev, &pa, &kept, &db)?;
+        Ok((((dp, dq), da), (kept, rg, rf)))
+    }
+    fn backward_memo(
+        &self,
+        (kept, rg, rf): &Self::Memo,
+        ((ddp, ddq), dda): &((P, Q), A),
+    ) -> Result<(((P, Q), A), G::Output)> {
+        let ((mut xp, mut xa), ddb) = self
+            .first_rev
+            .backward_memo(rf, &(ddp.clone(), dda.clone()))?;
+        let ((xq, xb), ddc) = self.second_rev.backward_memo(rg, &(ddq.clone(), ddb))?;
+        let (yp, ya) = self.map.first.backward_kept(kept, &xb)?;
+        xp.try_add_assign(&yp)?;
+        xa.try_add_assign(&ya)?;
+        Ok((((xp, xq), xa), ddc))
+    }
+}
+
+impl<P, Q, A, F, G, FR, GR> Reverse<(((P, Q), A), G::Output)>
+    for ThenParametrisedReverse<F, G, FR, GR>
+where
+    P: Space,
+    Q: Space,
+    A: Space,
+    F: Reverse<(P, A), Rev = FR>,
+    G: Reverse<(Q, F::Output), Rev = GR>,
+    FR: Reverse<((P, A), F::Output), Output = (P, A)>,
+    GR: Reverse<((Q, F::Output), G::Output), Output = (Q, F::Output)>,
+    ThenParametrisedComposite<F, G>: Reverse<((P, Q), A), Output = G::Output>,
+{
+    type Rev = <<ThenParametrisedComposite<F, G> as Reverse<((P, Q), A)>>::Rev as Reverse<(
+        ((P, Q), A),
+        G::Output,
+    )>>::Rev;
+    fn rev(&self) -> Self::Rev {
+        Reverse::<(((P, Q), A), G::Output)>::rev(&Reverse::<((P, Q), A)>::rev(
+            &self.map.composite(),
+        ))
     }
 }
 

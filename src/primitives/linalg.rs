@@ -395,8 +395,95 @@ impl<T: Real> Map<AffineInput<T>> for Affine {
 }
 
 impl<T: Real> Reverse<AffineInput<T>> for Affine {
-    type Rev = <AffineComposite as Reverse<AffineInput<T>>>::Rev;
+    type Rev = AffineReverse;
+    fn rev(&self) -> AffineReverse {
+        AffineReverse
+    }
+}
+
+/// The reverse derivative of [`Affine`] on one vector as a map,
+/// `(((W, b), x), dy) -> ((dy x', dy), W' dy)`, with direct passes: its
+/// backward pass, the second derivative, sends a change `((gW, gb), gx)` to
+/// `(((dy gx', 0), gW' dy), gW x + gb + W gx)` with three matrix-vector
+/// products and an outer product. It equals the reverse map of the
+/// composite [`AffineComposite`], through which it is differentiated again;
+/// that composite's projections would copy `W` and fill zeros of its size
+/// at every step.
+///
+/// ```
+/// use revdiff::{Affine, AffineReverse, Map};
+/// use ndarray::array;
+/// let input = ((array![[1.0, 2.0], [3.0, 4.0]], array![0.5, 0.5]), array![1.0, -1.0]);
+/// let rev = AffineReverse; // what `Affine.rev()` gives
+/// let dy = array![1.0, 0.0];
+/// assert_eq!(rev.forward(&(input.clone(), dy.clone()))?, Affine.backward(&input, &dy)?);
+/// # Ok::<(), revdiff::Error>(())
+/// ```
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct AffineReverse;
+
+impl Compose for AffineReverse {}
+
+impl<T: Real> Map<(AffineInput<T>, Array1<T>)> for AffineReverse {
+    type Output = AffineInput<T>;
+    /// `W`, `x` and `dy`.
+    type Memo = (Array2<T>, Array1<T>, Array1<T>);
+    fn forward_memo(
+        &self,
+        (input, dy): &(AffineInput<T>, Array1<T>),
+    ) -> Result<(AffineInput<T>, Self::Memo)> {
+        // The forward pass checks W, b and x against each other.
+        let (y, (w, x)) = Affine.forward_memo(input)?;
+        if dy.len() != y.len() {
+            return Err(Error::OutputChangeShape {
+                map: "affine map",
+                expected: shape_tuple(y.shape()),
+                found: shape_tuple(dy.shape()),
+            });
+        }
+        let change = Affine.backward_memo(&(w, x), dy)?;
+        let ((w, _), x) = input;
+        Ok((change, (w.clone(), x.clone(), dy.clone())))
+    }
+    fn backward_memo(
+        &self,
+        (w, x, dy): &Self::Memo,
+        ((gw, gb), gx): &AffineInput<T>,
+    ) -> Result<(AffineInput<T>, Array1<T>)> {
+        if gw.dim() != w.dim() || gb.len() != w.nrows() || gx.len() != w.ncols() {
+            return Err(Error::OutputChangeShape {
+                map: "reverse derivative of the affine map",
+                expected: format!(
+                    "(({}, ({},)), ({},))",
+                    shape_tuple(w.shape()),
+                    w.nrows(),
+                    w.ncols()
+                ),
+                found: format!(
+                    "(({}, {}), {})",
+                    shape_tuple(gw.shape()),
+                    shape_tuple(gb.shape()),
+                    shape_tuple(gx.shape())
+                ),
+            });
+        }
+        let d_w = Outer::plain().apply(dy, gx);
+        let d_x = MatVec::transposed().apply(gw, dy)?;
+        let mut d_dy = MatVec::plain().apply(gw, x)?;
+        d_dy.zip_mut_with(gb, |d, g| *d = *d + *g);
+        d_dy.zip_mut_with(&MatVec::plain().apply(w, gx)?, |d, g| *d = *d + *g);
+        Ok((((d_w, Array1::zeros(gb.len())), d_x), d_dy))
+    }
+}
+
+impl<T: Real> Reverse<(AffineInput<T>, Array1<T>)> for AffineReverse {
+    type Rev = <<AffineComposite as Reverse<AffineInput<T>>>::Rev as Reverse<(
+        AffineInput<T>,
+        Array1<T>,
+    )>>::Rev;
     fn rev(&self) -> Self::Rev {
-        Reverse::<AffineInput<T>>::rev(&affine_composite())
+        Reverse::<(AffineInput<T>, Array1<T>)>::rev(&Reverse::<AffineInput<T>>::rev(
+            &affine_composite(),
+        ))
     }
 }

@@ -14,8 +14,8 @@ pub use batch::{
     affine_batch_composite,
 };
 pub use linalg::{
-    Affine, AffineComposite, MatMul, MatMulRev, MatVec, MatVecRev, MatrixTranspose, Outer,
-    OuterRev, affine_composite,
+    Affine, AffineComposite, AffineReverse, MatMul, MatMulRev, MatVec, MatVecRev, MatrixTranspose,
+    Outer, OuterRev, affine_composite,
 };
 pub use pick::{Coordinate, PlaceAt, PlaceAtRev, PowPair, PowPairComposite, pow_pair_composite};
 pub use pointwise::{
