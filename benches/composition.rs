@@ -4,6 +4,10 @@
 //! against the reverse derivative evaluated as a map; and Hessian-vector
 //! products against backward passes of static scalar chains.
 
+#[path = "support/chains.rs"]
+mod chains;
+
+use chains::sine_chains;
 use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, ArrayD};
 use revdiff::{Boxed, Chain, Compose, Map, Reverse, Sigmoid, Sin, Softplus, Tanh};
@@ -63,11 +67,6 @@ fn compositions(c: &mut Criterion) {
     group.finish();
 }
 
-/// `f` then `f`: chains of 2^k stages with a type of depth k.
-fn double<F: Compose + Clone>(f: F) -> revdiff::Then<F, F> {
-    f.clone().then(f)
-}
-
 fn backward_and_hessian<F: revdiff::Reverse<f64, Output = f64>>(
     group: &mut criterion::BenchmarkGroup<'_, criterion::measurement::WallTime>,
     n: usize,
@@ -86,19 +85,7 @@ fn backward_and_hessian<F: revdiff::Reverse<f64, Output = f64>>(
 /// chain of scalar stages, at 10, 100 and 1,000 stages: the ratio should be
 /// small and flat in depth (the comparison example prints it).
 fn second_order(c: &mut Criterion) {
-    let s8 = double(double(double(Sin)));
-    let s32 = double(double(s8));
-    let s64 = double(s32);
-    let s128 = double(s64);
-    let s256 = double(s128);
-    let s10 = s8.then(Sin).then(Sin);
-    let s100 = s64.then(s32).then(double(double(Sin)));
-    let s1000 = double(s256)
-        .then(s256)
-        .then(s128)
-        .then(s64)
-        .then(s32)
-        .then(s8);
+    let (s10, s100, s1000) = sine_chains();
     let mut group = c.benchmark_group("second order, static scalar chains");
     backward_and_hessian(&mut group, 10, &s10);
     backward_and_hessian(&mut group, 100, &s100);

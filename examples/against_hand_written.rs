@@ -6,8 +6,12 @@
 //! `cargo run --release --example against_hand_written` (add `-- quick` for
 //! fewer repetitions, as CI does).
 
+#[path = "../benches/support/chains.rs"]
+mod chains;
 #[path = "../benches/support/hand_written.rs"]
 mod hand_written;
+
+use chains::{double, sine_chains};
 
 use hand_written::{
     BATCH, Network, Params, WIDTHS, data, library_gradient, library_model, library_training, start,
@@ -18,8 +22,7 @@ use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
 use revdiff::{
-    Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Then,
-    Training,
+    Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Training,
 };
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::hint::black_box;
@@ -219,11 +222,6 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     }
 }
 
-/// `f` then `f`: chains of 2^k stages with a type of depth k.
-fn double<F: Compose + Clone>(f: F) -> Then<F, F> {
-    f.clone().then(f)
-}
-
 fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
     let x = 0.7_f64;
     let s8 = double(double(double(Sin)));
@@ -351,19 +349,7 @@ where
 }
 
 fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
-    let s8 = double(double(double(Sin)));
-    let s32 = double(double(s8));
-    let s64 = double(s32);
-    let s128 = double(s64);
-    let s256 = double(s128);
-    let s10 = s8.then(Sin).then(Sin);
-    let s100 = s64.then(s32).then(double(double(Sin)));
-    let s1000 = double(s256)
-        .then(s256)
-        .then(s128)
-        .then(s64)
-        .then(s32)
-        .then(s8);
+    let (s10, s100, s1000) = sine_chains();
     let (x, v) = (0.7_f64, 1.0_f64);
     for (n, ratio) in [
         (10, hessian_ratio(rounds, 2000, &s10, &x, &v)),

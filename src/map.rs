@@ -164,7 +164,7 @@ pub trait Reverse<A: Space>: Map<A> + Clone {
     /// its reverse map's forward pass at the same point needs, so that
     /// [`rev_forward_kept`](Reverse::rev_forward_kept) repeats no part of
     /// the forward pass. The default keeps the memo; sequential composition
-    /// ([`Then`](crate::Then)) keeps its parts' and the value between them.
+    /// ([`Then`]) keeps its parts' and the value between them.
     /// Second-order quantities go through it; a hand-written map has no
     /// reason to override it.
     fn forward_keeping(&self, x: &A) -> Result<(Self::Output, Kept)> {
@@ -173,7 +173,7 @@ pub trait Reverse<A: Space>: Map<A> + Clone {
     }
 
     /// The backward pass from what [`forward_keeping`](Reverse::forward_keeping)
-    /// kept. Something else is [`Error::ForeignMemo`](crate::Error::ForeignMemo).
+    /// kept. Something else is [`Error::ForeignMemo`].
     fn backward_kept(&self, kept: &Kept, dy: &Self::Output) -> Result<A> {
         let memo = kept
             .downcast_ref::<Self::Memo>()
@@ -187,7 +187,7 @@ pub trait Reverse<A: Space>: Map<A> + Clone {
     /// at `(x, dy)`, keeping its memo, where `kept` is what
     /// [`forward_keeping`](Reverse::forward_keeping) kept at `x`. The
     /// default evaluates `rev` afresh, which repeats this map's forward
-    /// pass; [`Then`](crate::Then) reads its parts' forward passes from
+    /// pass; [`Then`] reads its parts' forward passes from
     /// `kept` instead, so a composite's reverse map costs the same order of
     /// work as its backward pass at any depth.
     #[allow(clippy::type_complexity)]
