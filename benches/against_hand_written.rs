@@ -8,7 +8,7 @@ mod hand_written;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use hand_written::{
-    BATCH, Network, Params, data, library_gradient, library_model, library_training, start,
+    BATCH, LibraryGradient, Network, Params, data, library_model, library_training, start,
 };
 use revdiff::Examples;
 use std::hint::black_box;
@@ -34,8 +34,9 @@ fn training_step(c: &mut Criterion) {
 
     let mut group = c.benchmark_group("one gradient, 256-256-256-10, batch 128, f64");
     let input = (p0.clone(), x.clone());
+    let mut buffers = LibraryGradient::new(&p0);
     group.bench_function("library", |b| {
-        b.iter(|| black_box(library_gradient(&model, &input, &t)))
+        b.iter(|| black_box(buffers.run(&model, &input, &t)))
     });
     let mut net = Network::new(&p0);
     group.bench_function("hand-written", |b| {

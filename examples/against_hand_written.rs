@@ -14,7 +14,7 @@ mod hand_written;
 use chains::{double, sine_chains};
 
 use hand_written::{
-    BATCH, Network, Params, WIDTHS, data, library_gradient, library_model, library_training, start,
+    BATCH, LibraryGradient, Network, Params, WIDTHS, data, library_model, library_training, start,
     step_flops,
 };
 use ndarray::{Array1, Array2, ArrayD};
@@ -22,7 +22,8 @@ use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
 use revdiff::{
-    Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Training,
+    Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Space,
+    SplitInput, Training, Workspace,
 };
 use std::alloc::{GlobalAlloc, Layout, System};
 use std::hint::black_box;
@@ -144,8 +145,9 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
     let tbatch: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
     let input = (p0.clone(), xb.clone());
+    let mut buffers = LibraryGradient::new(&p0);
     let lib_gradient = || {
-        black_box(library_gradient(&model, &input, &tbatch));
+        black_box(buffers.run(&model, &input, &tbatch));
     };
     let mut net = Network::new(&p0);
     let hand_gradient = || {
@@ -154,7 +156,11 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     // Both sides compute the same gradient (checked, not assumed).
     {
         use revdiff::Euclidean;
-        let dp = library_gradient(&model, &input, &tbatch);
+        let mut check_buffers = LibraryGradient::new(&p0);
+        check_buffers.run(&model, &input, &tbatch);
+        // Twice: the second call reuses every buffer of the first.
+        check_buffers.run(&model, &input, &tbatch);
+        let dp = &check_buffers.gradient;
         let (y, _) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
         let l = MeanSquaredError.forward(&(y, tbatch.clone())).unwrap();
         let mut check = Network::new(&p0);
@@ -183,17 +189,26 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         "<= 1.05",
     ));
 
-    // Backward against forward, the library's own passes.
-    let (_, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
+    // Backward against forward, the library's own reusing passes (the
+    // backward pass skips the first layer's input change, as training does).
+    let (p, xb) = &input;
+    let mut forward_work = Workspace::new();
+    let mut backward_work = Workspace::new();
+    model.forward_split(p, xb, &mut backward_work).unwrap();
     let dy = Array2::<T>::ones((BATCH, WIDTHS[3]));
+    let mut dp = p.zero_like();
     let (back, fwd) = race(
         rounds,
         5,
         || {
-            black_box(Map::<(Params<T>, Array2<T>)>::backward_memo(&model, &memo, &dy).unwrap());
+            model
+                .backward_split(p, xb, &mut backward_work, &dy, &mut dp, None)
+                .unwrap();
+            black_box(&dp);
         },
         || {
-            black_box(Map::<(Params<T>, Array2<T>)>::forward(&model, &input).unwrap());
+            model.forward_split(p, xb, &mut forward_work).unwrap();
+            black_box(&forward_work);
         },
     );
     lines.push(at_most(
@@ -213,6 +228,19 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         };
         let (short, long) = (count(1), count(3));
         let per_step = (long - short) as f64 / (2 * STEPS_PER_EPOCH) as f64;
+        // The floor: ndarray's matrix kernel (matrixmultiply) allocates its
+        // packing buffers inside every product, hand-written code included.
+        let mut net = Network::new(&p0);
+        let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
+        let tb: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
+        net.gradient(&xb, &tb);
+        let before = ALLOCATIONS.load(Ordering::Relaxed);
+        for _ in 0..4 {
+            black_box(net.gradient(&xb, &tb));
+            net.adam(lr);
+        }
+        let hand_per_step = (ALLOCATIONS.load(Ordering::Relaxed) - before) as f64 / 4.0;
+        println!("allocations per step: library {per_step}, hand-written {hand_per_step}");
         lines.push(Line {
             measure: "heap allocations per training step after warm-up".into(),
             value: per_step,
@@ -464,6 +492,16 @@ fn main() {
         return;
     }
     let quick = args.iter().any(|a| a == "quick");
+    if args.iter().any(|a| a == "training") {
+        // Only the training lines, for working on them.
+        let mut lines = Vec::new();
+        training_lines::<f64>("f64", 3, 1, &mut lines);
+        training_lines::<f32>("f32", 3, 1, &mut lines);
+        for l in &lines {
+            println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
+        }
+        return;
+    }
     let (rounds, epochs) = if quick { (3, 1) } else { (7, 4) };
     let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
     println!(

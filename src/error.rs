@@ -99,6 +99,15 @@ pub enum Error {
         /// The map that refused it.
         operation: &'static str,
     },
+    /// A reusing backward pass (or a read of a reused output) found no
+    /// forward pass of this map in its [`Workspace`](crate::Workspace).
+    #[error(
+        "{operation}: the workspace holds no forward pass of this map; run the reusing forward pass into it first"
+    )]
+    WorkspaceNotFilled {
+        /// What needed the forward pass.
+        operation: &'static str,
+    },
     /// An input was empty where at least one element is needed.
     #[error("{operation}: empty input")]
     Empty {

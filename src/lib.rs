@@ -23,6 +23,7 @@
 //! - [`formula`]: maps written with arithmetic operators, for models.
 //! - [`higher`]: forward derivatives, Hessian-vector products, Jacobians.
 //! - [`dynamic`]: type-erased maps and run-time chains.
+//! - [`workspace`]: passes that reuse their buffers from call to call, so that training allocates nothing after its first step.
 //! - [`retention`] and [`memory`]: what a forward pass keeps for the backward pass, and its size in bytes.
 //! - [`laws`]: checkers that put any map through the laws of reverse derivatives.
 //! - [`learning`]: parametrised maps, losses, optimisers, training and least squares.
@@ -61,6 +62,7 @@ pub mod memory;
 pub mod primitives;
 pub mod retention;
 pub mod space;
+pub mod workspace;
 
 /// The ndarray this crate is built on, re-exported so that a user's arrays
 /// are of the same version: `use revdiff::ndarray;`.
@@ -86,6 +88,7 @@ pub use retention::{
     PassCost, Recomputed, Retention, RetentionComparison, RetentionRow, binomial_advances,
 };
 pub use space::{Euclidean, Pointwise, Real, RunVisitor, Scalable, Space};
+pub use workspace::{SplitInput, Workspace};
 
 /// The README's code, compiled and run as doc-tests.
 #[cfg(doctest)]

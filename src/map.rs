@@ -6,6 +6,7 @@
 use crate::combinators::{Alongside, Pair, Plus, ReversedThrough, Scaled, Then, Transpose};
 use crate::error::{Error, Result};
 use crate::space::Space;
+use crate::workspace::Workspace;
 use std::any::Any;
 use std::rc::Rc;
 
@@ -100,6 +101,45 @@ pub trait Map<A: Space>: Compose {
     fn backward(&self, x: &A, dy: &Self::Output) -> Result<A> {
         let (_, memo) = self.forward_memo(x)?;
         self.backward_memo(&memo, dy)
+    }
+
+    /// The forward pass into a [`Workspace`] kept by the caller, reusing
+    /// the buffers an earlier pass left there; returns the output, which
+    /// stays in the workspace ([`reused_output`](Map::reused_output)). The default stores the
+    /// output and memo of [`forward_memo`](Map::forward_memo); the
+    /// catalogue's elementwise maps write into the previous output's
+    /// buffer and keep nothing else. See [`crate::workspace`].
+    fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w Self::Output> {
+        let (y, memo) = self.forward_memo(x)?;
+        work.put_output(y);
+        work.put_state(memo);
+        self.reused_output(work)
+    }
+
+    /// The output of the last [`forward_reusing`](Map::forward_reusing)
+    /// (or [`forward_split`](crate::SplitInput::forward_split)) into
+    /// `work`. A map that stores its output elsewhere than
+    /// [`Workspace::put_output`] (a composite, in its last part's
+    /// workspace) overrides this.
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w Self::Output> {
+        work.output()
+    }
+
+    /// The backward pass at the point of the last
+    /// [`forward_reusing`](Map::forward_reusing) into `work`, which was
+    /// called with this same `x`: overwrites `dx` with the input change
+    /// (reshaping it if its shape is not `x`'s). Reading `x` again, rather
+    /// than a copy in a memo, is what lets a map keep nothing.
+    fn backward_reusing(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dy: &Self::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        let _ = x;
+        *dx = self.backward_memo(work.state::<Self::Memo>()?, dy)?;
+        Ok(())
     }
 }
 

@@ -270,6 +270,25 @@ pub trait Pointwise: Euclidean<Self::Elem> {
         operation: &'static str,
         f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem + Sync + Send,
     ) -> Result<Self>;
+
+    /// [`map_elems`](Pointwise::map_elems) written into `out`, in its
+    /// memory when it has `self`'s shape (else `out` is replaced).
+    fn map_elems_into(&self, out: &mut Self, f: impl Fn(Self::Elem) -> Self::Elem + Sync + Send) {
+        *out = self.map_elems(f);
+    }
+
+    /// [`zip_elems`](Pointwise::zip_elems) written into `out`, in its
+    /// memory when it has `self`'s shape (else `out` is replaced).
+    fn zip_elems_into(
+        &self,
+        other: &Self,
+        out: &mut Self,
+        operation: &'static str,
+        f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem + Sync + Send,
+    ) -> Result<()> {
+        *out = self.zip_elems(other, operation, f)?;
+        Ok(())
+    }
 }
 
 macro_rules! real_scalar_space {
@@ -435,7 +454,10 @@ impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
             .map_err(|e| Error::shape("reading an array from coordinates", self.shape_string(), e))
     }
     fn all_finite(&self) -> bool {
-        self.iter().all(|v| v.is_finite())
+        match self.as_slice_memory_order() {
+            Some(values) => all_finite_slice(values),
+            None => self.iter().all(|v| v.is_finite()),
+        }
     }
     fn zip_runs_mut(
         &mut self,
@@ -459,11 +481,21 @@ impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
     }
 }
 
+/// Whether every value is finite, in blocks whose test has no early exit,
+/// so that the compiler can vectorise it (the training loop runs it over
+/// every gradient and every set of parameters).
+fn all_finite_slice<T: Real>(values: &[T]) -> bool {
+    values
+        .chunks(256)
+        .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))
+}
+
 /// Elementwise maps over arrays at least this long split across cores
 /// (with the `threads` feature): below it, handing work to other threads
-/// costs more than it saves.
+/// costs more than it saves (at 2^15 elements, `tanh` over a 128 x 256
+/// batch, a training step was 10% slower split than not).
 #[cfg(feature = "threads")]
-const PARALLEL_FROM: usize = 1 << 15;
+const PARALLEL_FROM: usize = 1 << 17;
 
 impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
     type Elem = T;
@@ -486,6 +518,40 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
             return Ok(Zip::from(self).and(other).par_map_collect(|&a, &b| f(a, b)));
         }
         Ok(Zip::from(self).and(other).map_collect(|&a, &b| f(a, b)))
+    }
+    fn map_elems_into(&self, out: &mut Self, f: impl Fn(T) -> T + Sync + Send) {
+        if out.raw_dim() != self.raw_dim() {
+            *out = self.map_elems(f);
+            return;
+        }
+        let zip = Zip::from(out).and(self);
+        #[cfg(feature = "threads")]
+        if self.len() >= PARALLEL_FROM {
+            zip.par_for_each(|o, &v| *o = f(v));
+            return;
+        }
+        zip.for_each(|o, &v| *o = f(v));
+    }
+    fn zip_elems_into(
+        &self,
+        other: &Self,
+        out: &mut Self,
+        operation: &'static str,
+        f: impl Fn(T, T) -> T + Sync + Send,
+    ) -> Result<()> {
+        same_shape(operation, self, other)?;
+        if out.raw_dim() != self.raw_dim() {
+            *out = self.zip_elems(other, operation, f)?;
+            return Ok(());
+        }
+        let zip = Zip::from(out).and(self).and(other);
+        #[cfg(feature = "threads")]
+        if self.len() >= PARALLEL_FROM {
+            zip.par_for_each(|o, &a, &b| *o = f(a, b));
+            return Ok(());
+        }
+        zip.for_each(|o, &a, &b| *o = f(a, b));
+        Ok(())
     }
 }
 

@@ -67,24 +67,62 @@ pub fn library_training<T: Real>(
         .unwrap()
 }
 
-/// The library's gradient of mean squared error over one batch: the
-/// model's and the loss's forward and backward passes.
-pub fn library_gradient<T: Real>(
-    model: &Mlp,
-    input: &(Params<T>, Array2<T>),
-    targets: &Array2<T>,
-) -> Params<T> {
-    use revdiff::{Map, MeanSquaredError};
-    let (y, memo) = Map::<(Params<T>, Array2<T>)>::forward_memo(model, input).unwrap();
-    let (_, loss_memo) = MeanSquaredError
-        .forward_memo(&(y, targets.clone()))
-        .unwrap();
-    let (dy, _) = MeanSquaredError
-        .backward_memo(&loss_memo, &T::one())
-        .unwrap();
-    Map::<(Params<T>, Array2<T>)>::backward_memo(model, &memo, &dy)
-        .unwrap()
-        .0
+/// The buffers of the library's gradient, kept from call to call as a
+/// training loop keeps them.
+pub struct LibraryGradient<T: Real> {
+    model_work: revdiff::Workspace,
+    loss_work: revdiff::Workspace,
+    prediction_change: Array2<T>,
+    /// The last gradient.
+    pub gradient: Params<T>,
+}
+
+impl<T: Real> LibraryGradient<T> {
+    /// Empty workspaces and a zero gradient shaped like `p`.
+    pub fn new(p: &Params<T>) -> Self {
+        use revdiff::Space;
+        LibraryGradient {
+            model_work: revdiff::Workspace::new(),
+            loss_work: revdiff::Workspace::new(),
+            prediction_change: Array2::zeros((0, 0)),
+            gradient: p.zero_like(),
+        }
+    }
+
+    /// The library's gradient of mean squared error over one batch: the
+    /// model's and the loss's reusing forward and backward passes; returns
+    /// the loss.
+    pub fn run(&mut self, model: &Mlp, (p, x): &(Params<T>, Array2<T>), targets: &Array2<T>) -> T {
+        use revdiff::{MeanSquaredError, SplitInput};
+        let y = model.forward_split(p, x, &mut self.model_work).unwrap();
+        let l = *MeanSquaredError
+            .forward_split(y, targets, &mut self.loss_work)
+            .unwrap();
+        if self.prediction_change.dim() != y.dim() {
+            self.prediction_change = Array2::zeros(y.dim());
+        }
+        MeanSquaredError
+            .backward_split(
+                y,
+                targets,
+                &mut self.loss_work,
+                &T::one(),
+                &mut self.prediction_change,
+                None,
+            )
+            .unwrap();
+        model
+            .backward_split(
+                p,
+                x,
+                &mut self.model_work,
+                &self.prediction_change,
+                &mut self.gradient,
+                None,
+            )
+            .unwrap();
+        l
+    }
 }
 
 /// Deterministic starting parameters, scaled by `1 / sqrt(fan in)`.

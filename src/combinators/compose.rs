@@ -5,6 +5,7 @@ use crate::combinators::{AddPair, Fst, Snd};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Kept, Linear, Map, Reverse};
 use crate::space::{Scalable, Space};
+use crate::workspace::{SplitInput, Workspace, shaped_like};
 use std::rc::Rc;
 
 /// Sequential composition in diagrammatic order: first `f`, then `g`.
@@ -198,6 +199,78 @@ impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
         let (rf, rg) = memo;
         let dy = self.second.backward_memo(rg, dz)?;
         self.first.backward_memo(rf, &dy)
+    }
+    fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w G::Output> {
+        let w = work.state_or_insert_with(TwoStageWork::<F::Output>::default);
+        let y = self.first.forward_reusing(x, &mut w.first)?;
+        self.second.forward_reusing(y, &mut w.second)
+    }
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w G::Output> {
+        let w = work.state::<TwoStageWork<F::Output>>()?;
+        self.second.reused_output(&w.second)
+    }
+    fn backward_reusing(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dz: &G::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
+        let y = self.first.reused_output(&w.first)?;
+        let dy = shaped_like(&mut w.between_change, y);
+        self.second.backward_reusing(y, &mut w.second, dz, dy)?;
+        self.first.backward_reusing(x, &mut w.first, dy, dx)
+    }
+}
+
+/// What a two-stage composite ([`Then`], and parametrised composites)
+/// keeps in its workspace: each stage's own, and the buffer for the change
+/// of the value between them.
+pub(crate) struct TwoStageWork<B> {
+    pub(crate) first: Workspace,
+    pub(crate) second: Workspace,
+    pub(crate) between_change: Option<B>,
+}
+
+impl<B> Default for TwoStageWork<B> {
+    fn default() -> Self {
+        TwoStageWork {
+            first: Workspace::new(),
+            second: Workspace::new(),
+            between_change: None,
+        }
+    }
+}
+
+/// A parametrised map then an ordinary one, `(p, x) -> g(f(p, x))`, with
+/// the parameters and input taken apart.
+impl<P, X, F, G> SplitInput<P, X> for Then<F, G>
+where
+    P: Space,
+    X: Space,
+    F: SplitInput<P, X>,
+    G: Map<F::Output>,
+{
+    fn forward_split<'w>(&self, p: &P, x: &X, work: &'w mut Workspace) -> Result<&'w G::Output> {
+        let w = work.state_or_insert_with(TwoStageWork::<F::Output>::default);
+        let y = self.first.forward_split(p, x, &mut w.first)?;
+        self.second.forward_reusing(y, &mut w.second)
+    }
+    fn backward_split(
+        &self,
+        p: &P,
+        x: &X,
+        work: &mut Workspace,
+        dz: &G::Output,
+        dp: &mut P,
+        dx: Option<&mut X>,
+    ) -> Result<()> {
+        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
+        let y = self.first.reused_output(&w.first)?;
+        let dy = shaped_like(&mut w.between_change, y);
+        self.second.backward_reusing(y, &mut w.second, dz, dy)?;
+        self.first.backward_split(p, x, &mut w.first, dy, dp, dx)
     }
 }
 

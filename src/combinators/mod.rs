@@ -4,7 +4,7 @@
 //! reverse derivative is assembled from combinators by the standard formulas
 //! (chain rule for [`Then`], sum for [`Pair`], and so on).
 
-mod compose;
+pub(crate) mod compose;
 mod reversed_through;
 mod structural;
 

@@ -6,6 +6,7 @@ use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
 use crate::space::{Real, shape_tuple};
+use crate::workspace::SplitInput;
 use ndarray::linalg::general_mat_mul;
 use ndarray::{Array1, Array2, Axis};
 use rand::rngs::StdRng;
@@ -254,6 +255,8 @@ impl<T> fmt::Debug for StageMemo<T> {
         })
     }
 }
+
+impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {}
 
 impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
     type Output = Array2<T>;

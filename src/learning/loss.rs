@@ -32,6 +32,7 @@ use crate::primitives::{
     Clamp, Dot, ElementReduction, LogSumExp, MulPair, Powi, Softplus, SubPair, dot,
 };
 use crate::space::{Real, same_shape};
+use crate::workspace::{SplitInput, Workspace, reshape_to};
 use ndarray::{Array, Axis, Dimension, Ix1, Zip};
 
 /// A prediction and its target, arrays of the same shape.
@@ -298,6 +299,72 @@ impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for MeanSquaredError {
         Ok(opposite_pair(slope, *dl))
     }
 }
+
+/// The residuals go into a buffer kept in the workspace, and the
+/// prediction change into the caller's: no allocation after the first call,
+/// and the same arithmetic, in the same order, as the memo passes.
+impl<T: Real, D: Dimension + 'static> SplitInput<Array<T, D>, Array<T, D>> for MeanSquaredError {
+    fn forward_split<'w>(
+        &self,
+        y: &Array<T, D>,
+        t: &Array<T, D>,
+        work: &'w mut Workspace,
+    ) -> Result<&'w T> {
+        let operation = "mean squared error";
+        same_shape(operation, y, t)?;
+        nonempty(operation, y)?;
+        let r = work.state_or_insert_with(|| y.clone());
+        if r.raw_dim() != y.raw_dim() {
+            *r = y.clone();
+        }
+        Zip::from(&mut *r)
+            .and(y)
+            .and(t)
+            .for_each(|r, &a, &b| *r = a - b);
+        let n: T = real(r.len() as f64);
+        let value = r.fold(T::zero(), |acc, &v| acc + v * v) / n;
+        work.put_output(value);
+        work.output::<T>()
+    }
+    fn backward_split(
+        &self,
+        y: &Array<T, D>,
+        t: &Array<T, D>,
+        work: &mut Workspace,
+        dl: &T,
+        dy: &mut Array<T, D>,
+        dt: Option<&mut Array<T, D>>,
+    ) -> Result<()> {
+        let r = work.state::<Array<T, D>>()?;
+        same_shape(
+            "mean squared error (predictions against the kept forward pass)",
+            y,
+            r,
+        )?;
+        let (n, dl): (T, T) = (real(r.len() as f64), *dl);
+        let c = real::<T>(2.0) / n;
+        reshape_to(dy, y);
+        Zip::from(&mut *dy).and(r).for_each(|d, &r| *d = r * c * dl);
+        if let Some(dt) = dt {
+            reshape_to(dt, t);
+            Zip::from(dt).and(&*dy).for_each(|d, &v| *d = -v);
+        }
+        Ok(())
+    }
+}
+
+/// The other losses keep their memo passes.
+macro_rules! split_by_memo {
+    ($($loss:ty),*) => {$(
+        impl<T: Real, D: Dimension + 'static> SplitInput<Array<T, D>, Array<T, D>> for $loss {}
+    )*};
+}
+split_by_memo!(
+    SquaredError,
+    LogitCrossEntropy,
+    LogitBinaryCrossEntropy,
+    Huber<T>
+);
 
 impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitCrossEntropy {
     type Output = T;

@@ -101,11 +101,7 @@ pub trait Optimiser<R: Real> {
                 detail: format!("{} at gradient coordinate {i}", coords[i]),
             });
         }
-        // Shapes are checked before the step is counted.
-        params.zip_runs_mut(gradient, 0, &mut |_, _, _| {})?;
-        self.begin_update(n)?;
-        params.zip_runs_mut(gradient, 0, &mut |at, p, g| self.step_run(at, p, g))?;
-        Ok(())
+        step_finite(self, params, gradient)
     }
 
     /// The parameters after one update with `gradient`, as a new value;
@@ -118,6 +114,21 @@ pub trait Optimiser<R: Real> {
         self.update_in_place(&mut next, gradient)?;
         Ok(next)
     }
+}
+
+/// [`Optimiser::update_in_place`] for a gradient already known to be
+/// finite and of the parameters' dimension (the training loop checks both
+/// itself): checks the shapes part by part, then steps.
+pub(crate) fn step_finite<R: Real, O: Optimiser<R>, P: Euclidean<R>>(
+    optimiser: &mut O,
+    params: &mut P,
+    gradient: &P,
+) -> Result<()> {
+    // Shapes are checked before the step is counted.
+    params.zip_runs_mut(gradient, 0, &mut |_, _, _| {})?;
+    optimiser.begin_update(params.dimension())?;
+    params.zip_runs_mut(gradient, 0, &mut |at, p, g| optimiser.step_run(at, p, g))?;
+    Ok(())
 }
 
 /// State vectors of one length, made at the first update, and the rate and

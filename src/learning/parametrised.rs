@@ -15,10 +15,12 @@
 //! its reverse derivative as a map is that of an equal composite of the
 //! catalogue's combinators, so every order exists.
 
+use crate::combinators::compose::TwoStageWork;
 use crate::combinators::{Alongside, Constant, Duplicate, Fst, Id, Pair, Snd, Then};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Kept, Map, Reverse};
 use crate::space::Space;
+use crate::workspace::{SplitInput, Workspace, shaped_like};
 use std::rc::Rc;
 
 /// The methods that build parametrised maps, provided for every map.
@@ -278,6 +280,52 @@ where
         let (dp, da) = self.first.backward_memo(rf, &db)?;
         Ok(((dp, dq), da))
     }
+    // After `forward_split` the output is the second stage's; after the
+    // default `forward_reusing` it is where that default put it.
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w G::Output> {
+        match work.state::<TwoStageWork<F::Output>>() {
+            Ok(w) => self.second.reused_output(&w.second),
+            Err(_) => work.output(),
+        }
+    }
+}
+
+/// The stages take their own parameters and the running value by
+/// reference: no pair is built, nothing is copied.
+impl<P, Q, A, F, G> SplitInput<(P, Q), A> for ThenParametrised<F, G>
+where
+    P: Space,
+    Q: Space,
+    A: Space,
+    F: SplitInput<P, A>,
+    G: SplitInput<Q, F::Output>,
+{
+    fn forward_split<'w>(
+        &self,
+        (p, q): &(P, Q),
+        a: &A,
+        work: &'w mut Workspace,
+    ) -> Result<&'w G::Output> {
+        let w = work.state_or_insert_with(TwoStageWork::<F::Output>::default);
+        let b = self.first.forward_split(p, a, &mut w.first)?;
+        self.second.forward_split(q, b, &mut w.second)
+    }
+    fn backward_split(
+        &self,
+        (p, q): &(P, Q),
+        a: &A,
+        work: &mut Workspace,
+        dc: &G::Output,
+        (dp, dq): &mut (P, Q),
+        da: Option<&mut A>,
+    ) -> Result<()> {
+        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
+        let b = self.first.reused_output(&w.first)?;
+        let db = shaped_like(&mut w.between_change, b);
+        self.second
+            .backward_split(q, b, &mut w.second, dc, dq, Some(&mut *db))?;
+        self.first.backward_split(p, a, &mut w.first, db, dp, da)
+    }
 }
 
 impl<P, Q, A, F, G> Reverse<((P, Q), A)> for ThenParametrised<F, G>
@@ -476,6 +524,15 @@ where
         let (dp, da) = self.map.backward_memo(rf, dy)?;
         Ok((self.through.backward_memo(rr, &dp)?, da))
     }
+}
+
+impl<Q, A, F, R> SplitInput<Q, A> for Reparametrised<F, R>
+where
+    Q: Space,
+    A: Space,
+    R: Map<Q>,
+    F: Map<(R::Output, A)>,
+{
 }
 
 impl<Q, A, F, R> Reverse<(Q, A)> for Reparametrised<F, R>

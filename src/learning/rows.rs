@@ -11,6 +11,7 @@
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::space::{Real, Space, shape_tuple};
+use crate::workspace::SplitInput;
 use ndarray::{Array1, Array2, ArrayView1, Axis};
 
 /// A model for one example, `(P, x) -> y` with vectors `x` and `y`, lifted
@@ -154,6 +155,21 @@ impl<L: Compose> Compose for RowMean<L> {
     fn boxed_depth(&self) -> usize {
         self.loss.boxed_depth()
     }
+}
+
+impl<T, P, M> SplitInput<P, Array2<T>> for Rowwise<M>
+where
+    T: Real,
+    P: Space,
+    M: Map<(P, Array1<T>), Output = Array1<T>>,
+{
+}
+
+impl<T, L> SplitInput<Array2<T>, Array2<T>> for RowMean<L>
+where
+    T: Real,
+    L: Map<(Array1<T>, Array1<T>), Output = T>,
+{
 }
 
 impl<T, L> Map<(Array2<T>, Array2<T>)> for RowMean<L>

@@ -2,9 +2,10 @@
 //! and an in-memory dataset of ndarray rows.
 
 use crate::error::{Error, Result};
-use crate::learning::optimise::Optimiser;
+use crate::learning::optimise::{Optimiser, step_finite};
 use crate::map::Map;
 use crate::space::{Euclidean, Real, Space};
+use crate::workspace::{SplitInput, Workspace, reshape_to};
 use ndarray::{Array1, Array2, Axis, Slice};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
@@ -417,8 +418,8 @@ impl Training {
         T: Real,
         P: Euclidean<T>,
         B: Space,
-        M: Map<(P, Array2<T>), Output = B>,
-        L: Map<(B, Array2<T>), Output = T>,
+        M: SplitInput<P, Array2<T>, Output = B>,
+        L: SplitInput<B, Array2<T>, Output = T>,
         O: Optimiser<T>,
         V: ObserverVerdict,
     {
@@ -429,7 +430,7 @@ impl Training {
             start,
             data,
             observer,
-            |batch, input| batch.gradient(model, loss, input),
+            |batch, input, gradient| batch.gradient(model, loss, input, gradient),
         )
     }
 
@@ -504,8 +505,11 @@ impl Training {
             start,
             data,
             observer,
-            |batch, input| {
-                batch.sharded_gradient(model, loss, input, shards, &mut inputs, reduction)
+            |batch, input, gradient| {
+                let (l, g) =
+                    batch.sharded_gradient(model, loss, input, shards, &mut inputs, reduction)?;
+                *gradient = g;
+                Ok(l)
             },
         )
     }
@@ -519,7 +523,7 @@ impl Training {
         start: P,
         data: &Examples<T>,
         mut observer: impl FnMut(&Progress<'_, T, P>) -> V,
-        mut gradient: impl FnMut(&mut Batch<T>, &(P, Array2<T>)) -> Result<(T, P)>,
+        mut gradient: impl FnMut(&mut Batch<T>, &(P, Array2<T>), &mut P) -> Result<T>,
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
         T: Real,
@@ -553,6 +557,8 @@ impl Training {
         let kept_start = start.clone();
         let mut epoch_snapshot = start.clone();
         let mut batch = Batch::new(&train);
+        // The gradient's buffer, overwritten every step.
+        let mut grad = start.zero_like();
         let mut input: (P, Array2<T>) = (start, Array2::zeros((0, train.inputs.ncols())));
         let mut order: Vec<usize> = (0..train.len()).collect();
         let mut steps_taken = 0;
@@ -591,17 +597,27 @@ impl Training {
                     }
                 };
                 batch.gather(&train, rows, &mut input.1);
-                let (batch_loss, gradient) = match gradient(&mut batch, &input) {
-                    Ok(lg) => lg,
+                let batch_loss = match gradient(&mut batch, &input, &mut grad) {
+                    Ok(l) => l,
                     Err(e) => return Err(fail(e, input, true)),
                 };
                 if !batch_loss.is_finite() {
                     return Err(fail(diverged("loss"), input, true));
                 }
-                if !gradient.all_finite() {
+                if !grad.all_finite() {
                     return Err(fail(diverged("gradient"), input, true));
                 }
-                if let Err(e) = optimiser.update_in_place(&mut input.0, &gradient) {
+                if grad.dimension() != input.0.dimension() {
+                    let error = Error::CoordinateCount {
+                        operation: "training (the model's parameter change against its parameters)",
+                        expected: input.0.dimension(),
+                        found: grad.dimension(),
+                    };
+                    return Err(fail(error, input, true));
+                }
+                // The gradient was just found finite; `update_in_place`
+                // would look again.
+                if let Err(e) = step_finite(optimiser, &mut input.0, &grad) {
                     return Err(fail(e, input, true));
                 }
                 if !input.0.all_finite() {
@@ -696,15 +712,23 @@ fn count<T: Real>(n: usize) -> T {
     T::from(n).expect("row counts fit every real type")
 }
 
-/// The batch buffers of a run, reused from step to step.
+/// The batch buffers of a run, reused from step to step: the targets, and
+/// the workspaces of the model's and the loss's passes and of the change
+/// of the prediction between them.
 struct Batch<T> {
     targets: Array2<T>,
+    model_work: Workspace,
+    loss_work: Workspace,
+    prediction_change: Workspace,
 }
 
 impl<T: Real> Batch<T> {
     fn new(data: &Examples<T>) -> Self {
         Batch {
             targets: Array2::zeros((0, data.targets.ncols())),
+            model_work: Workspace::new(),
+            loss_work: Workspace::new(),
+            prediction_change: Workspace::new(),
         }
     }
 
@@ -716,30 +740,31 @@ impl<T: Real> Batch<T> {
         gather_rows(&data.targets, rows, &mut self.targets);
     }
 
-    /// The batch loss and its parameter gradient: one forward and one
-    /// backward pass of the model and of the loss.
+    /// The batch loss, and its parameter gradient into `gradient`: one
+    /// forward and one backward pass of the model and of the loss, each
+    /// into its kept workspace. No input change is asked of the model.
     fn gradient<P, B, M, L>(
         &mut self,
         model: &M,
         loss: &L,
-        input: &(P, Array2<T>),
-    ) -> Result<(T, P)>
+        (p, x): &(P, Array2<T>),
+        gradient: &mut P,
+    ) -> Result<T>
     where
         P: Euclidean<T>,
         B: Space,
-        M: Map<(P, Array2<T>), Output = B>,
-        L: Map<(B, Array2<T>), Output = T>,
+        M: SplitInput<P, Array2<T>, Output = B>,
+        L: SplitInput<B, Array2<T>, Output = T>,
     {
-        let (y, model_memo) = model.forward_memo(input)?;
-        // The targets move into the loss's input and back: no copy.
-        let targets = std::mem::replace(&mut self.targets, Array2::zeros((0, 0)));
-        let pair = (y, targets);
-        let result = loss.forward_memo(&pair);
-        self.targets = pair.1;
-        let (l, loss_memo) = result?;
-        let (dy, _) = loss.backward_memo(&loss_memo, &T::one())?;
-        let (dp, _) = model.backward_memo(&model_memo, &dy)?;
-        Ok((l, dp))
+        let y = model.forward_split(p, x, &mut self.model_work)?;
+        let l = *loss.forward_split(y, &self.targets, &mut self.loss_work)?;
+        let dy = self
+            .prediction_change
+            .output_or_insert_with(|| y.zero_like());
+        reshape_to(dy, y);
+        loss.backward_split(y, &self.targets, &mut self.loss_work, &T::one(), dy, None)?;
+        model.backward_split(p, x, &mut self.model_work, dy, gradient, None)?;
+        Ok(l)
     }
 }
 

@@ -11,8 +11,9 @@ use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::primitives::{Affine, MatMul};
 use crate::space::{Real, shape_tuple};
+use crate::workspace::{SplitInput, Workspace, reshape_to};
 use ndarray::linalg::general_mat_mul;
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2, Axis, Zip};
 
 /// The sum of a matrix's rows, `X -> 1' X`, a linear map `Array2 -> Array1`:
 /// over a batch, the total of each column.
@@ -137,6 +138,10 @@ pub fn affine_batch_composite() -> AffineBatchComposite {
 
 /// Checks `W` `(m, n)`, `b` `(m,)` and `X` `(k, n)`.
 fn check_batch<T>(((w, b), x): &AffineBatch<T>) -> Result<()> {
+    check_batch_parts(w, b, x)
+}
+
+fn check_batch_parts<T>(w: &Array2<T>, b: &Array1<T>, x: &Array2<T>) -> Result<()> {
     if b.len() != w.nrows() {
         return Err(Error::shape(
             "affine map (bias length must equal weight rows)",
@@ -171,13 +176,7 @@ impl<T: Real> Map<AffineBatch<T>> for Affine {
         Ok((y, (w.clone(), x.clone())))
     }
     fn backward_memo(&self, (w, x): &Self::Memo, dy: &Array2<T>) -> Result<AffineBatch<T>> {
-        if dy.dim() != (x.nrows(), w.nrows()) {
-            return Err(Error::OutputChangeShape {
-                map: "affine map",
-                expected: shape_tuple(&[x.nrows(), w.nrows()]),
-                found: shape_tuple(dy.shape()),
-            });
-        }
+        check_output_change(x.nrows(), w.nrows(), dy)?;
         // dW = dY' X, db = 1' dY, dX = dY W: three kernel calls, no strided loops.
         let dw = dy.t().dot(x);
         let db = dy.sum_axis(Axis(0));
@@ -185,6 +184,67 @@ impl<T: Real> Map<AffineBatch<T>> for Affine {
         Ok(((dw, db), dx))
     }
 }
+
+fn check_output_change<T>(rows: usize, outputs: usize, dy: &Array2<T>) -> Result<()> {
+    if dy.dim() != (rows, outputs) {
+        return Err(Error::OutputChangeShape {
+            map: "affine map",
+            expected: shape_tuple(&[rows, outputs]),
+            found: shape_tuple(dy.shape()),
+        });
+    }
+    Ok(())
+}
+
+/// The batched affine map with its weights, bias and rows borrowed: the
+/// output goes into the workspace's buffer, the changes into the caller's,
+/// each by one matrix product; nothing is kept.
+impl<T: Real> SplitInput<(Array2<T>, Array1<T>), Array2<T>> for Affine {
+    fn forward_split<'w>(
+        &self,
+        (w, b): &(Array2<T>, Array1<T>),
+        x: &Array2<T>,
+        work: &'w mut Workspace,
+    ) -> Result<&'w Array2<T>> {
+        check_batch_parts(w, b, x)?;
+        let shape = (x.nrows(), w.nrows());
+        let y = work.output_or_insert_with(|| Array2::<T>::zeros(shape));
+        if y.dim() != shape {
+            *y = Array2::zeros(shape);
+        }
+        // Start from the bias in every row, then one product adds X W'.
+        y.assign(&b.broadcast(shape).expect("the bias length was checked"));
+        general_mat_mul(T::one(), x, &w.t(), T::one(), y);
+        Ok(y)
+    }
+    fn backward_split(
+        &self,
+        (w, b): &(Array2<T>, Array1<T>),
+        x: &Array2<T>,
+        _work: &mut Workspace,
+        dy: &Array2<T>,
+        (dw, db): &mut (Array2<T>, Array1<T>),
+        dx: Option<&mut Array2<T>>,
+    ) -> Result<()> {
+        check_batch_parts(w, b, x)?;
+        check_output_change(x.nrows(), w.nrows(), dy)?;
+        reshape_to(dw, w);
+        reshape_to(db, b);
+        general_mat_mul(T::one(), &dy.t(), x, T::zero(), dw);
+        db.fill(T::zero());
+        for row in dy.rows() {
+            Zip::from(&mut *db).and(&row).for_each(|s, &r| *s = *s + r);
+        }
+        if let Some(dx) = dx {
+            reshape_to(dx, x);
+            general_mat_mul(T::one(), dy, w, T::zero(), dx);
+        }
+        Ok(())
+    }
+}
+
+/// One example at a time: the memo passes.
+impl<T: Real> SplitInput<(Array2<T>, Array1<T>), Array1<T>> for Affine {}
 
 impl<T: Real> Reverse<AffineBatch<T>> for Affine {
     type Rev = <AffineBatchComposite as Reverse<AffineBatch<T>>>::Rev;

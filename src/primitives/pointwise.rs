@@ -17,6 +17,7 @@ use crate::combinators::{Fst, Id, MultiplyBy, Pair, Snd, Then, ZeroMap};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
+use crate::workspace::Workspace;
 
 impl Compose for Exp {}
 impl Compose for ExpMinusOne {}
@@ -130,10 +131,31 @@ macro_rules! elementwise {
                 kept.zip_elems(dy, name, |$k, $d| $product)
                     .map_err(|e| e.in_output_change(name))
             }
+            // The reusing passes keep no memo: the output stays in the
+            // workspace and the backward pass is handed the input again.
+            fn forward_reusing<'w>(&self, x: &E, work: &'w mut Workspace) -> Result<&'w E> {
+                Elementwise::<E::Elem>::settings(self)?;
+                let f = |v| Elementwise::<E::Elem>::value(self, v);
+                match work.output_mut::<E>() {
+                    Some(y) => x.map_elems_into(y, f),
+                    None => work.put_output(x.map_elems(f)),
+                }
+                work.output::<E>()
+            }
+            fn backward_reusing(&self, x: &E, work: &mut Workspace, dy: &E, dx: &mut E) -> Result<()> {
+                Elementwise::<E::Elem>::settings(self)?;
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                let $map = self;
+                let kept = elementwise!(@kept_ref $which, x, work);
+                kept.zip_elems_into(dy, dx, name, |$k, $d| $product)
+                    .map_err(|e| e.in_output_change(name))
+            }
         }
     };
     (@kept input, $x:ident, $y:ident) => { $x.clone() };
     (@kept output, $x:ident, $y:ident) => { $y.clone() };
+    (@kept_ref input, $x:ident, $w:ident) => {{ let _ = &$w; $x }};
+    (@kept_ref output, $x:ident, $w:ident) => {{ let _ = $x; $w.output::<E>()? }};
     (@reverse [$($gen:tt)*] $ty:ty, $slope_ty:ty, |$s:ident| $slope:expr) => {
         impl<$($gen)*> Reverse<E> for $ty {
             type Rev = ElementwiseRev<$slope_ty>;

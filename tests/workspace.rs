@@ -1,0 +1,263 @@
+//! The reusing passes: into a kept workspace, they give what the memo
+//! passes give, on the first call and on every later one, whatever the
+//! batch sizes in between; and training through them gives what training
+//! through the memo passes gives.
+
+use ndarray::{Array1, Array2, array};
+use proptest::prelude::*;
+use revdiff::*;
+
+type Layer = (Array2<f64>, Array1<f64>);
+type Params3 = ((Layer, Layer), Layer);
+
+fn model() -> impl SplitInput<Params3, Array2<f64>, Output = Array2<f64>> + Clone {
+    Affine
+        .then(Tanh)
+        .then_parametrised(Affine.then(Sigmoid))
+        .then_parametrised(Affine)
+}
+
+fn layer(out: usize, inp: usize, seed: usize) -> Layer {
+    let w = Array2::from_shape_fn((out, inp), |(i, j)| {
+        ((i * 7 + j * 3 + seed * 5) % 11) as f64 / 5.5 - 1.0
+    });
+    let b = Array1::from_shape_fn(out, |i| ((i + seed) % 3) as f64 * 0.1 - 0.1);
+    (w, b)
+}
+
+fn params() -> Params3 {
+    ((layer(4, 3, 1), layer(5, 4, 2)), layer(2, 5, 3))
+}
+
+fn rows(n: usize, seed: usize) -> Array2<f64> {
+    Array2::from_shape_fn((n, 3), |(i, j)| {
+        ((i * 5 + j * 13 + seed) % 17) as f64 / 8.5 - 1.0
+    })
+}
+
+/// The largest difference between two values' coordinates.
+fn gap<S: Euclidean<f64>>(a: &S, b: &S) -> f64 {
+    assert_eq!(a.dimension(), b.dimension());
+    a.coordinates()
+        .iter()
+        .zip(b.coordinates())
+        .fold(0.0, |m, (x, y)| m.max((x - y).abs()))
+}
+
+#[test]
+fn reusing_passes_equal_the_memo_passes_on_every_call_and_batch_size() {
+    let (model, p) = (model(), params());
+    let mut work = Workspace::new();
+    let mut dp = p.zero_like();
+    let mut dx = Array2::zeros((0, 0));
+    // A batch size changes between calls (as the last batch of an epoch
+    // does), then comes back: each call must still be right.
+    for (n, seed) in [(6, 0), (6, 1), (2, 2), (6, 3)] {
+        let x = rows(n, seed);
+        let dy = Array2::from_shape_fn((n, 2), |(i, j)| (i as f64 - j as f64) * 0.3 + 0.1);
+        let y = model.forward_split(&p, &x, &mut work).unwrap().clone();
+        let input = (p.clone(), x.clone());
+        assert_eq!(y, model.forward(&input).unwrap());
+        model
+            .backward_split(&p, &x, &mut work, &dy, &mut dp, Some(&mut dx))
+            .unwrap();
+        let (expected_dp, expected_dx) = model.backward(&input, &dy).unwrap();
+        assert!(
+            gap(&dp, &expected_dp) < 1e-14,
+            "batch {n}: {}",
+            gap(&dp, &expected_dp)
+        );
+        assert!(gap(&dx, &expected_dx) < 1e-14, "batch {n}");
+        // Without an input change the parameter change is the same.
+        let mut dp_only = p.zero_like();
+        model
+            .backward_split(&p, &x, &mut work, &dy, &mut dp_only, None)
+            .unwrap();
+        assert_eq!(dp_only, dp);
+        assert_eq!(model.reused_output(&work).unwrap(), &y);
+    }
+}
+
+#[test]
+fn elementwise_maps_reuse_their_output_and_read_the_input_again() {
+    let x = array![[0.3, -1.2, 2.0], [0.0, 0.7, -0.4]];
+    let dy = array![[1.0, -0.5, 0.25], [2.0, 0.0, -1.0]];
+    fn check<F: Map<Array2<f64>, Output = Array2<f64>>>(f: F, x: &Array2<f64>, dy: &Array2<f64>) {
+        let mut work = Workspace::new();
+        let mut dx = Array2::zeros((1, 1)); // the wrong shape: reshaped
+        for _ in 0..2 {
+            let y = f.forward_reusing(x, &mut work).unwrap().clone();
+            assert_eq!(y, f.forward(x).unwrap());
+            f.backward_reusing(x, &mut work, dy, &mut dx).unwrap();
+            assert_eq!(dx, f.backward(x, dy).unwrap());
+        }
+    }
+    // Tanh and sigmoid keep their output, exp and sin their input.
+    check(Tanh, &x, &dy);
+    check(Sigmoid, &x, &dy);
+    check(Exp, &x, &dy);
+    check(Sin, &x, &dy);
+    check(Tanh.then(Sin).then(Exp), &x, &dy);
+    // A map with only the memo passes goes through the defaults.
+    check(Softmax, &x, &dy);
+}
+
+#[test]
+fn the_mean_squared_error_reusing_passes_give_both_changes() {
+    let y = array![[1.0, 2.0], [0.5, -1.0]];
+    let t = array![[0.0, 2.5], [0.5, 1.0]];
+    let mut work = Workspace::new();
+    let l = *MeanSquaredError.forward_split(&y, &t, &mut work).unwrap();
+    assert_eq!(
+        l,
+        MeanSquaredError.forward(&(y.clone(), t.clone())).unwrap()
+    );
+    let (mut dy, mut dt) = (Array2::zeros((2, 2)), Array2::zeros((2, 2)));
+    MeanSquaredError
+        .backward_split(&y, &t, &mut work, &2.0, &mut dy, Some(&mut dt))
+        .unwrap();
+    let (ey, et) = MeanSquaredError.backward(&(y, t), &2.0).unwrap();
+    assert_eq!((dy, dt), (ey, et));
+}
+
+#[test]
+fn a_backward_pass_before_any_forward_pass_is_an_error() {
+    let p = params();
+    let x = rows(3, 0);
+    let mut dp = p.zero_like();
+    let err = model()
+        .backward_split(
+            &p,
+            &x,
+            &mut Workspace::new(),
+            &Array2::zeros((3, 2)),
+            &mut dp,
+            None,
+        )
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    let mut dx = x.clone();
+    let err = Tanh
+        .backward_reusing(&x, &mut Workspace::new(), &x, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+}
+
+#[test]
+fn bad_shapes_are_refused_by_the_reusing_passes() {
+    let p = params();
+    let mut work = Workspace::new();
+    // Rows of the wrong width.
+    let err = model()
+        .forward_split(&p, &Array2::zeros((2, 4)), &mut work)
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+    // An output change of the wrong shape.
+    let x = rows(3, 0);
+    model().forward_split(&p, &x, &mut work).unwrap();
+    let mut dp = p.zero_like();
+    let err = model()
+        .backward_split(&p, &x, &mut work, &Array2::zeros((3, 3)), &mut dp, None)
+        .unwrap_err();
+    assert!(matches!(err, Error::OutputChangeShape { .. }), "{err}");
+    // Predictions and targets of different shapes.
+    let err = MeanSquaredError
+        .forward_split(
+            &Array2::<f64>::zeros((2, 2)),
+            &Array2::zeros((2, 3)),
+            &mut work,
+        )
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+}
+
+/// A model that has only the memo passes: `SplitInput`'s defaults.
+#[derive(Clone, Debug)]
+struct MemoOnly<M>(M);
+impl<M> Compose for MemoOnly<M> {}
+impl<A: Space, M: Map<A>> Map<A> for MemoOnly<M> {
+    type Output = M::Output;
+    type Memo = M::Memo;
+    fn forward_memo(&self, x: &A) -> Result<(M::Output, M::Memo)> {
+        self.0.forward_memo(x)
+    }
+    fn backward_memo(&self, memo: &M::Memo, dy: &M::Output) -> Result<A> {
+        self.0.backward_memo(memo, dy)
+    }
+}
+impl<P: Space, X: Space, M: Map<(P, X)>> SplitInput<P, X> for MemoOnly<M> {}
+
+#[test]
+fn training_through_reused_buffers_equals_training_through_memos() {
+    // 22 rows in batches of 4: the last batch of each epoch has 2 rows, so
+    // the buffers change shape and back every epoch.
+    let x = rows(22, 4);
+    let t = Array2::from_shape_fn((22, 2), |(i, j)| ((i + 3 * j) % 5) as f64 / 5.0);
+    let data = Examples::new(x, t).unwrap();
+    let training = Training::new(6, 4).unwrap();
+    let run = |fast: bool| {
+        let mut adam = Adam::new(0.01).unwrap();
+        if fast {
+            training.run(
+                &model(),
+                &MeanSquaredError,
+                &mut adam,
+                params(),
+                &data,
+                |_| {},
+            )
+        } else {
+            let slow = MemoOnly(model());
+            training.run(
+                &slow,
+                &MemoOnly(MeanSquaredError),
+                &mut adam,
+                params(),
+                &data,
+                |_| {},
+            )
+        }
+        .unwrap()
+    };
+    let (fast, slow) = (run(true), run(false));
+    assert_eq!(fast.steps, 36);
+    assert!(gap(&fast.parameters, &slow.parameters) < 1e-12);
+    // The parameters moved: the comparison is not of two starts.
+    assert!(gap(&fast.parameters, &params()) > 1e-3);
+    for (a, b) in fast.epoch_losses.iter().zip(&slow.epoch_losses) {
+        assert!((a - b).abs() <= 1e-12 * a.abs());
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(64))]
+    /// On random parameters, rows and output changes, reused buffers give
+    /// the memo passes' changes, to rounding.
+    #[test]
+    fn reusing_matches_memo_on_random_points(
+        scale in 0.1..3.0_f64,
+        shift in -1.0..1.0_f64,
+        n in 1usize..7,
+        seed in 0usize..50,
+    ) {
+        let ((l1, l2), l3) = params();
+        let p = (((&l1.0 * scale, &l1.1 + shift), l2), l3);
+        let x = rows(n, seed) * scale;
+        let dy = Array2::from_shape_fn((n, 2), |(i, j)| ((i * 3 + j + seed) % 7) as f64 - 3.0);
+        let model = model();
+        let mut work = Workspace::new();
+        // A first call at another batch size, so the second reuses and reshapes.
+        let other = rows(n + 2, seed + 1);
+        model.forward_split(&p, &other, &mut work).unwrap();
+        let y = model.forward_split(&p, &x, &mut work).unwrap().clone();
+        let input = (p.clone(), x.clone());
+        prop_assert_eq!(&y, &model.forward(&input).unwrap());
+        let mut dp = p.zero_like();
+        let mut dx = Array2::zeros((0, 0));
+        model.backward_split(&p, &x, &mut work, &dy, &mut dp, Some(&mut dx)).unwrap();
+        let (edp, edx) = model.backward(&input, &dy).unwrap();
+        let size = edp.coordinates().iter().fold(1.0_f64, |m, v| m.max(v.abs()));
+        prop_assert!(gap(&dp, &edp) <= 1e-13 * size, "parameter change off by {}", gap(&dp, &edp));
+        prop_assert!(gap(&dx, &edx) <= 1e-13 * size, "input change off by {}", gap(&dx, &edx));
+    }
+}
