@@ -445,7 +445,9 @@ fn measure_shards(rounds: usize) {
     let (x, t) = data::<f64>(2 * batch);
     let examples = Examples::new(x, t).unwrap();
     let p0: Params<f64> = start();
-    let training = Training::new(1, batch).unwrap();
+    // Five epochs of two steps each, so that the first step's filling of
+    // buffers (and the start of the shards' threads) weighs little.
+    let training = Training::new(5, batch).unwrap();
     let (one, two) = race(
         rounds,
         1,

@@ -348,10 +348,84 @@ fn sharded_gradients_equal_unsharded_ones() {
     ));
 }
 
+/// `(w, x) -> w x` on a batch, which refuses rows holding 100 and panics
+/// on a shard (fewer than 12 rows) holding -100: for the failures of one
+/// shard among several. (The fallback evaluation of the parameters after a
+/// failure runs whole batches, so it does not panic.)
+#[derive(Clone, Debug)]
+struct Touchy;
+impl Compose for Touchy {}
+impl Map<(f64, Array2<f64>)> for Touchy {
+    type Output = Array2<f64>;
+    type Memo = (f64, Array2<f64>);
+    fn forward_memo(&self, (w, x): &(f64, Array2<f64>)) -> Result<(Array2<f64>, Self::Memo)> {
+        if x.nrows() < 12 && x.iter().any(|v| *v == -100.0) {
+            panic!("a row the model cannot take");
+        }
+        if x.iter().any(|v| *v == 100.0) {
+            return Err(Error::InvalidSetting {
+                name: "row",
+                value: "100".to_string(),
+                reason: "refused by the model",
+            });
+        }
+        Ok((x * *w, (*w, x.clone())))
+    }
+    fn backward_memo(&self, (w, x): &Self::Memo, dy: &Array2<f64>) -> Result<(f64, Array2<f64>)> {
+        Ok(((x * dy).sum(), dy * *w))
+    }
+}
+impl SplitInput<f64, Array2<f64>> for Touchy {}
+
+#[test]
+fn a_failing_or_panicking_shard_stops_sharded_training_with_an_error() {
+    let train = |marker: f64| {
+        let mut x = Array2::from_shape_fn((12, 1), |(i, _)| i as f64 / 12.0);
+        x[[11, 0]] = marker; // in the last shard of every batch that holds it
+        let data = Examples::new(x.clone(), x * 2.0).unwrap();
+        Training::new(3, 12).unwrap().run_sharded(
+            &Touchy,
+            &MeanSquaredError,
+            &mut Adam::new(0.1).unwrap(),
+            0.5,
+            &data,
+            3,
+            &mut ShardSum,
+            |_| {},
+        )
+    };
+    let refused = train(100.0).unwrap_err();
+    assert!(
+        matches!(refused.error, Error::InvalidSetting { name: "row", .. }),
+        "{}",
+        refused.error
+    );
+    assert_eq!(refused.step, Some(0));
+    assert_eq!(refused.parameters, 0.5);
+    let panicked = train(-100.0).unwrap_err();
+    assert!(
+        matches!(panicked.error, Error::ShardFailed { .. }),
+        "{}",
+        panicked.error
+    );
+    // A clean run of the same model trains.
+    let fit = train(0.5).unwrap();
+    assert!((fit.parameters - 2.0).abs() < (0.5_f64 - 2.0).abs());
+}
+
 #[test]
 fn large_elementwise_maps_split_across_cores_give_the_same_values() {
-    let x: Array1<f64> = Array1::linspace(-5.0, 5.0, 100_000);
+    // Above the 131,072 elements from which elementwise work is split.
+    let x: Array1<f64> = Array1::linspace(-5.0, 5.0, 200_000);
     let y = Tanh.forward(&x).unwrap();
+    // The reusing passes split too, into the kept buffers.
+    let mut work = Workspace::new();
+    let mut dx = Array1::zeros(3);
+    for _ in 0..2 {
+        assert_eq!(Tanh.forward_reusing(&x, &mut work).unwrap(), &y);
+        Tanh.backward_reusing(&x, &mut work, &x, &mut dx).unwrap();
+        assert_eq!(dx, Tanh.backward(&x, &x).unwrap());
+    }
     assert!(y.iter().zip(&x).all(|(a, b)| *a == b.tanh()));
     let d = Tanh.backward(&x, &x).unwrap();
     assert!(

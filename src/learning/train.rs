@@ -13,7 +13,7 @@ use rand::seq::SliceRandom;
 use std::borrow::Cow;
 use std::fmt;
 use std::ops::ControlFlow;
-use std::sync::mpsc;
+use std::sync::{Mutex, RwLock, mpsc};
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
@@ -443,8 +443,14 @@ impl Training {
     /// Reverse derivatives are additive, so the sum of the shards' gradients
     /// is the batch's gradient, for any loss, up to the order of summation
     /// (rounding only). This needs a model that treats rows independently,
-    /// as every batched map of the crate does. Each shard keeps its own copy
-    /// of the parameters, refreshed in place every step.
+    /// as every batched map of the crate does.
+    ///
+    /// The shards' threads start once per run and each keeps its workspace
+    /// (the model's reusing passes), its rows and its gradient for the whole
+    /// run; every step they read one shared copy of the parameters and the
+    /// batch, refreshed in place. A shard's error stops the run like any
+    /// other; a shard whose model panics stops it with
+    /// [`Error::ShardFailed`].
     ///
     /// ```
     /// use revdiff::{Adam, Affine, Compose, Examples, MeanSquaredError, Parametrised, ShardSum, Tanh, Training};
@@ -479,8 +485,8 @@ impl Training {
         T: Real,
         P: Euclidean<T> + Send + Sync,
         B: Space + RowBlocks + Send,
-        M: Map<(P, Array2<T>), Output = B> + Sync,
-        L: Map<(B, Array2<T>), Output = T>,
+        M: SplitInput<P, Array2<T>, Output = B> + Sync,
+        L: SplitInput<B, Array2<T>, Output = T>,
         O: Optimiser<T>,
         V: ObserverVerdict,
         R: GradientReduction<P>,
@@ -497,21 +503,48 @@ impl Training {
                 parameters: start,
             });
         }
-        let mut inputs: Vec<(P, Array2<T>)> = Vec::new();
-        self.run_core(
-            model,
-            loss,
-            optimiser,
-            start,
-            data,
-            observer,
-            |batch, input, gradient| {
-                let (l, g) =
-                    batch.sharded_gradient(model, loss, input, shards, &mut inputs, reduction)?;
-                *gradient = g;
-                Ok(l)
-            },
-        )
+        let shared = RwLock::new((start.clone(), Array2::zeros((0, 0))));
+        let slots: Vec<Mutex<P>> = (0..shards).map(|_| Mutex::new(start.zero_like())).collect();
+        std::thread::scope(|scope| {
+            let mut jobs = Vec::with_capacity(shards);
+            let mut answers = Vec::with_capacity(shards);
+            let mut threads = Vec::with_capacity(shards);
+            for slot in &slots {
+                let (job_tx, job_rx) = mpsc::channel();
+                let (answer_tx, answer_rx) = mpsc::channel();
+                jobs.push(job_tx);
+                answers.push(answer_rx);
+                let shared = &shared;
+                threads.push(
+                    scope.spawn(move || shard_worker(model, shared, slot, job_rx, answer_tx)),
+                );
+            }
+            let mut pool = ShardPool {
+                jobs,
+                answers,
+                shared: &shared,
+                slots: &slots,
+                ranges: Vec::with_capacity(shards),
+                outputs: Vec::with_capacity(shards),
+            };
+            let result = self.run_core(
+                model,
+                loss,
+                optimiser,
+                start,
+                data,
+                observer,
+                |batch, input, gradient| pool.gradient(batch, loss, input, gradient, reduction),
+            );
+            // Closing the job channels ends the threads; joining them here
+            // (a panic was already reported as an error) keeps the scope
+            // from panicking in turn.
+            drop(pool);
+            for thread in threads {
+                let _ = thread.join();
+            }
+            result
+        })
     }
 
     #[allow(clippy::too_many_arguments)]
@@ -768,114 +801,183 @@ impl<T: Real> Batch<T> {
     }
 }
 
-impl<T: Real> Batch<T> {
-    /// The batch loss and its parameter gradient, the model's passes split
-    /// over `count` shards on their own threads; `inputs` are the shards'
-    /// kept inputs (parameters and rows), reused from step to step.
-    fn sharded_gradient<P, B, M, L, R>(
+/// What the training thread asks of a shard's thread.
+enum ToShard<B> {
+    /// The forward pass on rows `start..end` of the shared batch.
+    Forward(usize, usize),
+    /// The backward pass for this change of the shard's output.
+    Backward(B),
+}
+
+/// What a shard's thread answers.
+enum FromShard<B> {
+    /// Its output (a copy: the loss needs the whole batch's).
+    Output(Result<B>),
+    /// Its gradient is in its slot.
+    Done(Result<()>),
+}
+
+fn poisoned() -> Error {
+    Error::ShardFailed {
+        detail: "a shard's thread panicked while holding shared training state".to_string(),
+    }
+}
+
+/// One shard's thread for the whole run: its workspace, its rows and its
+/// gradient slot are reused from step to step, and never cross threads.
+fn shard_worker<T, P, B, M>(
+    model: &M,
+    shared: &RwLock<(P, Array2<T>)>,
+    slot: &Mutex<P>,
+    jobs: mpsc::Receiver<ToShard<B>>,
+    answers: mpsc::Sender<FromShard<B>>,
+) where
+    T: Real,
+    P: Euclidean<T>,
+    B: Space,
+    M: SplitInput<P, Array2<T>, Output = B>,
+{
+    let mut work = Workspace::new();
+    let mut rows = Array2::<T>::zeros((0, 0));
+    while let Ok(job) = jobs.recv() {
+        let answer = match job {
+            ToShard::Forward(start, end) => FromShard::Output((|| {
+                let shared = shared.read().map_err(|_| poisoned())?;
+                let part = shared.1.slice_axis(Axis(0), Slice::from(start..end));
+                if rows.dim() == part.dim() {
+                    rows.assign(&part);
+                } else {
+                    rows = part.to_owned();
+                }
+                Ok(model.forward_split(&shared.0, &rows, &mut work)?.clone())
+            })()),
+            ToShard::Backward(dy) => FromShard::Done((|| {
+                let shared = shared.read().map_err(|_| poisoned())?;
+                let mut gradient = slot.lock().map_err(|_| poisoned())?;
+                model.backward_split(&shared.0, &rows, &mut work, &dy, &mut gradient, None)
+            })()),
+        };
+        if answers.send(answer).is_err() {
+            return;
+        }
+    }
+}
+
+/// The shards' threads, as the training thread sees them.
+struct ShardPool<'s, T, P, B> {
+    jobs: Vec<mpsc::Sender<ToShard<B>>>,
+    answers: Vec<mpsc::Receiver<FromShard<B>>>,
+    shared: &'s RwLock<(P, Array2<T>)>,
+    slots: &'s [Mutex<P>],
+    ranges: Vec<(usize, usize)>,
+    outputs: Vec<B>,
+}
+
+impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
+    /// The answer of shard `k`, or the error that its thread is gone.
+    fn answer(&self, k: usize) -> FromShard<B> {
+        self.answers[k]
+            .recv()
+            .unwrap_or_else(|_| FromShard::Done(Err(panicked())))
+    }
+
+    /// Sends `job` to shard `k`; an error when its thread is gone.
+    fn send(&self, k: usize, job: ToShard<B>) -> Result<()> {
+        self.jobs[k].send(job).map_err(|_| panicked())
+    }
+
+    /// The batch loss, and its parameter gradient into `gradient`: the
+    /// model's passes run on the shards' threads, the loss on this one
+    /// between them, and `reduction` combines the shards' gradients.
+    fn gradient<L, R>(
         &mut self,
-        model: &M,
+        batch: &mut Batch<T>,
         loss: &L,
         input: &(P, Array2<T>),
-        count: usize,
-        inputs: &mut Vec<(P, Array2<T>)>,
+        gradient: &mut P,
         reduction: &mut R,
-    ) -> Result<(T, P)>
+    ) -> Result<T>
     where
-        P: Euclidean<T> + Send + Sync,
-        B: Space + RowBlocks + Send,
-        M: Map<(P, Array2<T>), Output = B> + Sync,
-        L: Map<(B, Array2<T>), Output = T>,
+        L: SplitInput<B, Array2<T>, Output = T>,
         R: GradientReduction<P>,
     {
         let rows = input.1.nrows();
-        let count = count.min(rows).max(1);
+        let count = self.jobs.len().min(rows).max(1);
         let per = rows.div_ceil(count);
-        let ranges: Vec<(usize, usize)> = (0..count)
-            .map(|k| (k * per, ((k + 1) * per).min(rows)))
-            .filter(|(a, b)| a < b)
-            .collect();
-        inputs.truncate(ranges.len());
-        while inputs.len() < ranges.len() {
-            inputs.push((input.0.clone(), Array2::zeros((0, input.1.ncols()))));
-        }
-        for ((p, x), &(a, b)) in inputs.iter_mut().zip(&ranges) {
-            p.copy_from(&input.0)?;
-            let part = input.1.slice_axis(Axis(0), Slice::from(a..b));
-            if x.dim() != part.dim() {
-                *x = part.to_owned();
+        self.ranges.clear();
+        self.ranges.extend(
+            (0..count)
+                .map(|k| (k * per, ((k + 1) * per).min(rows)))
+                .filter(|(a, b)| a < b),
+        );
+        {
+            let mut shared = self.shared.write().map_err(|_| poisoned())?;
+            shared.0.copy_from(&input.0)?;
+            if shared.1.dim() == input.1.dim() {
+                shared.1.assign(&input.1);
             } else {
-                x.assign(&part);
+                shared.1 = input.1.clone();
             }
         }
-        // One thread per shard keeps its shard's memo for the whole step
-        // (forward, then backward), so memos never cross threads.
-        let targets = &mut self.targets;
-        let ranges = &ranges;
-        let (l, gradients) = std::thread::scope(|scope| -> Result<(T, Vec<P>)> {
-            let mut outputs_from = Vec::with_capacity(inputs.len());
-            let mut changes_to = Vec::with_capacity(inputs.len());
-            let mut handles = Vec::with_capacity(inputs.len());
-            for shard in inputs.iter() {
-                let (output_tx, output_rx) = mpsc::channel::<Result<B>>();
-                let (change_tx, change_rx) = mpsc::channel::<B>();
-                outputs_from.push(output_rx);
-                changes_to.push(change_tx);
-                handles.push(scope.spawn(move || -> Result<Option<P>> {
-                    let (y, memo) = match model.forward_memo(shard) {
-                        Ok(done) => done,
-                        Err(e) => {
-                            let _ = output_tx.send(Err(e));
-                            return Ok(None);
-                        }
-                    };
-                    let _ = output_tx.send(Ok(y));
-                    // No change comes when another shard or the loss failed.
-                    let Ok(dy) = change_rx.recv() else {
-                        return Ok(None);
-                    };
-                    model.backward_memo(&memo, &dy).map(|(dp, _)| Some(dp))
-                }));
-            }
-            let mut outputs = Vec::with_capacity(inputs.len());
-            let mut failure = None;
-            for from in &outputs_from {
-                match from.recv() {
-                    Ok(Ok(y)) => outputs.push(y),
-                    Ok(Err(e)) => failure = failure.or(Some(e)),
-                    Err(_) => failure = failure.or(Some(panicked())),
+        for (k, &(a, b)) in self.ranges.iter().enumerate() {
+            self.send(k, ToShard::Forward(a, b))?;
+        }
+        // Every answer is collected, even after a failure, so that none is
+        // left to be read as the next step's.
+        self.outputs.clear();
+        let mut failure = None;
+        for k in 0..self.ranges.len() {
+            match self.answer(k) {
+                FromShard::Output(Ok(y)) => self.outputs.push(y),
+                FromShard::Output(Err(e)) | FromShard::Done(Err(e)) => {
+                    failure = failure.or(Some(e));
                 }
+                FromShard::Done(Ok(())) => failure = failure.or(Some(panicked())),
             }
-            let loss_part = match failure {
-                Some(e) => Err(e),
-                None => shard_loss::<T, B, L>(loss, &outputs, targets),
-            };
-            let (l, dy) = match loss_part {
-                Ok(done) => done,
-                Err(e) => {
-                    drop(changes_to);
-                    for h in handles {
-                        let _ = h.join();
-                    }
-                    return Err(e);
+        }
+        if let Some(e) = failure {
+            return Err(e);
+        }
+        let y = B::join_rows(&self.outputs)?;
+        let l = *loss.forward_split(&y, &batch.targets, &mut batch.loss_work)?;
+        let dy = batch
+            .prediction_change
+            .output_or_insert_with(|| y.zero_like());
+        reshape_to(dy, &y);
+        loss.backward_split(
+            &y,
+            &batch.targets,
+            &mut batch.loss_work,
+            &T::one(),
+            dy,
+            None,
+        )?;
+        for (k, &(a, b)) in self.ranges.iter().enumerate() {
+            self.send(k, ToShard::Backward(dy.row_block(a, b)))?;
+        }
+        for k in 0..self.ranges.len() {
+            match self.answer(k) {
+                FromShard::Done(Ok(())) => {}
+                FromShard::Done(Err(e)) | FromShard::Output(Err(e)) => {
+                    failure = failure.or(Some(e));
                 }
-            };
-            for (to, &(a, b)) in changes_to.iter().zip(ranges) {
-                let _ = to.send(dy.row_block(a, b));
+                FromShard::Output(Ok(_)) => failure = failure.or(Some(panicked())),
             }
-            drop(changes_to);
-            let mut gradients = Vec::with_capacity(handles.len());
-            for h in handles {
-                match h.join() {
-                    Ok(Ok(Some(dp))) => gradients.push(dp),
-                    Ok(Ok(None)) => return Err(panicked()),
-                    Ok(Err(e)) => return Err(e),
-                    Err(_) => return Err(panicked()),
-                }
-            }
-            Ok((l, gradients))
-        })?;
-        Ok((l, reduction.reduce(gradients)?))
+        }
+        if let Some(e) = failure {
+            return Err(e);
+        }
+        let mut guards = self.slots[..self.ranges.len()]
+            .iter()
+            .map(|slot| slot.lock().map_err(|_| poisoned()))
+            .collect::<Result<Vec<_>>>()?;
+        let (first, rest) = guards
+            .split_first_mut()
+            .expect("a batch has at least one row, so one shard");
+        let others: Vec<&P> = rest.iter().map(|g| &**g).collect();
+        reduction.reduce(first, &others)?;
+        gradient.copy_from(first)?;
+        Ok(l)
     }
 }
 
@@ -907,23 +1009,6 @@ fn panicked() -> Error {
     }
 }
 
-/// The loss of the joined shard outputs and its change, cut back into the
-/// whole batch's output change.
-fn shard_loss<T: Real, B: Space + RowBlocks, L: Map<(B, Array2<T>), Output = T>>(
-    loss: &L,
-    outputs: &[B],
-    targets: &mut Array2<T>,
-) -> Result<(T, B)> {
-    let y = B::join_rows(outputs)?;
-    // The targets move into the loss's input and back: no copy.
-    let pair = (y, std::mem::replace(targets, Array2::zeros((0, 0))));
-    let result = loss.forward_memo(&pair);
-    *targets = pair.1;
-    let (l, memo) = result?;
-    let (dy, _) = loss.backward_memo(&memo, &T::one())?;
-    Ok((l, dy))
-}
-
 /// How the parameter gradients of a minibatch's shards become the
 /// minibatch's gradient: by default their sum ([`ShardSum`]).
 ///
@@ -934,12 +1019,15 @@ fn shard_loss<T: Real, B: Space + RowBlocks, L: Map<(B, Array2<T>), Output = T>>
 ///
 /// ```
 /// use revdiff::{GradientReduction, ShardSum};
-/// let total = ShardSum.reduce(vec![1.0_f64, 2.0, 3.5]).unwrap();
+/// let mut total = 1.0_f64; // the first shard's
+/// ShardSum.reduce(&mut total, &[&2.0, &3.5]).unwrap();
 /// assert_eq!(total, 6.5);
 /// ```
 pub trait GradientReduction<P> {
-    /// Combines the shards' gradients, given in shard order (at least one).
-    fn reduce(&mut self, shards: Vec<P>) -> Result<P>;
+    /// Combines the shards' gradients in place: `total` holds the first
+    /// shard's on entry and the combination on return; `others` are the
+    /// other shards', in shard order.
+    fn reduce(&mut self, total: &mut P, others: &[&P]) -> Result<()>;
 }
 
 /// The sum of the shards' gradients, added in shard order.
@@ -947,15 +1035,10 @@ pub trait GradientReduction<P> {
 pub struct ShardSum;
 
 impl<P: Space> GradientReduction<P> for ShardSum {
-    fn reduce(&mut self, shards: Vec<P>) -> Result<P> {
-        let mut parts = shards.into_iter();
-        let mut total = parts.next().ok_or(Error::Empty {
-            operation: "summing shard gradients",
-        })?;
-        for part in parts {
-            total.try_add_assign(&part)?;
-        }
-        Ok(total)
+    fn reduce(&mut self, total: &mut P, others: &[&P]) -> Result<()> {
+        others
+            .iter()
+            .try_for_each(|part| total.try_add_assign(part))
     }
 }
 
