@@ -271,7 +271,9 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
         "<= 1.2",
     ));
 
-    // Run-time chains: the same sine stages over one-element arrays.
+    // Run-time chains: the same sine stages over one-element arrays, through
+    // the reusing passes (kept workspaces, the fast path) and through the
+    // memo passes (`backward`).
     let run_time = |n: usize, width: usize| {
         let mut chain = Chain::<f64>::new(&[width]);
         for _ in 0..n {
@@ -281,6 +283,20 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
     };
     let (c10, c10k) = (run_time(10, 1), run_time(10_000, 1));
     let xd = ArrayD::from_elem(vec![1], 0.7);
+    let (mut w10, mut w10k) = (Workspace::new(), Workspace::new());
+    let (mut d10, mut d10k) = (xd.clone(), xd.clone());
+    let (t10, t10k) = race(
+        rounds,
+        10,
+        || reused(&c10, &xd, &xd, &mut w10, &mut d10),
+        || reused(&c10k, &xd, &xd, &mut w10k, &mut d10k),
+    );
+    lines.push(at_most(
+        "time per stage, run-time chain, n = 10,000 / n = 10 (reusing passes)",
+        (t10k / 10_000.0) / (t10 / 10.0),
+        1.2,
+        "<= 1.2",
+    ));
     let (t10, t10k) = race(
         rounds,
         10,
@@ -292,12 +308,27 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
         },
     );
     lines.push(at_most(
-        "time per stage, run-time chain, n = 10,000 / n = 10",
+        "time per stage, run-time chain, n = 10,000 / n = 10 (memo passes)",
         (t10k / 10_000.0) / (t10 / 10.0),
         1.2,
         "<= 1.2",
     ));
     let c8 = run_time(8, 1);
+    let (mut w8, mut d8) = (Workspace::new(), xd.clone());
+    let (dynamic, fixed) = race(
+        rounds,
+        2000,
+        || reused(&c8, &xd, &xd, &mut w8, &mut d8),
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "dynamic / static, scalar chains of 8 stages (reusing passes)",
+        dynamic / fixed,
+        1.5,
+        "<= 1.5",
+    ));
     let (dynamic, fixed) = race(
         rounds,
         2000,
@@ -309,7 +340,7 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
         },
     );
     lines.push(at_most(
-        "dynamic / static, scalar chains of 8 stages",
+        "dynamic / static, scalar chains of 8 stages (memo passes)",
         dynamic / fixed,
         1.5,
         "<= 1.5",
@@ -318,25 +349,57 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
     for _ in 1..8 {
         boxed = Boxed::new(boxed.then(Sin)).unwrap();
     }
-    let (nested, _) = race(
+    let (mut wb, mut db) = (Workspace::new(), 0.0);
+    let (nested, fixed) = race(
+        rounds,
+        2000,
+        || reused(&boxed, &x, &1.0, &mut wb, &mut db),
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
+    );
+    lines.push(at_most(
+        "nested boxed / static, scalar chains of 8 stages (reusing passes)",
+        nested / fixed,
+        1.5,
+        "<= 1.5",
+    ));
+    let (nested, fixed) = race(
         rounds,
         2000,
         || {
             black_box(boxed.backward(black_box(&x), &1.0).unwrap());
         },
-        || {},
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
     );
     lines.push(at_most(
-        "nested boxed / static, scalar chains of 8 stages",
+        "nested boxed / static, scalar chains of 8 stages (memo passes)",
         nested / fixed,
         1.5,
         "<= 1.5",
     ));
 
-    // 256-wide arrays: run-time chain against the static composite.
+    // 256-wide arrays: run-time chain against the static composite, each
+    // through its reusing passes.
     let wide = Array1::<f64>::linspace(-1.0, 1.0, 256);
     let wide_d = wide.clone().into_dyn();
     let c8w = run_time(8, 256);
+    let (mut wd, mut dd) = (Workspace::new(), wide_d.clone());
+    let (mut ws, mut ds) = (Workspace::new(), wide.clone());
+    let (dynamic, fixed) = race(
+        rounds,
+        200,
+        || reused(&c8w, &wide_d, &wide_d, &mut wd, &mut dd),
+        || reused(&s8, &wide, &wide, &mut ws, &mut ds),
+    );
+    lines.push(at_most(
+        "dynamic / static, 8 stages on 256-wide arrays (reusing passes)",
+        dynamic / fixed,
+        1.02,
+        "<= 1.02",
+    ));
     let (dynamic, fixed) = race(
         rounds,
         200,
@@ -348,11 +411,24 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
         },
     );
     lines.push(at_most(
-        "dynamic / static, 8 stages on 256-wide arrays",
+        "dynamic / static, 8 stages on 256-wide arrays (memo passes)",
         dynamic / fixed,
         1.02,
         "<= 1.02",
     ));
+}
+
+/// One gradient through the reusing passes, into kept buffers.
+fn reused<A: revdiff::Space, F: Map<A, Output = A>>(
+    f: &F,
+    x: &A,
+    dy: &A,
+    work: &mut Workspace,
+    dx: &mut A,
+) {
+    f.forward_reusing(black_box(x), work).unwrap();
+    f.backward_reusing(x, work, dy, dx).unwrap();
+    black_box(&*dx);
 }
 
 /// Runs this program again with one thread per matrix product (so that the
@@ -494,6 +570,14 @@ fn main() {
         return;
     }
     let quick = args.iter().any(|a| a == "quick");
+    if args.iter().any(|a| a == "chains") {
+        let mut lines = Vec::new();
+        chain_lines(3, &mut lines);
+        for l in &lines {
+            println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
+        }
+        return;
+    }
     if args.iter().any(|a| a == "training") {
         // Only the training lines, for working on them.
         let mut lines = Vec::new();

@@ -18,6 +18,8 @@ use crate::memory::HeldBytes;
 use crate::primitives::Affine;
 use crate::retention::{PassCost, Retention};
 use crate::space::{Real, Space, shape_tuple};
+use crate::workspace::Workspace;
+use ndarray::linalg::general_mat_vec_mul;
 use ndarray::{Array1, Array2, ArrayD, Ix1, IxDyn};
 use std::any::Any;
 use std::fmt;
@@ -27,6 +29,17 @@ trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
     fn erased_forward_memo(&self, x: &A) -> Result<(B, BoxedMemo)>;
     fn erased_backward(&self, memo: &dyn Any, dy: &B) -> Result<A>;
+    // The reusing passes, one dynamic call each: the workspace is untyped
+    // already, so erasing the map costs no box.
+    fn erased_forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w B>;
+    fn erased_reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w B>;
+    fn erased_backward_reusing(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dy: &B,
+        dx: &mut A,
+    ) -> Result<()>;
 }
 
 impl<A: Space, F: Map<A>> ErasedMap<A, F::Output> for F
@@ -53,6 +66,21 @@ where
             operation: "backward pass of a boxed map",
         })?;
         Map::backward_memo(self, r, dy)
+    }
+    fn erased_forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w F::Output> {
+        Map::forward_reusing(self, x, work)
+    }
+    fn erased_reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w F::Output> {
+        Map::reused_output(self, work)
+    }
+    fn erased_backward_reusing(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dy: &F::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        Map::backward_reusing(self, x, work, dy, dx)
     }
 }
 
@@ -185,6 +213,15 @@ impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
     }
     fn backward_memo(&self, memo: &BoxedMemo, dy: &B) -> Result<A> {
         self.inner.erased_backward(memo.memo.as_ref(), dy)
+    }
+    fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w B> {
+        self.inner.erased_forward_reusing(x, work)
+    }
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w B> {
+        self.inner.erased_reused_output(work)
+    }
+    fn backward_reusing(&self, x: &A, work: &mut Workspace, dy: &B, dx: &mut A) -> Result<()> {
+        self.inner.erased_backward_reusing(x, work, dy, dx)
     }
 }
 
@@ -753,6 +790,104 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
         self.backward_counted(memo, dy, &mut PassCost::default())
     }
+    // The reusing passes keep every stage's workspace, as `Retention::All`
+    // keeps every memo; under another retention they are the memo passes,
+    // so that the memory the user chose to save stays saved.
+    fn forward_reusing<'w>(&self, x: &ArrayD<T>, work: &'w mut Workspace) -> Result<&'w ArrayD<T>> {
+        if self.retention != Retention::All || self.stages.is_empty() {
+            let (y, memo) = self.forward_memo(x)?;
+            work.put_output(y);
+            work.put_state(memo);
+            return work.output();
+        }
+        self.check_input(x)?;
+        let w = work.state_or_insert_with(ChainWork::<T>::default);
+        w.fit(self.stages.len());
+        for (k, stage) in self.stages.iter().enumerate() {
+            let (before, rest) = w.stages.split_at_mut(k);
+            let input = match before.last() {
+                Some(previous) => self.stages[k - 1].map.reused_output(previous)?,
+                None => x,
+            };
+            let y = stage.map.forward_reusing(input, &mut rest[0])?;
+            stage.check_output(k, y)?;
+        }
+        self.reused_output(work)
+    }
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w ArrayD<T>> {
+        match (work.state::<ChainWork<T>>(), self.stages.last()) {
+            (Ok(w), Some(last)) if w.stages.len() == self.stages.len() => {
+                last.map.reused_output(&w.stages[self.stages.len() - 1])
+            }
+            _ => work.output(),
+        }
+    }
+    fn backward_reusing(
+        &self,
+        x: &ArrayD<T>,
+        work: &mut Workspace,
+        dy: &ArrayD<T>,
+        dx: &mut ArrayD<T>,
+    ) -> Result<()> {
+        if self.retention != Retention::All || self.stages.is_empty() {
+            *dx = self.backward_memo(work.state::<ChainMemo<T>>()?, dy)?;
+            return Ok(());
+        }
+        let w = work.state_mut::<ChainWork<T>>()?;
+        if w.stages.len() != self.stages.len() {
+            return Err(Error::WorkspaceNotFilled {
+                operation: "backward pass of a run-time chain (its stages changed since the forward pass)",
+            });
+        }
+        let n = self.stages.len();
+        for k in (0..n).rev() {
+            // Stage k reads its input (stage k - 1's output) and the change
+            // of its output, and writes the change of its input.
+            let (before, rest) = w.stages.split_at_mut(k);
+            let input = match before.last() {
+                Some(previous) => self.stages[k - 1].map.reused_output(previous)?,
+                None => x,
+            };
+            let (lower, upper) = w.changes.split_at_mut(k);
+            let change = if k + 1 == n {
+                dy
+            } else {
+                upper[0].as_ref().expect("filled at stage k + 1")
+            };
+            let into = match lower.last_mut() {
+                Some(slot) => crate::workspace::shaped_like(slot, input),
+                None => &mut *dx,
+            };
+            self.stages[k]
+                .map
+                .backward_reusing(input, &mut rest[0], change, into)?;
+        }
+        Ok(())
+    }
+}
+
+/// What a [`Chain`]'s reusing passes keep: every stage's workspace, and a
+/// buffer for the change of every value between stages.
+struct ChainWork<T> {
+    stages: Vec<Workspace>,
+    changes: Vec<Option<ArrayD<T>>>,
+}
+
+impl<T> Default for ChainWork<T> {
+    fn default() -> Self {
+        ChainWork {
+            stages: Vec::new(),
+            changes: Vec::new(),
+        }
+    }
+}
+
+impl<T> ChainWork<T> {
+    /// One workspace per stage (the chain may have grown since the last call).
+    fn fit(&mut self, stages: usize) {
+        self.stages.resize_with(stages, Workspace::new);
+        self.changes.resize_with(stages, || None);
+    }
 }
 
 /// What a backward pass holds: stored stage inputs (checkpoints) and stage
@@ -826,5 +961,58 @@ impl<T: Real> Map<ArrayD<T>> for FixedAffine<T> {
         let (_, dx) =
             Map::<((Array2<T>, Array1<T>), Array1<T>)>::backward_memo(&Affine, r, &as_vector(dy)?)?;
         Ok(dx.into_dyn())
+    }
+    // The weights stay where they are and nothing is kept: `W x + b` into
+    // the previous output's buffer, `W' dy` into the caller's.
+    fn forward_reusing<'w>(&self, x: &ArrayD<T>, work: &'w mut Workspace) -> Result<&'w ArrayD<T>> {
+        let x = vector_view(x, self.weights.ncols(), "affine stage input")?;
+        let m = self.weights.nrows();
+        let y = work.output_or_insert_with(|| ArrayD::zeros(IxDyn(&[m])));
+        if y.shape() != [m] {
+            *y = ArrayD::zeros(IxDyn(&[m]));
+        }
+        let mut y1 = y
+            .view_mut()
+            .into_dimensionality::<Ix1>()
+            .expect("shaped (m,) above");
+        y1.assign(&self.bias);
+        general_mat_vec_mul(T::one(), &self.weights, &x, T::one(), &mut y1);
+        work.output()
+    }
+    fn backward_reusing(
+        &self,
+        x: &ArrayD<T>,
+        _work: &mut Workspace,
+        dy: &ArrayD<T>,
+        dx: &mut ArrayD<T>,
+    ) -> Result<()> {
+        let (m, n) = self.weights.dim();
+        vector_view(x, n, "affine stage input")?;
+        let dy = vector_view(dy, m, "affine stage output change")?;
+        if dx.shape() != [n] {
+            *dx = ArrayD::zeros(IxDyn(&[n]));
+        }
+        let mut dx1 = dx
+            .view_mut()
+            .into_dimensionality::<Ix1>()
+            .expect("shaped (n,) above");
+        general_mat_vec_mul(T::one(), &self.weights.t(), &dy, T::zero(), &mut dx1);
+        Ok(())
+    }
+}
+
+/// `x` as a vector of length `n`, or an error naming `what`.
+fn vector_view<'a, T: Real>(
+    x: &'a ArrayD<T>,
+    n: usize,
+    what: &'static str,
+) -> Result<ndarray::ArrayView1<'a, T>> {
+    match x.view().into_dimensionality::<Ix1>() {
+        Ok(v) if v.len() == n => Ok(v),
+        _ => Err(Error::shape(
+            what,
+            format!("({n},)"),
+            shape_tuple(x.shape()),
+        )),
     }
 }

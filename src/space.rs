@@ -497,6 +497,13 @@ fn all_finite_slice<T: Real>(values: &[T]) -> bool {
 #[cfg(feature = "threads")]
 const PARALLEL_FROM: usize = 1 << 17;
 
+/// The same threshold whether or not threads are on: below it, the
+/// single-threaded slice loop.
+#[cfg(feature = "threads")]
+const PARALLEL_FROM_ANY: usize = PARALLEL_FROM;
+#[cfg(not(feature = "threads"))]
+const PARALLEL_FROM_ANY: usize = usize::MAX;
+
 impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
     type Elem = T;
     fn map_elems(&self, f: impl Fn(T) -> T + Sync + Send) -> Self {
@@ -520,9 +527,18 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         Ok(Zip::from(self).and(other).map_collect(|&a, &b| f(a, b)))
     }
     fn map_elems_into(&self, out: &mut Self, f: impl Fn(T) -> T + Sync + Send) {
-        if out.raw_dim() != self.raw_dim() {
+        if out.shape() != self.shape() {
             *out = self.map_elems(f);
             return;
+        }
+        // Both in standard layout (as the crate's own outputs are): plain
+        // slices, without the per-call setup of a `Zip`, which dominates for
+        // small arrays.
+        if self.len() < PARALLEL_FROM_ANY {
+            if let (Some(o), Some(a)) = (out.as_slice_mut(), self.as_slice()) {
+                o.iter_mut().zip(a).for_each(|(o, &v)| *o = f(v));
+                return;
+            }
         }
         let zip = Zip::from(out).and(self);
         #[cfg(feature = "threads")]
@@ -540,9 +556,19 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         f: impl Fn(T, T) -> T + Sync + Send,
     ) -> Result<()> {
         same_shape(operation, self, other)?;
-        if out.raw_dim() != self.raw_dim() {
+        if out.shape() != self.shape() {
             *out = self.zip_elems(other, operation, f)?;
             return Ok(());
+        }
+        if self.len() < PARALLEL_FROM_ANY {
+            if let (Some(o), Some(a), Some(b)) =
+                (out.as_slice_mut(), self.as_slice(), other.as_slice())
+            {
+                o.iter_mut()
+                    .zip(a.iter().zip(b))
+                    .for_each(|(o, (&a, &b))| *o = f(a, b));
+                return Ok(());
+            }
         }
         let zip = Zip::from(out).and(self).and(other);
         #[cfg(feature = "threads")]

@@ -261,3 +261,123 @@ proptest! {
         prop_assert!(gap(&dx, &edx) <= 1e-13 * size, "input change off by {}", gap(&dx, &edx));
     }
 }
+
+#[test]
+fn run_time_chains_and_boxed_maps_reuse_their_stages_workspaces() {
+    use ndarray::ArrayD;
+    let mut chain = Chain::<f64>::new(&[3]);
+    chain
+        .push_affine(
+            array![[0.5, -1.0, 0.2], [0.3, 0.1, -0.4]],
+            array![0.1, -0.2],
+        )
+        .unwrap();
+    chain.push_elementwise("tanh", Tanh).unwrap();
+    chain
+        .push_affine(
+            array![[1.0, -2.0], [0.5, 0.5], [0.0, 1.5]],
+            array![0.0, 0.3, -0.1],
+        )
+        .unwrap();
+    chain.push_elementwise("sin", Sin).unwrap();
+    let x = array![0.4, -1.1, 2.0].into_dyn();
+    let dy = array![1.0, -0.5, 0.25].into_dyn();
+    let check = |chain: &Chain<f64>, work: &mut Workspace| {
+        let mut dx = ArrayD::zeros(vec![1]);
+        let y = chain.forward_reusing(&x, work).unwrap().clone();
+        assert_eq!(y, chain.forward(&x).unwrap());
+        chain.backward_reusing(&x, work, &dy, &mut dx).unwrap();
+        assert_eq!(dx, chain.backward(&x, &dy).unwrap());
+    };
+    let mut work = Workspace::new();
+    check(&chain, &mut work);
+    check(&chain, &mut work);
+    // Under checkpointing the reusing passes are the memo passes, and agree.
+    let mut saving = chain.clone();
+    saving.retaining(Retention::Binomial { states: 2 }).unwrap();
+    check(&saving, &mut work);
+    // A chain that grew since its workspace was filled.
+    chain.push_elementwise("exp", Exp).unwrap();
+    check(&chain, &mut work);
+    // A wrong input shape is refused by name.
+    let err = chain
+        .forward_reusing(&array![1.0, 2.0].into_dyn(), &mut work)
+        .unwrap_err();
+    assert!(err.to_string().contains("run-time chain"), "{err}");
+
+    // Nested boxed maps take their parts' reusing passes through the box.
+    let mut boxed: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
+    for _ in 0..5 {
+        boxed = Boxed::new(boxed.then(Tanh)).unwrap();
+    }
+    let mut work = Workspace::new();
+    let mut dx = 0.0;
+    for x in [0.3, -1.2] {
+        assert_eq!(
+            *boxed.forward_reusing(&x, &mut work).unwrap(),
+            boxed.forward(&x).unwrap()
+        );
+        boxed
+            .backward_reusing(&x, &mut work, &2.0, &mut dx)
+            .unwrap();
+        assert_eq!(dx, boxed.backward(&x, &2.0).unwrap());
+    }
+}
+
+#[test]
+fn run_time_models_reuse_their_buffers_and_agree_with_their_memo_passes() {
+    let model = Layers::<f64>::new(3)
+        .unwrap()
+        .affine(5)
+        .unwrap()
+        .elementwise("tanh", Tanh)
+        .affine(4)
+        .unwrap()
+        .elementwise("sigmoid", Sigmoid)
+        .affine(2)
+        .unwrap();
+    let p = model.initial_parameters(11);
+    let mut work = Workspace::new();
+    let mut dp = Vec::new(); // the wrong shape: reshaped
+    let mut dx = Array2::zeros((0, 0));
+    for (n, seed) in [(5, 0), (5, 1), (2, 2), (5, 3)] {
+        let x = rows(n, seed);
+        let dy = Array2::from_shape_fn((n, 2), |(i, j)| (i as f64 + 1.0) * 0.2 - j as f64 * 0.7);
+        let input = (p.clone(), x.clone());
+        let y = model.forward_split(&p, &x, &mut work).unwrap();
+        assert_eq!(*y, model.forward(&input).unwrap());
+        model
+            .backward_split(&p, &x, &mut work, &dy, &mut dp, Some(&mut dx))
+            .unwrap();
+        let (edp, edx) = model.backward(&input, &dy).unwrap();
+        assert!(gap(&dp, &edp) < 1e-14, "batch {n}: {}", gap(&dp, &edp));
+        assert!(gap(&dx, &edx) < 1e-14, "batch {n}");
+    }
+    // Training it through its own passes and through the memo passes.
+    let x = rows(18, 5);
+    let t = Array2::from_shape_fn((18, 2), |(i, j)| ((i * 2 + j) % 3) as f64 / 3.0);
+    let data = Examples::new(x, t).unwrap();
+    let training = Training::new(5, 4).unwrap();
+    let fast = training
+        .run(
+            &model,
+            &MeanSquaredError,
+            &mut Adam::new(0.02).unwrap(),
+            p.clone(),
+            &data,
+            |_| {},
+        )
+        .unwrap();
+    let slow = training
+        .run(
+            &MemoOnly(model.clone()),
+            &MeanSquaredError,
+            &mut Adam::new(0.02).unwrap(),
+            p.clone(),
+            &data,
+            |_| {},
+        )
+        .unwrap();
+    assert!(gap(&fast.parameters, &slow.parameters) < 1e-12);
+    assert!(gap(&fast.parameters, &p) > 1e-3);
+}

@@ -6,9 +6,9 @@ use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
 use crate::space::{Real, shape_tuple};
-use crate::workspace::SplitInput;
+use crate::workspace::{SplitInput, Workspace, reshape_to, shaped_like};
 use ndarray::linalg::general_mat_mul;
-use ndarray::{Array1, Array2, Axis};
+use ndarray::{Array1, Array2, Axis, Zip};
 use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
 use std::fmt;
@@ -256,7 +256,144 @@ impl<T> fmt::Debug for StageMemo<T> {
     }
 }
 
-impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {}
+/// What [`Layers`]' reusing passes keep: every stage's workspace (an
+/// affine stage's holds its output only) and a buffer for the change of
+/// every value between stages.
+struct LayersWork<T> {
+    stages: Vec<Workspace>,
+    changes: Vec<Option<Array2<T>>>,
+}
+
+impl<T: Real> Layers<T> {
+    /// The output stage `k` left in its workspace.
+    fn stage_output<'w>(&self, k: usize, work: &'w Workspace) -> Result<&'w Array2<T>> {
+        match &self.stages[k] {
+            Stage::Affine { .. } => work.output(),
+            Stage::Elementwise { map, .. } => map.reused_output(work),
+        }
+    }
+}
+
+/// The stages read their parameters where they are and write into kept
+/// buffers: no copies, and no allocation once the workspace is filled.
+impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {
+    fn forward_split<'w>(
+        &self,
+        params: &LayerParameters<T>,
+        x: &Array2<T>,
+        work: &'w mut Workspace,
+    ) -> Result<&'w Array2<T>> {
+        self.check(params, x)?;
+        let n = self.stages.len();
+        if n == 0 {
+            work.put_output(x.clone());
+            return work.output();
+        }
+        let w = work.state_or_insert_with(|| LayersWork::<T> {
+            stages: Vec::new(),
+            changes: Vec::new(),
+        });
+        w.stages.resize_with(n, Workspace::new);
+        w.changes.resize_with(n, || None);
+        for k in 0..n {
+            let (before, rest) = w.stages.split_at_mut(k);
+            let input = match before.last() {
+                Some(previous) => self.stage_output(k - 1, previous)?,
+                None => x,
+            };
+            match &self.stages[k] {
+                Stage::Affine { slot, outputs, .. } => {
+                    let (wt, b) = &params[*slot];
+                    let shape = (input.nrows(), *outputs);
+                    let y = rest[0].output_or_insert_with(|| Array2::<T>::zeros(shape));
+                    if y.dim() != shape {
+                        *y = Array2::zeros(shape);
+                    }
+                    y.assign(&b.broadcast(shape).expect("the bias was checked"));
+                    general_mat_mul(T::one(), input, &wt.t(), T::one(), y);
+                }
+                Stage::Elementwise { map, .. } => {
+                    map.forward_reusing(input, &mut rest[0])?;
+                }
+            }
+        }
+        self.reused_output(work)
+    }
+    fn backward_split(
+        &self,
+        params: &LayerParameters<T>,
+        x: &Array2<T>,
+        work: &mut Workspace,
+        dy: &Array2<T>,
+        dp: &mut LayerParameters<T>,
+        mut dx: Option<&mut Array2<T>>,
+    ) -> Result<()> {
+        self.check(params, x)?;
+        let n = self.stages.len();
+        if n == 0 {
+            if let Some(dx) = dx {
+                dx.clone_from(dy);
+            }
+            *dp = Vec::new();
+            return Ok(());
+        }
+        let w = work.state_mut::<LayersWork<T>>()?;
+        if w.stages.len() != n {
+            return Err(Error::WorkspaceNotFilled {
+                operation: "backward pass of a run-time model (its stages changed since the forward pass)",
+            });
+        }
+        reshape_to(dp, params);
+        for k in (0..n).rev() {
+            let (before, rest) = w.stages.split_at_mut(k);
+            let input = match before.last() {
+                Some(previous) => self.stage_output(k - 1, previous)?,
+                None => x,
+            };
+            let (lower, upper) = w.changes.split_at_mut(k);
+            let change = if k + 1 == n {
+                dy
+            } else {
+                upper[0].as_ref().expect("written by stage k + 1")
+            };
+            // The change of this stage's input: the previous stage's buffer,
+            // the caller's, or none for the first stage when none is asked.
+            let into = match lower.last_mut() {
+                Some(slot) => Some(shaped_like(slot, input)),
+                None => dx.as_deref_mut().map(|d| {
+                    reshape_to(d, input);
+                    d
+                }),
+            };
+            match &self.stages[k] {
+                Stage::Affine { slot, outputs, .. } => {
+                    if change.dim() != (input.nrows(), *outputs) {
+                        return Err(Error::OutputChangeShape {
+                            map: "run-time model (an affine stage)",
+                            expected: shape_tuple(&[input.nrows(), *outputs]),
+                            found: shape_tuple(change.shape()),
+                        });
+                    }
+                    let (gw, gb) = &mut dp[*slot];
+                    general_mat_mul(T::one(), &change.t(), input, T::zero(), gw);
+                    gb.fill(T::zero());
+                    for row in change.rows() {
+                        Zip::from(&mut *gb).and(&row).for_each(|s, &r| *s = *s + r);
+                    }
+                    if let Some(into) = into {
+                        general_mat_mul(T::one(), change, &params[*slot].0, T::zero(), into);
+                    }
+                }
+                Stage::Elementwise { map, .. } => {
+                    if let Some(into) = into {
+                        map.backward_reusing(input, &mut rest[0], change, into)?;
+                    }
+                }
+            }
+        }
+        Ok(())
+    }
+}
 
 impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
     type Output = Array2<T>;
@@ -328,5 +465,16 @@ impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
             })
             .collect::<Result<_>>()?;
         Ok((grads, change))
+    }
+    // After `forward_split`, the last stage's output; after the default
+    // `forward_reusing`, where that put it.
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w Array2<T>> {
+        match work.state::<LayersWork<T>>() {
+            Ok(w) if !self.stages.is_empty() && w.stages.len() == self.stages.len() => {
+                let last = self.stages.len() - 1;
+                self.stage_output(last, &w.stages[last])
+            }
+            _ => work.output(),
+        }
     }
 }
