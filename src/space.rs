@@ -534,11 +534,11 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         // Both in standard layout (as the crate's own outputs are): plain
         // slices, without the per-call setup of a `Zip`, which dominates for
         // small arrays.
-        if self.len() < PARALLEL_FROM_ANY {
-            if let (Some(o), Some(a)) = (out.as_slice_mut(), self.as_slice()) {
-                o.iter_mut().zip(a).for_each(|(o, &v)| *o = f(v));
-                return;
-            }
+        if self.len() < PARALLEL_FROM_ANY
+            && let (Some(o), Some(a)) = (out.as_slice_mut(), self.as_slice())
+        {
+            o.iter_mut().zip(a).for_each(|(o, &v)| *o = f(v));
+            return;
         }
         let zip = Zip::from(out).and(self);
         #[cfg(feature = "threads")]
@@ -560,15 +560,14 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
             *out = self.zip_elems(other, operation, f)?;
             return Ok(());
         }
-        if self.len() < PARALLEL_FROM_ANY {
-            if let (Some(o), Some(a), Some(b)) =
+        if self.len() < PARALLEL_FROM_ANY
+            && let (Some(o), Some(a), Some(b)) =
                 (out.as_slice_mut(), self.as_slice(), other.as_slice())
-            {
-                o.iter_mut()
-                    .zip(a.iter().zip(b))
-                    .for_each(|(o, (&a, &b))| *o = f(a, b));
-                return Ok(());
-            }
+        {
+            o.iter_mut()
+                .zip(a.iter().zip(b))
+                .for_each(|(o, (&a, &b))| *o = f(a, b));
+            return Ok(());
         }
         let zip = Zip::from(out).and(self).and(other);
         #[cfg(feature = "threads")]

@@ -360,10 +360,12 @@ impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {
             // the caller's, or none for the first stage when none is asked.
             let into = match lower.last_mut() {
                 Some(slot) => Some(shaped_like(slot, input)),
-                None => dx.as_deref_mut().map(|d| {
-                    reshape_to(d, input);
-                    d
-                }),
+                None => {
+                    if let Some(d) = dx.as_deref_mut() {
+                        reshape_to(d, input);
+                    }
+                    dx.as_deref_mut()
+                }
             };
             match &self.stages[k] {
                 Stage::Affine { slot, outputs, .. } => {
