@@ -133,6 +133,11 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         "<= 1.05",
     ));
     if name == "f32" {
+        println!(
+            "f32 training step: library {:.1} GFLOP/s, hand-written {:.1} GFLOP/s (matrix products only)",
+            step_flops() * steps / lib / 1e9,
+            step_flops() * steps / hand / 1e9
+        );
         lines.push(Line {
             measure: "effective GFLOP/s of an f32 training step (matrix products)".into(),
             value: step_flops() * steps / lib / 1e9,

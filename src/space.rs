@@ -484,7 +484,7 @@ impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
 /// Whether every value is finite, in blocks whose test has no early exit,
 /// so that the compiler can vectorise it (the training loop runs it over
 /// every gradient and every set of parameters).
-fn all_finite_slice<T: Real>(values: &[T]) -> bool {
+pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
     values
         .chunks(256)
         .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))

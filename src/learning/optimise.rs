@@ -12,7 +12,7 @@
 
 use crate::error::{Error, Result};
 use crate::learning::schedule::{Schedule, fraction, positive};
-use crate::space::{Euclidean, Real};
+use crate::space::{Euclidean, Real, all_finite_slice};
 
 /// A stateful update rule for parameters, given their gradient.
 ///
@@ -101,7 +101,7 @@ pub trait Optimiser<R: Real> {
                 detail: format!("{} at gradient coordinate {i}", coords[i]),
             });
         }
-        step_finite(self, params, gradient)
+        step_finite(self, params, gradient).map(|_| ())
     }
 
     /// The parameters after one update with `gradient`, as a new value;
@@ -118,17 +118,23 @@ pub trait Optimiser<R: Real> {
 
 /// [`Optimiser::update_in_place`] for a gradient already known to be
 /// finite and of the parameters' dimension (the training loop checks both
-/// itself): checks the shapes part by part, then steps.
+/// itself): checks the shapes part by part, then steps. Returns whether
+/// every updated parameter is finite, checked run by run while the run is
+/// still in cache rather than in a second pass.
 pub(crate) fn step_finite<R: Real, O: Optimiser<R>, P: Euclidean<R>>(
     optimiser: &mut O,
     params: &mut P,
     gradient: &P,
-) -> Result<()> {
+) -> Result<bool> {
     // Shapes are checked before the step is counted.
     params.zip_runs_mut(gradient, 0, &mut |_, _, _| {})?;
     optimiser.begin_update(params.dimension())?;
-    params.zip_runs_mut(gradient, 0, &mut |at, p, g| optimiser.step_run(at, p, g))?;
-    Ok(())
+    let mut finite = true;
+    params.zip_runs_mut(gradient, 0, &mut |at, p, g| {
+        optimiser.step_run(at, p, g);
+        finite &= all_finite_slice(p);
+    })?;
+    Ok(finite)
 }
 
 /// State vectors of one length, made at the first update, and the rate and

@@ -650,10 +650,11 @@ impl Training {
                 }
                 // The gradient was just found finite; `update_in_place`
                 // would look again.
-                if let Err(e) = step_finite(optimiser, &mut input.0, &grad) {
-                    return Err(fail(e, input, true));
-                }
-                if !input.0.all_finite() {
+                let finite = match step_finite(optimiser, &mut input.0, &grad) {
+                    Ok(finite) => finite,
+                    Err(e) => return Err(fail(e, input, true)),
+                };
+                if !finite {
                     return Err(fail(diverged("updated parameters"), input, false));
                 }
                 epoch_total = epoch_total + batch_loss * count::<T>(rows.len());
