@@ -6,6 +6,8 @@
 //! `cargo run --release --example against_hand_written` (add `-- quick` for
 //! fewer repetitions, as CI does).
 
+#[path = "../benches/support/circuits.rs"]
+mod circuits;
 #[path = "../benches/support/chains.rs"]
 mod chains;
 #[path = "../benches/support/hand_written.rs"]
@@ -423,6 +425,35 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
     ));
 }
 
+/// Bit-sliced gates against one bool per example: the same 64-gate circuit
+/// forward and backward, per example, at two batch sizes.
+fn bits_lines(rounds: usize, lines: &mut Vec<Line>) {
+    let model = circuits::circuit();
+    for count in [4096, 65_536] {
+        let (input, bools) = circuits::examples(count);
+        circuits::check_agreement(&model, &input, &bools);
+        let mut work = Workspace::new();
+        let mut change = (input.0.clone(), input.1.clone());
+        let (bits, by_hand) = race(
+            rounds,
+            20,
+            || circuits::bits_pass(&model, &input, &mut work, &mut change),
+            || {
+                black_box(circuits::bools_pass(&bools));
+            },
+        );
+        let speed_up = by_hand / bits;
+        lines.push(Line {
+            measure: format!(
+                "bit-sliced / one bool per example, 64 gates forward and backward, {count} examples (speed-up)"
+            ),
+            value: speed_up,
+            target: ">= 20",
+            ok: speed_up >= 20.0,
+        });
+    }
+}
+
 /// One gradient through the reusing passes, into kept buffers.
 fn reused<A: revdiff::Space, F: Map<A, Output = A>>(
     f: &F,
@@ -575,6 +606,14 @@ fn main() {
         return;
     }
     let quick = args.iter().any(|a| a == "quick");
+    if args.iter().any(|a| a == "bits") {
+        let mut lines = Vec::new();
+        bits_lines(3, &mut lines);
+        for l in &lines {
+            println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
+        }
+        return;
+    }
     if args.iter().any(|a| a == "chains") {
         let mut lines = Vec::new();
         chain_lines(3, &mut lines);
@@ -608,6 +647,7 @@ fn main() {
     training_lines::<f32>("f32", rounds, epochs, &mut lines);
     chain_lines(rounds, &mut lines);
     second_order_lines(rounds, &mut lines);
+    bits_lines(rounds, &mut lines);
     let speed_up = sharded_speed_up(rounds);
     lines.push(Line {
         measure: "data-parallel speed-up on 2 cores, batch 1,024 (2 shards against 1)".into(),

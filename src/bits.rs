@@ -37,6 +37,7 @@ use crate::error::{Error, Result};
 use crate::laws::{ExactPairing, ExactScalar};
 use crate::map::{Compose, Map, Reverse};
 use crate::space::Space;
+use crate::workspace::Workspace;
 use std::fmt;
 
 /// An element of Z2: `Bit(true) + Bit(true) = Bit(false)`.
@@ -212,6 +213,37 @@ impl Bits {
     }
 
     /// `1 + x` on every bit, padding kept at 0.
+    /// [`zip`](Bits::zip) into `out`, in its memory.
+    fn zip_into(
+        &self,
+        other: &Bits,
+        out: &mut Bits,
+        operation: &'static str,
+        op: impl Fn(u64, u64) -> u64,
+    ) -> Result<()> {
+        self.same_shape(other, operation)?;
+        out.wires = self.wires;
+        out.examples = self.examples;
+        out.words.resize(self.words.len(), 0);
+        for ((o, &a), &b) in out.words.iter_mut().zip(&self.words).zip(&other.words) {
+            *o = op(a, b);
+        }
+        Ok(())
+    }
+
+    /// A gate's output into the workspace's buffer (made on the first call).
+    fn zip_reusing<'w>(
+        &self,
+        other: &Bits,
+        work: &'w mut Workspace,
+        operation: &'static str,
+        op: impl Fn(u64, u64) -> u64,
+    ) -> Result<&'w Bits> {
+        let out = work.output_or_insert_with(|| Bits::zeros(0, 0));
+        self.zip_into(other, out, operation, op)?;
+        Ok(out)
+    }
+
     fn complement(&self) -> Bits {
         let mut out = self.clone();
         for (k, w) in out.words.iter_mut().enumerate() {
@@ -251,6 +283,14 @@ impl Space for Bits {
             *a ^= b;
         }
         Ok(())
+    }
+    fn check_same_shape(&self, other: &Self) -> Result<()> {
+        self.same_shape(other, "adding bit values")
+    }
+    fn assign_from(&mut self, other: &Self) {
+        self.wires = other.wires;
+        self.examples = other.examples;
+        self.words.clone_from(&other.words);
     }
     fn shape_string(&self) -> String {
         format!("({} wires, {} examples)", self.wires, self.examples)
@@ -311,6 +351,21 @@ impl Map<(Bits, Bits)> for XorGate {
     fn backward_memo(&self, _: &(), dz: &Bits) -> Result<(Bits, Bits)> {
         Ok((dz.clone(), dz.clone()))
     }
+    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+        x.zip_reusing(y, work, "XOR gate", |a, b| a ^ b)
+    }
+    fn backward_reusing(
+        &self,
+        (x, _): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        x.same_shape(dz, "the output change of an XOR gate")?;
+        dx.assign_from(dz);
+        dy.assign_from(dz);
+        Ok(())
+    }
 }
 
 impl Reverse<(Bits, Bits)> for XorGate {
@@ -329,6 +384,21 @@ impl Map<(Bits, Bits)> for AndGate {
     fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
         let op = "the output change of an AND gate";
         Ok((y.zip(dz, op, |a, b| a & b)?, x.zip(dz, op, |a, b| a & b)?))
+    }
+    // The reusing passes keep no copies: the inputs come again.
+    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+        x.zip_reusing(y, work, "AND gate", |a, b| a & b)
+    }
+    fn backward_reusing(
+        &self,
+        (x, y): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        let op = "the output change of an AND gate";
+        y.zip_into(dz, dx, op, |a, b| a & b)?;
+        x.zip_into(dz, dy, op, |a, b| a & b)
     }
 }
 
@@ -383,6 +453,20 @@ impl Map<(Bits, Bits)> for OrGate {
     fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
         let op = "the output change of an OR gate";
         Ok((y.zip(dz, op, |a, b| !a & b)?, x.zip(dz, op, |a, b| !a & b)?))
+    }
+    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+        x.zip_reusing(y, work, "OR gate", |a, b| a | b)
+    }
+    fn backward_reusing(
+        &self,
+        (x, y): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        let op = "the output change of an OR gate";
+        y.zip_into(dz, dx, op, |a, b| !a & b)?;
+        x.zip_into(dz, dy, op, |a, b| !a & b)
     }
 }
 

@@ -129,6 +129,13 @@ pub trait Space: Clone + Debug + 'static {
         self.try_add(other).map(|_| ())
     }
 
+    /// Overwrites `self` with `other`, in `self`'s memory where the shapes
+    /// agree (the crate's spaces do; the default clones). For reusing
+    /// passes that keep a copy of a value in a buffer.
+    fn assign_from(&mut self, other: &Self) {
+        *self = other.clone();
+    }
+
     /// The shape, printed for error messages: `scalar`, `(3, 4)`, `((2,), scalar)`.
     fn shape_string(&self) -> String;
 
@@ -402,6 +409,13 @@ impl<T: Real, D: Dimension + 'static> Space for Array<T, D> {
         same_shape("adding arrays", self, other)?;
         self.zip_mut_with(other, |a, b| *a = *a + *b);
         Ok(())
+    }
+    fn assign_from(&mut self, other: &Self) {
+        if self.shape() == other.shape() {
+            self.assign(other);
+        } else {
+            *self = other.clone();
+        }
     }
     fn shape_string(&self) -> String {
         shape_tuple(self.shape())
@@ -805,6 +819,9 @@ macro_rules! tuple_space {
             fn check_same_shape(&self, other: &Self) -> Result<()> {
                 $(self.$idx.check_same_shape(&other.$idx)?;)+
                 Ok(())
+            }
+            fn assign_from(&mut self, other: &Self) {
+                $(self.$idx.assign_from(&other.$idx);)+
             }
         }
         impl<K: Copy, $($name: Scalable<K>),+> Scalable<K> for ($($name,)+) {

@@ -381,3 +381,42 @@ fn run_time_models_reuse_their_buffers_and_agree_with_their_memo_passes() {
     assert!(gap(&fast.parameters, &slow.parameters) < 1e-12);
     assert!(gap(&fast.parameters, &p) > 1e-3);
 }
+
+#[test]
+fn pairs_and_gates_reuse_their_buffers_over_bits_and_arrays() {
+    use revdiff::bits::{AndGate, Bits, OrGate, XorGate};
+    // Four layers of gates on a pair of wires, then an AND of the two.
+    let layer = || XorGate.pair(OrGate);
+    let circuit = layer()
+        .then(layer())
+        .then(AndGate.pair(XorGate))
+        .then(layer())
+        .then(AndGate);
+    let mut work = Workspace::new();
+    let mut dx = (Bits::zeros(1, 1), Bits::zeros(1, 1));
+    // Example counts that change between calls, across a word boundary.
+    for (examples, seed) in [(100, 1), (100, 2), (64, 3), (130, 4)] {
+        let bits = |k: usize| Bits::from_fn(1, examples, |_, e| (e * 7 + k * 3 + seed) % 5 < 2);
+        let x = (bits(0), bits(1));
+        let dz = bits(2);
+        let y = circuit.forward_reusing(&x, &mut work).unwrap().clone();
+        assert_eq!(y, circuit.forward(&x).unwrap());
+        circuit.backward_reusing(&x, &mut work, &dz, &mut dx).unwrap();
+        assert_eq!(dx, circuit.backward(&x, &dz).unwrap(), "{examples} examples");
+    }
+    // The same pair combinator over arrays adds the parts' changes.
+    let f = Sin.pair(Tanh).then(MulPair);
+    let x = array![0.3, -1.0, 2.0];
+    let mut work = Workspace::new();
+    let mut dx = array![0.0];
+    for _ in 0..2 {
+        assert_eq!(*f.forward_reusing(&x, &mut work).unwrap(), f.forward(&x).unwrap());
+        f.backward_reusing(&x, &mut work, &array![1.0, 2.0, -1.0], &mut dx).unwrap();
+        assert_eq!(dx, f.backward(&x, &array![1.0, 2.0, -1.0]).unwrap());
+    }
+    // Gates of different widths are refused.
+    let err = XorGate
+        .forward_reusing(&(Bits::zeros(1, 10), Bits::zeros(1, 11)), &mut Workspace::new())
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+}

@@ -464,6 +464,60 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
         dx.try_add_assign(&self.right.backward_memo(rg, dz)?)?;
         Ok(dx)
     }
+    // The pair's output is a copy of both parts' outputs, kept in place
+    // from call to call: the parts' own live in their workspaces.
+    fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w Self::Output> {
+        let w = work.state_or_insert_with(PairWork::<A, F::Output, G::Output>::default);
+        let y = self.left.forward_reusing(x, &mut w.left)?;
+        let z = self.right.forward_reusing(x, &mut w.right)?;
+        match &mut w.output {
+            Some((oy, oz)) => {
+                oy.assign_from(y);
+                oz.assign_from(z);
+            }
+            None => w.output = Some((y.clone(), z.clone())),
+        }
+        Ok(w.output.as_ref().expect("just filled"))
+    }
+    fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w Self::Output> {
+        match work.state::<PairWork<A, F::Output, G::Output>>() {
+            Ok(PairWork { output: Some(o), .. }) => Ok(o),
+            _ => work.output(),
+        }
+    }
+    fn backward_reusing(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        (dy, dz): &Self::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        let w = work.state_mut::<PairWork<A, F::Output, G::Output>>()?;
+        self.left.backward_reusing(x, &mut w.left, dy, dx)?;
+        let other = shaped_like(&mut w.right_change, x);
+        self.right.backward_reusing(x, &mut w.right, dz, other)?;
+        dx.try_add_assign(other)
+    }
+}
+
+/// What a [`Pair`]'s reusing passes keep: each part's workspace, the copy
+/// of both outputs, and a buffer for the right part's input change.
+struct PairWork<A, B, C> {
+    left: Workspace,
+    right: Workspace,
+    output: Option<(B, C)>,
+    right_change: Option<A>,
+}
+
+impl<A, B, C> Default for PairWork<A, B, C> {
+    fn default() -> Self {
+        PairWork {
+            left: Workspace::new(),
+            right: Workspace::new(),
+            output: None,
+            right_change: None,
+        }
+    }
 }
 
 /// `R[<f, g>] = <<fst, snd ; fst> ; R[f], <fst, snd ; snd> ; R[g]> ; add`.
