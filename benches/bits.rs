@@ -18,8 +18,9 @@ fn gates(c: &mut Criterion) {
     for count in [4096, 65_536] {
         let (input, bools) = examples(count);
         check_agreement(&model, &input, &bools);
-        let mut group =
-            c.benchmark_group(format!("64-gate circuit, {count} examples, forward and backward"));
+        let mut group = c.benchmark_group(format!(
+            "64-gate circuit, {count} examples, forward and backward"
+        ));
         let mut work = Workspace::new();
         let mut change = (Bits::zeros(1, 1), Bits::zeros(1, 1));
         group.bench_function("bit-sliced gates", |bench| {

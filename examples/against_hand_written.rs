@@ -6,10 +6,10 @@
 //! `cargo run --release --example against_hand_written` (add `-- quick` for
 //! fewer repetitions, as CI does).
 
-#[path = "../benches/support/circuits.rs"]
-mod circuits;
 #[path = "../benches/support/chains.rs"]
 mod chains;
+#[path = "../benches/support/circuits.rs"]
+mod circuits;
 #[path = "../benches/support/hand_written.rs"]
 mod hand_written;
 

@@ -231,6 +231,22 @@ impl Bits {
         Ok(())
     }
 
+    /// `op` word by word, added (XOR) into `acc`, which must have this shape.
+    fn zip_adding(
+        &self,
+        other: &Bits,
+        acc: &mut Bits,
+        operation: &'static str,
+        op: impl Fn(u64, u64) -> u64,
+    ) -> Result<()> {
+        self.same_shape(other, operation)?;
+        self.same_shape(acc, operation)?;
+        for ((o, &a), &b) in acc.words.iter_mut().zip(&self.words).zip(&other.words) {
+            *o ^= op(a, b);
+        }
+        Ok(())
+    }
+
     /// A gate's output into the workspace's buffer (made on the first call).
     fn zip_reusing<'w>(
         &self,
@@ -351,7 +367,11 @@ impl Map<(Bits, Bits)> for XorGate {
     fn backward_memo(&self, _: &(), dz: &Bits) -> Result<(Bits, Bits)> {
         Ok((dz.clone(), dz.clone()))
     }
-    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+    fn forward_reusing<'w>(
+        &self,
+        (x, y): &(Bits, Bits),
+        work: &'w mut Workspace,
+    ) -> Result<&'w Bits> {
         x.zip_reusing(y, work, "XOR gate", |a, b| a ^ b)
     }
     fn backward_reusing(
@@ -365,6 +385,18 @@ impl Map<(Bits, Bits)> for XorGate {
         dx.assign_from(dz);
         dy.assign_from(dz);
         Ok(())
+    }
+    fn backward_reusing_adding(
+        &self,
+        (x, _): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        let op = "the output change of an XOR gate";
+        x.same_shape(dz, op)?;
+        dx.try_add_assign(dz)?;
+        dy.try_add_assign(dz)
     }
 }
 
@@ -386,7 +418,11 @@ impl Map<(Bits, Bits)> for AndGate {
         Ok((y.zip(dz, op, |a, b| a & b)?, x.zip(dz, op, |a, b| a & b)?))
     }
     // The reusing passes keep no copies: the inputs come again.
-    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+    fn forward_reusing<'w>(
+        &self,
+        (x, y): &(Bits, Bits),
+        work: &'w mut Workspace,
+    ) -> Result<&'w Bits> {
         x.zip_reusing(y, work, "AND gate", |a, b| a & b)
     }
     fn backward_reusing(
@@ -399,6 +435,17 @@ impl Map<(Bits, Bits)> for AndGate {
         let op = "the output change of an AND gate";
         y.zip_into(dz, dx, op, |a, b| a & b)?;
         x.zip_into(dz, dy, op, |a, b| a & b)
+    }
+    fn backward_reusing_adding(
+        &self,
+        (x, y): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        let op = "the output change of an AND gate";
+        y.zip_adding(dz, dx, op, |a, b| a & b)?;
+        x.zip_adding(dz, dy, op, |a, b| a & b)
     }
 }
 
@@ -454,7 +501,11 @@ impl Map<(Bits, Bits)> for OrGate {
         let op = "the output change of an OR gate";
         Ok((y.zip(dz, op, |a, b| !a & b)?, x.zip(dz, op, |a, b| !a & b)?))
     }
-    fn forward_reusing<'w>(&self, (x, y): &(Bits, Bits), work: &'w mut Workspace) -> Result<&'w Bits> {
+    fn forward_reusing<'w>(
+        &self,
+        (x, y): &(Bits, Bits),
+        work: &'w mut Workspace,
+    ) -> Result<&'w Bits> {
         x.zip_reusing(y, work, "OR gate", |a, b| a | b)
     }
     fn backward_reusing(
@@ -467,6 +518,17 @@ impl Map<(Bits, Bits)> for OrGate {
         let op = "the output change of an OR gate";
         y.zip_into(dz, dx, op, |a, b| !a & b)?;
         x.zip_into(dz, dy, op, |a, b| !a & b)
+    }
+    fn backward_reusing_adding(
+        &self,
+        (x, y): &(Bits, Bits),
+        _: &mut Workspace,
+        dz: &Bits,
+        (dx, dy): &mut (Bits, Bits),
+    ) -> Result<()> {
+        let op = "the output change of an OR gate";
+        y.zip_adding(dz, dx, op, |a, b| !a & b)?;
+        x.zip_adding(dz, dy, op, |a, b| !a & b)
     }
 }
 

@@ -141,6 +141,28 @@ pub trait Map<A: Space>: Compose {
         *dx = self.backward_memo(work.state::<Self::Memo>()?, dy)?;
         Ok(())
     }
+
+    /// [`backward_reusing`](Map::backward_reusing), adding the input
+    /// change to `dx` (of `x`'s shape) instead of overwriting it: what a
+    /// pairing ([`Pair`]) needs, whose input change is the sum of its
+    /// parts'. The default computes the change into a scratch buffer kept
+    /// in `work` and adds it; the crate's gates and elementwise maps add in
+    /// the same pass that computes it.
+    fn backward_reusing_adding(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dy: &Self::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        work.with_scratch(
+            || x.zero_like(),
+            |work, change| {
+                self.backward_reusing(x, work, dy, change)?;
+                dx.try_add_assign(change)
+            },
+        )
+    }
 }
 
 /// A map whose reverse derivative is itself a map of the library, from

@@ -72,6 +72,9 @@ use std::fmt;
 pub struct Workspace {
     output: Option<Box<dyn Any>>,
     state: Option<Box<dyn Any>>,
+    // The default `Map::backward_reusing_adding`'s buffer, apart from the
+    // map's own state so that the map can use its workspace meanwhile.
+    scratch: Option<Box<dyn Any>>,
 }
 
 impl fmt::Debug for Workspace {
@@ -144,6 +147,24 @@ impl Workspace {
     /// (or one of another type).
     pub fn state_or_insert_with<S: 'static>(&mut self, make: impl FnOnce() -> S) -> &mut S {
         slot(&mut self.state, make)
+    }
+
+    /// Runs `f` with this workspace and its scratch buffer of type `V`
+    /// (made by `make` the first time), which is kept, in its box, for the
+    /// next call: the buffer of the default adding backward pass.
+    pub(crate) fn with_scratch<V: 'static, R>(
+        &mut self,
+        make: impl FnOnce() -> V,
+        f: impl FnOnce(&mut Workspace, &mut V) -> R,
+    ) -> R {
+        let mut boxed = match self.scratch.take() {
+            Some(b) if b.is::<V>() => b,
+            _ => Box::new(make()),
+        };
+        let value = boxed.downcast_mut::<V>().expect("checked or just made");
+        let result = f(self, value);
+        self.scratch = Some(boxed);
+        result
     }
 
     /// The output slot and the state at once (both mutable), the state

@@ -401,8 +401,14 @@ fn pairs_and_gates_reuse_their_buffers_over_bits_and_arrays() {
         let dz = bits(2);
         let y = circuit.forward_reusing(&x, &mut work).unwrap().clone();
         assert_eq!(y, circuit.forward(&x).unwrap());
-        circuit.backward_reusing(&x, &mut work, &dz, &mut dx).unwrap();
-        assert_eq!(dx, circuit.backward(&x, &dz).unwrap(), "{examples} examples");
+        circuit
+            .backward_reusing(&x, &mut work, &dz, &mut dx)
+            .unwrap();
+        assert_eq!(
+            dx,
+            circuit.backward(&x, &dz).unwrap(),
+            "{examples} examples"
+        );
     }
     // The same pair combinator over arrays adds the parts' changes.
     let f = Sin.pair(Tanh).then(MulPair);
@@ -410,13 +416,86 @@ fn pairs_and_gates_reuse_their_buffers_over_bits_and_arrays() {
     let mut work = Workspace::new();
     let mut dx = array![0.0];
     for _ in 0..2 {
-        assert_eq!(*f.forward_reusing(&x, &mut work).unwrap(), f.forward(&x).unwrap());
-        f.backward_reusing(&x, &mut work, &array![1.0, 2.0, -1.0], &mut dx).unwrap();
+        assert_eq!(
+            *f.forward_reusing(&x, &mut work).unwrap(),
+            f.forward(&x).unwrap()
+        );
+        f.backward_reusing(&x, &mut work, &array![1.0, 2.0, -1.0], &mut dx)
+            .unwrap();
         assert_eq!(dx, f.backward(&x, &array![1.0, 2.0, -1.0]).unwrap());
     }
     // Gates of different widths are refused.
     let err = XorGate
-        .forward_reusing(&(Bits::zeros(1, 10), Bits::zeros(1, 11)), &mut Workspace::new())
+        .forward_reusing(
+            &(Bits::zeros(1, 10), Bits::zeros(1, 11)),
+            &mut Workspace::new(),
+        )
         .unwrap_err();
     assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+}
+
+#[test]
+fn adding_backward_passes_add_the_input_change_to_what_is_there() {
+    use revdiff::bits::{AndGate, Bits, OrGate, XorGate};
+    // Arrays: the default (through a scratch buffer) and a composite.
+    let x = array![0.2, -0.7, 1.5];
+    let dy = array![1.0, 0.5, -2.0];
+    let start = array![10.0, 20.0, 30.0];
+    fn check<F: Map<ndarray::Array1<f64>, Output = ndarray::Array1<f64>>>(
+        f: F,
+        x: &ndarray::Array1<f64>,
+        dy: &ndarray::Array1<f64>,
+        start: &ndarray::Array1<f64>,
+    ) {
+        let mut work = Workspace::new();
+        for _ in 0..2 {
+            f.forward_reusing(x, &mut work).unwrap();
+            let mut acc = start.clone();
+            f.backward_reusing_adding(x, &mut work, dy, &mut acc)
+                .unwrap();
+            assert_eq!(acc, start + &f.backward(x, dy).unwrap());
+        }
+    }
+    check(Tanh, &x, &dy, &start);
+    check(Sin.then(Exp), &x, &dy, &start);
+    check(Softmax, &x, &dy, &start);
+    // Gates: XOR into what is there.
+    let bits = |k: usize| Bits::from_fn(1, 70, |_, e| (e * 3 + k) % 4 == 0);
+    let input = (bits(0), bits(1));
+    let (dz, base) = (bits(2), (bits(3), bits(4)));
+    for gate in 0..3 {
+        let mut work = Workspace::new();
+        let mut acc = base.clone();
+        let change = match gate {
+            0 => {
+                XorGate.forward_reusing(&input, &mut work).unwrap();
+                XorGate
+                    .backward_reusing_adding(&input, &mut work, &dz, &mut acc)
+                    .unwrap();
+                XorGate.backward(&input, &dz).unwrap()
+            }
+            1 => {
+                AndGate.forward_reusing(&input, &mut work).unwrap();
+                AndGate
+                    .backward_reusing_adding(&input, &mut work, &dz, &mut acc)
+                    .unwrap();
+                AndGate.backward(&input, &dz).unwrap()
+            }
+            _ => {
+                OrGate.forward_reusing(&input, &mut work).unwrap();
+                OrGate
+                    .backward_reusing_adding(&input, &mut work, &dz, &mut acc)
+                    .unwrap();
+                OrGate.backward(&input, &dz).unwrap()
+            }
+        };
+        assert_eq!(
+            acc,
+            (
+                base.0.try_add(&change.0).unwrap(),
+                base.1.try_add(&change.1).unwrap()
+            ),
+            "gate {gate}"
+        );
+    }
 }

@@ -60,7 +60,10 @@ pub fn circuit() -> impl Map<(Bits, Bits), Output = (Bits, Bits)> {
 pub fn examples(count: usize) -> ((Bits, Bits), Vec<(bool, bool)>) {
     let a = |e: usize| e % 3 == 0;
     let b = |e: usize| e % 5 == 1;
-    let bits = (Bits::from_fn(1, count, |_, e| a(e)), Bits::from_fn(1, count, |_, e| b(e)));
+    let bits = (
+        Bits::from_fn(1, count, |_, e| a(e)),
+        Bits::from_fn(1, count, |_, e| b(e)),
+    );
     (bits, (0..count).map(|e| (a(e), b(e))).collect())
 }
 
@@ -88,6 +91,10 @@ pub fn check_agreement<M: Map<(Bits, Bits), Output = (Bits, Bits)>>(
     bits_pass(model, input, &mut work, &mut change);
     for (e, &(x, y)) in bools.iter().enumerate() {
         let expected = by_hand(x, y, x, y);
-        assert_eq!((change.0.get(0, e), change.1.get(0, e)), expected, "example {e}");
+        assert_eq!(
+            (change.0.get(0, e), change.1.get(0, e)),
+            expected,
+            "example {e}"
+        );
     }
 }

@@ -222,6 +222,19 @@ impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
         self.second.backward_reusing(y, &mut w.second, dz, dy)?;
         self.first.backward_reusing(x, &mut w.first, dy, dx)
     }
+    fn backward_reusing_adding(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dz: &G::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
+        let y = self.first.reused_output(&w.first)?;
+        let dy = shaped_like(&mut w.between_change, y);
+        self.second.backward_reusing(y, &mut w.second, dz, dy)?;
+        self.first.backward_reusing_adding(x, &mut w.first, dy, dx)
+    }
 }
 
 /// What a two-stage composite ([`Then`], and parametrised composites)
@@ -481,7 +494,9 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
     }
     fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w Self::Output> {
         match work.state::<PairWork<A, F::Output, G::Output>>() {
-            Ok(PairWork { output: Some(o), .. }) => Ok(o),
+            Ok(PairWork {
+                output: Some(o), ..
+            }) => Ok(o),
             _ => work.output(),
         }
     }
@@ -494,19 +509,28 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
     ) -> Result<()> {
         let w = work.state_mut::<PairWork<A, F::Output, G::Output>>()?;
         self.left.backward_reusing(x, &mut w.left, dy, dx)?;
-        let other = shaped_like(&mut w.right_change, x);
-        self.right.backward_reusing(x, &mut w.right, dz, other)?;
-        dx.try_add_assign(other)
+        self.right.backward_reusing_adding(x, &mut w.right, dz, dx)
+    }
+    fn backward_reusing_adding(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        (dy, dz): &Self::Output,
+        dx: &mut A,
+    ) -> Result<()> {
+        let w = work.state_mut::<PairWork<A, F::Output, G::Output>>()?;
+        self.left.backward_reusing_adding(x, &mut w.left, dy, dx)?;
+        self.right.backward_reusing_adding(x, &mut w.right, dz, dx)
     }
 }
 
-/// What a [`Pair`]'s reusing passes keep: each part's workspace, the copy
-/// of both outputs, and a buffer for the right part's input change.
+/// What a [`Pair`]'s reusing passes keep: each part's workspace and the
+/// copy of both outputs.
 struct PairWork<A, B, C> {
     left: Workspace,
     right: Workspace,
     output: Option<(B, C)>,
-    right_change: Option<A>,
+    input: std::marker::PhantomData<fn(A)>,
 }
 
 impl<A, B, C> Default for PairWork<A, B, C> {
@@ -515,7 +539,7 @@ impl<A, B, C> Default for PairWork<A, B, C> {
             left: Workspace::new(),
             right: Workspace::new(),
             output: None,
-            right_change: None,
+            input: std::marker::PhantomData,
         }
     }
 }
