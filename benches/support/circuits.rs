@@ -58,7 +58,7 @@ pub fn circuit() -> impl Map<(Bits, Bits), Output = (Bits, Bits)> {
 
 /// The same examples both ways: bit-sliced wires and one pair of bools each.
 pub fn examples(count: usize) -> ((Bits, Bits), Vec<(bool, bool)>) {
-    let a = |e: usize| e % 3 == 0;
+    let a = |e: usize| e.is_multiple_of(3);
     let b = |e: usize| e % 5 == 1;
     let bits = (
         Bits::from_fn(1, count, |_, e| a(e)),
