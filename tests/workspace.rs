@@ -460,7 +460,7 @@ fn adding_backward_passes_add_the_input_change_to_what_is_there() {
     check(Sin.then(Exp), &x, &dy, &start);
     check(Softmax, &x, &dy, &start);
     // Gates: XOR into what is there.
-    let bits = |k: usize| Bits::from_fn(1, 70, |_, e| (e * 3 + k) % 4 == 0);
+    let bits = |k: usize| Bits::from_fn(1, 70, |_, e| (e * 3 + k).is_multiple_of(4));
     let input = (bits(0), bits(1));
     let (dz, base) = (bits(2), (bits(3), bits(4)));
     for gate in 0..3 {
