@@ -497,3 +497,69 @@ fn a_backward_pass_that_never_returns_breaks_the_law_at_the_time_limit() {
     // One case ran into the limit; the rest and the shrinking were skipped.
     assert!(started.elapsed() < std::time::Duration::from_secs(5));
 }
+
+/// `x -> x^2` elementwise with right memo passes and reusing passes that
+/// go wrong in the ways buffer reuse does: a backward pass that adds into
+/// its buffer instead of overwriting it (stale values), or an adding pass
+/// that overwrites.
+#[derive(Clone, Debug)]
+struct Squares {
+    stale: bool,
+}
+impl Compose for Squares {}
+impl Map<Array1<f64>> for Squares {
+    type Output = Array1<f64>;
+    type Memo = Array1<f64>;
+    fn forward_memo(&self, x: &Array1<f64>) -> Result<(Array1<f64>, Array1<f64>)> {
+        Ok((x * x, x.clone()))
+    }
+    fn backward_memo(&self, x: &Array1<f64>, dy: &Array1<f64>) -> Result<Array1<f64>> {
+        Ok(x * dy * 2.0)
+    }
+    fn forward_reusing<'w>(
+        &self,
+        x: &Array1<f64>,
+        work: &'w mut Workspace,
+    ) -> Result<&'w Array1<f64>> {
+        work.put_output(x * x);
+        work.output()
+    }
+    fn backward_reusing(
+        &self,
+        x: &Array1<f64>,
+        _: &mut Workspace,
+        dy: &Array1<f64>,
+        dx: &mut Array1<f64>,
+    ) -> Result<()> {
+        if self.stale {
+            *dx += &(x * dy * 2.0); // the mistake: the old contents stay
+        } else {
+            *dx = x * dy * 2.0;
+        }
+        Ok(())
+    }
+    fn backward_reusing_adding(
+        &self,
+        x: &Array1<f64>,
+        _: &mut Workspace,
+        dy: &Array1<f64>,
+        dx: &mut Array1<f64>,
+    ) -> Result<()> {
+        if self.stale {
+            *dx += &(x * dy * 2.0);
+        } else {
+            *dx = x * dy * 2.0; // the mistake: overwrites what was there
+        }
+        Ok(())
+    }
+}
+
+#[test]
+fn reusing_passes_that_keep_stale_values_or_overwrite_are_caught_by_law_7() {
+    for stale in [true, false] {
+        let report = Checker::new().map(&Squares { stale }, vectors(3, -2.0, 2.0).unwrap());
+        broken::<Array1<f64>, Array1<f64>>(&report, Law::ReusingAgrees, 1);
+        // The memo passes are right: law 7 is the only one broken.
+        assert_eq!(report.violations().len(), 1, "{report}");
+    }
+}

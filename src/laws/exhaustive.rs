@@ -142,20 +142,26 @@ impl<K: ExactScalar> Exhaustive<K> {
         }
     }
 
-    /// Laws 1 (additive, zero change) and 6 on a map without a reverse map.
+    /// Laws 1 (additive, zero change), 6 and 7 on a map without a reverse map.
     pub fn map<A, F>(&self, f: &F, domain: &FiniteDomain<A, F::Output>) -> LawReport
     where
         A: ExactPairing<K> + 'static,
         F: Map<A>,
         F::Output: ExactPairing<K> + 'static,
     {
-        let checks = [Law::Additive, Law::ZeroChange, Law::ShapesFinite].map(|l| (l, 1));
+        let checks = [
+            Law::Additive,
+            Law::ZeroChange,
+            Law::ShapesFinite,
+            Law::ReusingAgrees,
+        ]
+        .map(|l| (l, 1));
         self.run(short_type_name::<F>(), &checks, domain, |law, _, c| {
             map_law_exact(&self.judge, law, f, c).unwrap_or_else(|| Err(unexpected(law).into()))
         })
     }
 
-    /// The exact laws (1, 3, 4, 5, 6) at orders 1 and 2 on a map with a
+    /// The exact laws (1, 3, 4, 5, 6, 7) at orders 1 and 2 on a map with a
     /// reverse map.
     pub fn reverse<A, F>(&self, f: &F, domain: &FiniteDomain<A, F::Output>) -> LawReport
     where
@@ -170,6 +176,7 @@ impl<K: ExactScalar> Exhaustive<K> {
             Law::LinearInChange,
             Law::ReverseAgrees,
             Law::ShapesFinite,
+            Law::ReusingAgrees,
         ];
         let checks: Vec<(Law, u8)> = [1, 2]
             .into_iter()

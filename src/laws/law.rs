@@ -38,6 +38,10 @@ pub enum Law {
     /// Law 6: the backward pass returns the input's shape, and forward and
     /// backward values are finite.
     ShapesFinite,
+    /// Law 7: the reusing passes ([`Map::forward_reusing`](crate::Map::forward_reusing),
+    /// `backward_reusing`, `backward_reusing_adding`), into a workspace
+    /// already filled at another point, give what the memo passes give.
+    ReusingAgrees,
     /// A map `h` claimed equal to `f` then `g` obeys the chain rule.
     ChainRule,
     /// A map `h` claimed equal to the pairing `<f, g>` has the summed
@@ -101,19 +105,20 @@ impl Law {
     /// Law 4 is absent: for such a map it follows from law 1, since a
     /// backward map that is additive and homogeneous in the change is linear
     /// in it; law 5 needs the reverse map.
-    pub const FOR_MAPS: [Law; 6] = [
+    pub const FOR_MAPS: [Law; 7] = [
         Law::Additive,
         Law::ZeroChange,
         Law::Homogeneous,
         Law::Derivative,
         Law::Symmetric,
         Law::ShapesFinite,
+        Law::ReusingAgrees,
     ];
 
     /// The single-map laws checked on a map with a reverse map
     /// ([`Checker::reverse`](crate::laws::Checker::reverse)), at orders 1
     /// and 2.
-    pub const FOR_REVERSE: [Law; 8] = [
+    pub const FOR_REVERSE: [Law; 9] = [
         Law::Additive,
         Law::ZeroChange,
         Law::Homogeneous,
@@ -122,6 +127,7 @@ impl Law {
         Law::LinearInChange,
         Law::ReverseAgrees,
         Law::ShapesFinite,
+        Law::ReusingAgrees,
     ];
 
     /// The law's number in the list of single-map laws, if it is one.
@@ -133,6 +139,7 @@ impl Law {
             Law::LinearInChange => Some(4),
             Law::ReverseAgrees => Some(5),
             Law::ShapesFinite => Some(6),
+            Law::ReusingAgrees => Some(7),
             _ => None,
         }
     }
@@ -149,6 +156,7 @@ impl Law {
             Law::LinearInChange => "linear in change",
             Law::ReverseAgrees => "reverse agrees",
             Law::ShapesFinite => "shapes and finiteness",
+            Law::ReusingAgrees => "reusing agrees",
             Law::ChainRule => "chain rule",
             Law::Pairing => "pairing",
             Law::Projection => "projection",
@@ -170,6 +178,9 @@ impl Law {
             }
             Law::ReverseAgrees => "rev() at (x, w) = R[f](x, w)",
             Law::ShapesFinite => "R[f](x, w) has the shape of x; f(x) and R[f](x, w) are finite",
+            Law::ReusingAgrees => {
+                "after a first call at x + v: the reusing passes give f(x) and R[f](x, w), and add R[f](x, w) onto R[f](x, w2)"
+            }
             Law::ChainRule => "h(x) = g(f(x)) and R[h](x, w) = R[f](x, R[g](f(x), w))",
             Law::Pairing => {
                 "h(x) = (f(x), g(x)) and R[h](x, (w.0, w.1)) = R[f](x, w.0) + R[g](x, w.1)"
@@ -194,6 +205,7 @@ impl Law {
             Law::Symmetric => &[X, V, U, W],
             Law::LinearInChange => &[X, U, W, W2],
             Law::ReverseAgrees | Law::ShapesFinite => &[X, W],
+            Law::ReusingAgrees => &[X, V, W, W2],
             Law::ChainRule | Law::Pairing | Law::Projection | Law::SumRule => &[X, W],
             Law::SameMap => &[X, W],
         }

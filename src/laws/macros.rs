@@ -52,7 +52,8 @@ macro_rules! law_tests {
                 homogeneous Homogeneous 1,
                 derivative Derivative 1,
                 symmetric Symmetric 1,
-                shapes_finite ShapesFinite 1
+                shapes_finite ShapesFinite 1,
+                reusing_agrees ReusingAgrees 1
             ]);
         }
     };
@@ -77,7 +78,9 @@ macro_rules! law_tests {
                 symmetric_order_2 Symmetric 2,
                 linear_in_change_order_2 LinearInChange 2,
                 reverse_agrees_order_2 ReverseAgrees 2,
-                shapes_finite_order_2 ShapesFinite 2
+                shapes_finite_order_2 ShapesFinite 2,
+                reusing_agrees ReusingAgrees 1,
+                reusing_agrees_order_2 ReusingAgrees 2
             ]);
         }
     };

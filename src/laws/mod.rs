@@ -28,6 +28,9 @@
 //! 5. [`ReverseAgrees`](Law::ReverseAgrees): the reverse map equals the
 //!    backward pass.
 //! 6. [`ShapesFinite`](Law::ShapesFinite): shapes and finite values.
+//! 7. [`ReusingAgrees`](Law::ReusingAgrees): the reusing passes (into a
+//!    [`Workspace`](crate::Workspace) kept between calls) agree with the
+//!    memo passes, for a map that overrides them.
 //!
 //! For a map with a reverse map ([`Checker::reverse`]) every law is checked
 //! at order 1 and again at order 2, on `R[f]` itself: so the second

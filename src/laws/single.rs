@@ -13,6 +13,7 @@ use super::law::Law;
 use crate::error::Result;
 use crate::map::{Map, Reverse};
 use crate::space::{Euclidean, Real, Scalable, Space};
+use crate::workspace::Workspace;
 
 /// The words law 6 uses for a value that is not finite.
 pub(crate) const NOT_FINITE: &str = "is not finite";
@@ -33,6 +34,7 @@ where
         Law::Additive => additive(judge, f, c),
         Law::ZeroChange => zero_change(judge, f, c),
         Law::ShapesFinite => shapes_finite(judge, f, c),
+        Law::ReusingAgrees => reusing_agrees(judge, f, c),
         _ => return None,
     })
 }
@@ -131,7 +133,9 @@ where
         norm(c.v.coordinates()),
     );
     match law {
-        Law::Additive | Law::Homogeneous | Law::ReverseAgrees => per_derivative * w.max(w2),
+        Law::Additive | Law::Homogeneous | Law::ReverseAgrees | Law::ReusingAgrees => {
+            per_derivative * w.max(w2)
+        }
         Law::LinearInChange => per_derivative * w2 * u,
         // The size of t -> <w, f(x + t v)>, whose rounding the central
         // differences must allow for.
@@ -245,6 +249,52 @@ where
         .into());
     }
     Ok(())
+}
+
+/// Law 7. The first call is at `x + v` (at `x` where `f` refuses that
+/// point), so that a pass which leaves stale values in its buffers, or
+/// reads them, is caught.
+fn reusing_agrees<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
+where
+    A: Space,
+    F: Map<A>,
+    J: ComparisonIn<A> + ComparisonIn<F::Output>,
+{
+    let (y, keep) = f.forward_memo(&c.x)?;
+    let back = f.backward_memo(&keep, &c.w)?;
+    let back2 = f.backward_memo(&keep, &c.w2)?;
+    let mut work = Workspace::new();
+    let elsewhere =
+        c.x.try_add(&c.v)
+            .ok()
+            .filter(|p| f.forward(p).is_ok())
+            .unwrap_or_else(|| c.x.clone());
+    let mut dx = c.x.zero_like();
+    f.forward_reusing(&elsewhere, &mut work)?;
+    f.backward_reusing(&elsewhere, &mut work, &c.w2, &mut dx)?;
+    let reused = f.forward_reusing(&c.x, &mut work)?.clone();
+    ComparisonIn::<F::Output>::same(
+        j,
+        ("f(x)", &y),
+        ("the reusing forward pass at x", &reused),
+        &[],
+    )?;
+    f.backward_reusing(&c.x, &mut work, &c.w, &mut dx)?;
+    j.same(
+        ("R[f](x, w) by the memo passes", &back),
+        ("R[f](x, w) by the reusing backward pass", &dx),
+        &[],
+    )?;
+    let mut sum = back2.clone();
+    f.backward_reusing_adding(&c.x, &mut work, &c.w, &mut sum)?;
+    j.same(
+        ("R[f](x, w2) + R[f](x, w)", &back2.try_add(&back)?),
+        (
+            "R[f](x, w) added onto R[f](x, w2) by the reusing pass",
+            &sum,
+        ),
+        &[&back, &back2],
+    )
 }
 
 fn symmetric_exact<A, F, J>(j: &J, f: &F, c: &Case<A, F::Output>) -> Outcome
