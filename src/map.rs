@@ -142,6 +142,28 @@ pub trait Map<A: Space>: Compose {
         Ok(())
     }
 
+    /// Exchanges the output of the last reusing forward pass, where `work`
+    /// holds it, with `with` (a value of the same type, whose contents the
+    /// map will overwrite at its next forward pass): how a composite keeps
+    /// its parts' outputs together without copying them ([`Pair`]). An
+    /// error, and nothing exchanged, where the output is not in the
+    /// workspace's output slot; the caller then copies. A composite that
+    /// keeps its output in a part's workspace forwards this to the part.
+    fn swap_reused_output(&self, work: &mut Workspace, with: &mut Self::Output) -> Result<()> {
+        // Only where the output really is the slot's: a composite that
+        // keeps it elsewhere may have an old value in the slot.
+        let reported = self.reused_output(work).ok().map(std::ptr::from_ref);
+        match work.output_mut::<Self::Output>() {
+            Some(out) if reported == Some(std::ptr::from_ref(out)) => {
+                std::mem::swap(out, with);
+                Ok(())
+            }
+            _ => Err(Error::WorkspaceNotFilled {
+                operation: "exchanging a reused output (this map keeps its output elsewhere)",
+            }),
+        }
+    }
+
     /// [`backward_reusing`](Map::backward_reusing), adding the input
     /// change to `dx` (of `x`'s shape) instead of overwriting it: what a
     /// pairing ([`Pair`]) needs, whose input change is the sum of its

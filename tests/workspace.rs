@@ -499,3 +499,34 @@ fn adding_backward_passes_add_the_input_change_to_what_is_there() {
         );
     }
 }
+
+#[test]
+fn pairs_give_their_parts_outputs_back_for_the_backward_pass() {
+    // Tanh and sigmoid read their own output in the backward pass, which
+    // the pair holds between the passes; the first call is elsewhere, so a
+    // part that read a stale output would be wrong.
+    let f = Tanh
+        .pair(Sigmoid.then(Exp))
+        .then(MulPair)
+        .pair(Tanh.pair(Sin).then(SubPair));
+    let mut work = Workspace::new();
+    let mut dx = array![0.0];
+    let dz = (array![1.0, -2.0], array![0.5, 3.0]);
+    for x in [array![2.0, -3.0], array![0.3, 0.8], array![-1.0, 0.1]] {
+        assert_eq!(
+            *f.forward_reusing(&x, &mut work).unwrap(),
+            f.forward(&x).unwrap()
+        );
+        f.backward_reusing(&x, &mut work, &dz, &mut dx).unwrap();
+        // Equal up to the order of the additions (the reusing passes add
+        // each part's change into one buffer in turn).
+        assert!(gap(&dx, &f.backward(&x, &dz).unwrap()) < 1e-14);
+        // The pair's output is still the last forward pass's.
+        assert_eq!(*f.reused_output(&work).unwrap(), f.forward(&x).unwrap());
+        let mut acc = array![1.0, 1.0];
+        f.backward_reusing_adding(&x, &mut work, &dz, &mut acc)
+            .unwrap();
+        // Equal up to the order of the additions.
+        assert!(gap(&acc, &(f.backward(&x, &dz).unwrap() + 1.0)) < 1e-14);
+    }
+}

@@ -209,6 +209,10 @@ impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
         let w = work.state::<TwoStageWork<F::Output>>()?;
         self.second.reused_output(&w.second)
     }
+    fn swap_reused_output(&self, work: &mut Workspace, with: &mut G::Output) -> Result<()> {
+        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
+        self.second.swap_reused_output(&mut w.second, with)
+    }
     fn backward_reusing(
         &self,
         x: &A,
@@ -477,18 +481,31 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
         dx.try_add_assign(&self.right.backward_memo(rg, dz)?)?;
         Ok(dx)
     }
-    // The pair's output is a copy of both parts' outputs, kept in place
-    // from call to call: the parts' own live in their workspaces.
+    // The pair's output is a tuple of its own. From the second call on,
+    // each part's fresh output is exchanged with the tuple's old one (no
+    // copy), or copied where the part keeps its output elsewhere; the
+    // backward pass gives the parts their outputs back while they run.
     fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w Self::Output> {
         let w = work.state_or_insert_with(PairWork::<A, F::Output, G::Output>::default);
-        let y = self.left.forward_reusing(x, &mut w.left)?;
-        let z = self.right.forward_reusing(x, &mut w.right)?;
+        w.lent = (false, false);
+        self.left.forward_reusing(x, &mut w.left)?;
+        self.right.forward_reusing(x, &mut w.right)?;
         match &mut w.output {
             Some((oy, oz)) => {
-                oy.assign_from(y);
-                oz.assign_from(z);
+                w.lent.0 = self.left.swap_reused_output(&mut w.left, oy).is_ok();
+                if !w.lent.0 {
+                    oy.assign_from(self.left.reused_output(&w.left)?);
+                }
+                w.lent.1 = self.right.swap_reused_output(&mut w.right, oz).is_ok();
+                if !w.lent.1 {
+                    oz.assign_from(self.right.reused_output(&w.right)?);
+                }
             }
-            None => w.output = Some((y.clone(), z.clone())),
+            None => {
+                let y = self.left.reused_output(&w.left)?.clone();
+                let z = self.right.reused_output(&w.right)?.clone();
+                w.output = Some((y, z));
+            }
         }
         Ok(w.output.as_ref().expect("just filled"))
     }
@@ -508,8 +525,10 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
         dx: &mut A,
     ) -> Result<()> {
         let w = work.state_mut::<PairWork<A, F::Output, G::Output>>()?;
-        self.left.backward_reusing(x, &mut w.left, dy, dx)?;
-        self.right.backward_reusing_adding(x, &mut w.right, dz, dx)
+        w.with_parts(self, |left, right| {
+            self.left.backward_reusing(x, left, dy, dx)?;
+            self.right.backward_reusing_adding(x, right, dz, dx)
+        })
     }
     fn backward_reusing_adding(
         &self,
@@ -519,17 +538,20 @@ impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
         dx: &mut A,
     ) -> Result<()> {
         let w = work.state_mut::<PairWork<A, F::Output, G::Output>>()?;
-        self.left.backward_reusing_adding(x, &mut w.left, dy, dx)?;
-        self.right.backward_reusing_adding(x, &mut w.right, dz, dx)
+        w.with_parts(self, |left, right| {
+            self.left.backward_reusing_adding(x, left, dy, dx)?;
+            self.right.backward_reusing_adding(x, right, dz, dx)
+        })
     }
 }
 
-/// What a [`Pair`]'s reusing passes keep: each part's workspace and the
-/// copy of both outputs.
+/// What a [`Pair`]'s reusing passes keep: each part's workspace, the
+/// pair's output, and which parts' outputs were exchanged into it (lent).
 struct PairWork<A, B, C> {
     left: Workspace,
     right: Workspace,
     output: Option<(B, C)>,
+    lent: (bool, bool),
     input: std::marker::PhantomData<fn(A)>,
 }
 
@@ -539,8 +561,37 @@ impl<A, B, C> Default for PairWork<A, B, C> {
             left: Workspace::new(),
             right: Workspace::new(),
             output: None,
+            lent: (false, false),
             input: std::marker::PhantomData,
         }
+    }
+}
+
+impl<A: Space, B: Space, C: Space> PairWork<A, B, C> {
+    /// Runs `f` on the parts' workspaces with their outputs given back to
+    /// them (a backward pass may read its own output), then lends them to
+    /// the pair again, whether `f` succeeded or not.
+    fn with_parts<F: Map<A, Output = B>, G: Map<A, Output = C>>(
+        &mut self,
+        pair: &Pair<F, G>,
+        f: impl FnOnce(&mut Workspace, &mut Workspace) -> Result<()>,
+    ) -> Result<()> {
+        let (oy, oz) = self.output.as_mut().ok_or(Error::WorkspaceNotFilled {
+            operation: "backward pass of a pair",
+        })?;
+        let exchange = |left: &mut Workspace, right: &mut Workspace, oy: &mut B, oz: &mut C| {
+            if self.lent.0 {
+                pair.left.swap_reused_output(left, oy)?;
+            }
+            if self.lent.1 {
+                pair.right.swap_reused_output(right, oz)?;
+            }
+            Ok::<(), Error>(())
+        };
+        exchange(&mut self.left, &mut self.right, oy, oz)?;
+        let result = f(&mut self.left, &mut self.right);
+        exchange(&mut self.left, &mut self.right, oy, oz)?;
+        result
     }
 }
 
