@@ -407,47 +407,62 @@ impl Reverse<(Bits, Bits)> for XorGate {
     }
 }
 
-impl Map<(Bits, Bits)> for AndGate {
-    type Output = Bits;
-    type Memo = (Bits, Bits);
-    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
-        Ok((x.zip(y, "AND gate", |a, b| a & b)?, (x.clone(), y.clone())))
-    }
-    fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
-        let op = "the output change of an AND gate";
-        Ok((y.zip(dz, op, |a, b| a & b)?, x.zip(dz, op, |a, b| a & b)?))
-    }
-    // The reusing passes keep no copies: the inputs come again.
-    fn forward_reusing<'w>(
-        &self,
-        (x, y): &(Bits, Bits),
-        work: &'w mut Workspace,
-    ) -> Result<&'w Bits> {
-        x.zip_reusing(y, work, "AND gate", |a, b| a & b)
-    }
-    fn backward_reusing(
-        &self,
-        (x, y): &(Bits, Bits),
-        _: &mut Workspace,
-        dz: &Bits,
-        (dx, dy): &mut (Bits, Bits),
-    ) -> Result<()> {
-        let op = "the output change of an AND gate";
-        y.zip_into(dz, dx, op, |a, b| a & b)?;
-        x.zip_into(dz, dy, op, |a, b| a & b)
-    }
-    fn backward_reusing_adding(
-        &self,
-        (x, y): &(Bits, Bits),
-        _: &mut Workspace,
-        dz: &Bits,
-        (dx, dy): &mut (Bits, Bits),
-    ) -> Result<()> {
-        let op = "the output change of an AND gate";
-        y.zip_adding(dz, dx, op, |a, b| a & b)?;
-        x.zip_adding(dz, dy, op, |a, b| a & b)
-    }
+// The AND and OR gates: the output is `value(x, y)`; the change of each
+// input is `slope(other input, dz)`, so the passes keep (or are handed
+// again) both inputs.
+macro_rules! two_input_gate {
+    ($gate:ty, $name:literal, |$a:ident, $b:ident| $value:expr, $change_of:literal, |$o:ident, $d:ident| $slope:expr) => {
+        impl Map<(Bits, Bits)> for $gate {
+            type Output = Bits;
+            type Memo = (Bits, Bits);
+            fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
+                Ok((x.zip(y, $name, |$a, $b| $value)?, (x.clone(), y.clone())))
+            }
+            fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
+                Ok((
+                    y.zip(dz, $change_of, |$o, $d| $slope)?,
+                    x.zip(dz, $change_of, |$o, $d| $slope)?,
+                ))
+            }
+            // The reusing passes keep no copies: the inputs come again.
+            fn forward_reusing<'w>(
+                &self,
+                (x, y): &(Bits, Bits),
+                work: &'w mut Workspace,
+            ) -> Result<&'w Bits> {
+                x.zip_reusing(y, work, $name, |$a, $b| $value)
+            }
+            fn backward_reusing(
+                &self,
+                (x, y): &(Bits, Bits),
+                _: &mut Workspace,
+                dz: &Bits,
+                (dx, dy): &mut (Bits, Bits),
+            ) -> Result<()> {
+                y.zip_into(dz, dx, $change_of, |$o, $d| $slope)?;
+                x.zip_into(dz, dy, $change_of, |$o, $d| $slope)
+            }
+            fn backward_reusing_adding(
+                &self,
+                (x, y): &(Bits, Bits),
+                _: &mut Workspace,
+                dz: &Bits,
+                (dx, dy): &mut (Bits, Bits),
+            ) -> Result<()> {
+                y.zip_adding(dz, dx, $change_of, |$o, $d| $slope)?;
+                x.zip_adding(dz, dy, $change_of, |$o, $d| $slope)
+            }
+        }
+    };
 }
+
+two_input_gate!(
+    AndGate,
+    "AND gate",
+    |a, b| a & b,
+    "the output change of an AND gate",
+    |other, dz| other & dz
+);
 
 /// `((x, y), dz) -> (y dz, x dz)` from gates.
 pub type AndGateRev =
@@ -491,46 +506,14 @@ impl OrGate {
     }
 }
 
-impl Map<(Bits, Bits)> for OrGate {
-    type Output = Bits;
-    type Memo = (Bits, Bits);
-    fn forward_memo(&self, (x, y): &(Bits, Bits)) -> Result<(Bits, (Bits, Bits))> {
-        Ok((x.zip(y, "OR gate", |a, b| a | b)?, (x.clone(), y.clone())))
-    }
-    fn backward_memo(&self, (x, y): &(Bits, Bits), dz: &Bits) -> Result<(Bits, Bits)> {
-        let op = "the output change of an OR gate";
-        Ok((y.zip(dz, op, |a, b| !a & b)?, x.zip(dz, op, |a, b| !a & b)?))
-    }
-    fn forward_reusing<'w>(
-        &self,
-        (x, y): &(Bits, Bits),
-        work: &'w mut Workspace,
-    ) -> Result<&'w Bits> {
-        x.zip_reusing(y, work, "OR gate", |a, b| a | b)
-    }
-    fn backward_reusing(
-        &self,
-        (x, y): &(Bits, Bits),
-        _: &mut Workspace,
-        dz: &Bits,
-        (dx, dy): &mut (Bits, Bits),
-    ) -> Result<()> {
-        let op = "the output change of an OR gate";
-        y.zip_into(dz, dx, op, |a, b| !a & b)?;
-        x.zip_into(dz, dy, op, |a, b| !a & b)
-    }
-    fn backward_reusing_adding(
-        &self,
-        (x, y): &(Bits, Bits),
-        _: &mut Workspace,
-        dz: &Bits,
-        (dx, dy): &mut (Bits, Bits),
-    ) -> Result<()> {
-        let op = "the output change of an OR gate";
-        y.zip_adding(dz, dx, op, |a, b| !a & b)?;
-        x.zip_adding(dz, dy, op, |a, b| !a & b)
-    }
-}
+// OR is x + y + xy: the change of x is (1 + y) dz.
+two_input_gate!(
+    OrGate,
+    "OR gate",
+    |a, b| a | b,
+    "the output change of an OR gate",
+    |other, dz| !other & dz
+);
 
 impl Reverse<(Bits, Bits)> for OrGate {
     type Rev = <OrComposite as Reverse<(Bits, Bits)>>::Rev;

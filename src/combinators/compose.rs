@@ -220,11 +220,7 @@ impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
         dz: &G::Output,
         dx: &mut A,
     ) -> Result<()> {
-        let w = work.state_mut::<TwoStageWork<F::Output>>()?;
-        let y = self.first.reused_output(&w.first)?;
-        let dy = shaped_like(&mut w.between_change, y);
-        self.second.backward_reusing(y, &mut w.second, dz, dy)?;
-        self.first.backward_reusing(x, &mut w.first, dy, dx)
+        self.backward_then(x, work, dz, dx, false)
     }
     fn backward_reusing_adding(
         &self,
@@ -233,11 +229,35 @@ impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
         dz: &G::Output,
         dx: &mut A,
     ) -> Result<()> {
+        self.backward_then(x, work, dz, dx, true)
+    }
+}
+
+impl<F, G> Then<F, G> {
+    /// The reusing backward pass: the second stage's into the buffer between
+    /// the stages, then the first stage's into `dx`, overwriting it or
+    /// `adding` to it.
+    fn backward_then<A: Space>(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dz: &G::Output,
+        dx: &mut A,
+        adding: bool,
+    ) -> Result<()>
+    where
+        F: Map<A>,
+        G: Map<F::Output>,
+    {
         let w = work.state_mut::<TwoStageWork<F::Output>>()?;
         let y = self.first.reused_output(&w.first)?;
         let dy = shaped_like(&mut w.between_change, y);
         self.second.backward_reusing(y, &mut w.second, dz, dy)?;
-        self.first.backward_reusing_adding(x, &mut w.first, dy, dx)
+        if adding {
+            self.first.backward_reusing_adding(x, &mut w.first, dy, dx)
+        } else {
+            self.first.backward_reusing(x, &mut w.first, dy, dx)
+        }
     }
 }
 
