@@ -23,6 +23,7 @@ use ndarray::{Array1, Array2, ArrayD};
 use rand::SeedableRng;
 use rand::rngs::StdRng;
 use rand::seq::SliceRandom;
+use revdiff::bits::Bits;
 use revdiff::{
     Adam, Boxed, Chain, Compose, Examples, Map, MeanSquaredError, Real, ShardSum, Sin, Space,
     SplitInput, Training, Workspace,
@@ -428,16 +429,31 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
 /// Bit-sliced gates against one bool per example: the same 64-gate circuit
 /// forward and backward, per example, at two batch sizes.
 fn bits_lines(rounds: usize, lines: &mut Vec<Line>) {
-    let model = circuits::circuit();
+    bits_lines_of("gate by gate", &circuits::circuit(), rounds, lines);
+    bits_lines_of(
+        "word by word",
+        &circuits::word_by_word_circuit(),
+        rounds,
+        lines,
+    );
+}
+
+/// The lines of one way of running the bit-sliced circuit.
+fn bits_lines_of<M: Map<(Bits, Bits), Output = (Bits, Bits)>>(
+    how: &str,
+    model: &M,
+    rounds: usize,
+    lines: &mut Vec<Line>,
+) {
     for count in [4096, 65_536] {
         let (input, bools) = circuits::examples(count);
-        circuits::check_agreement(&model, &input, &bools);
+        circuits::check_agreement(model, &input, &bools);
         let mut work = Workspace::new();
         let mut change = (input.0.clone(), input.1.clone());
         let (bits, by_hand) = race(
             rounds,
             20,
-            || circuits::bits_pass(&model, &input, &mut work, &mut change),
+            || circuits::bits_pass(model, &input, &mut work, &mut change),
             || {
                 black_box(circuits::bools_pass(&bools));
             },
@@ -445,7 +461,7 @@ fn bits_lines(rounds: usize, lines: &mut Vec<Line>) {
         let speed_up = by_hand / bits;
         lines.push(Line {
             measure: format!(
-                "bit-sliced / one bool per example, 64 gates forward and backward, {count} examples (speed-up)"
+                "bit-sliced ({how}) / one bool per example, 64 gates forward and backward, {count} examples (speed-up)"
             ),
             value: speed_up,
             target: ">= 20",

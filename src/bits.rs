@@ -40,6 +40,9 @@ use crate::space::Space;
 use crate::workspace::Workspace;
 use std::fmt;
 
+mod word_by_word;
+pub use word_by_word::{Sliceable, Word, WordByWord, WordValue};
+
 /// An element of Z2: `Bit(true) + Bit(true) = Bit(false)`.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq, Hash)]
 pub struct Bit(pub bool);
@@ -212,7 +215,6 @@ impl Bits {
         })
     }
 
-    /// `1 + x` on every bit, padding kept at 0.
     /// [`zip`](Bits::zip) into `out`, in its memory.
     fn zip_into(
         &self,
@@ -400,13 +402,6 @@ impl Map<(Bits, Bits)> for XorGate {
     }
 }
 
-impl Reverse<(Bits, Bits)> for XorGate {
-    type Rev = Then<Snd, crate::Duplicate>;
-    fn rev(&self) -> Self::Rev {
-        Snd.then(crate::Duplicate)
-    }
-}
-
 // The AND and OR gates: the output is `value(x, y)`; the change of each
 // input is `slope(other input, dz)`, so the passes keep (or are handed
 // again) both inputs.
@@ -468,16 +463,6 @@ two_input_gate!(
 pub type AndGateRev =
     Pair<Then<Pair<Then<Fst, Snd>, Snd>, AndGate>, Then<Pair<Then<Fst, Fst>, Snd>, AndGate>>;
 
-impl Reverse<(Bits, Bits)> for AndGate {
-    type Rev = AndGateRev;
-    fn rev(&self) -> AndGateRev {
-        Pair::new(
-            Fst.then(Snd).pair(Snd).then(AndGate),
-            Fst.then(Fst).pair(Snd).then(AndGate),
-        )
-    }
-}
-
 impl Map<Bits> for NotGate {
     type Output = Bits;
     type Memo = ();
@@ -486,13 +471,6 @@ impl Map<Bits> for NotGate {
     }
     fn backward_memo(&self, _: &(), dz: &Bits) -> Result<Bits> {
         Ok(dz.clone())
-    }
-}
-
-impl Reverse<Bits> for NotGate {
-    type Rev = Snd;
-    fn rev(&self) -> Snd {
-        Snd
     }
 }
 
@@ -514,13 +492,6 @@ two_input_gate!(
     "the output change of an OR gate",
     |other, dz| !other & dz
 );
-
-impl Reverse<(Bits, Bits)> for OrGate {
-    type Rev = <OrComposite as Reverse<(Bits, Bits)>>::Rev;
-    fn rev(&self) -> Self::Rev {
-        self.composite().rev()
-    }
-}
 
 /// `a + s (a + b)` from gates, on `(s, (a, b))`.
 pub type MuxComposite =
@@ -567,12 +538,49 @@ impl Map<MuxInput> for MuxGate {
     }
 }
 
-impl Reverse<MuxInput> for MuxGate {
-    type Rev = <MuxComposite as Reverse<MuxInput>>::Rev;
-    fn rev(&self) -> Self::Rev {
-        self.composite().rev()
-    }
+// The gates' reverse maps, from gates, over `Bits` and over `Word`s alike.
+macro_rules! gate_reverse_maps {
+    ($v:ty) => {
+        impl Reverse<($v, $v)> for XorGate {
+            type Rev = $crate::combinators::Then<$crate::combinators::Snd, $crate::Duplicate>;
+            fn rev(&self) -> Self::Rev {
+                $crate::Compose::then($crate::combinators::Snd, $crate::Duplicate)
+            }
+        }
+        impl Reverse<($v, $v)> for AndGate {
+            type Rev = $crate::bits::AndGateRev;
+            fn rev(&self) -> $crate::bits::AndGateRev {
+                use $crate::Compose;
+                use $crate::combinators::{Fst, Pair, Snd};
+                Pair::new(
+                    Fst.then(Snd).pair(Snd).then(AndGate),
+                    Fst.then(Fst).pair(Snd).then(AndGate),
+                )
+            }
+        }
+        impl Reverse<$v> for NotGate {
+            type Rev = $crate::combinators::Snd;
+            fn rev(&self) -> Self::Rev {
+                $crate::combinators::Snd
+            }
+        }
+        impl Reverse<($v, $v)> for OrGate {
+            type Rev = <$crate::bits::OrComposite as Reverse<($v, $v)>>::Rev;
+            fn rev(&self) -> Self::Rev {
+                <$crate::bits::OrComposite as Reverse<($v, $v)>>::rev(&self.composite())
+            }
+        }
+        impl Reverse<($v, ($v, $v))> for MuxGate {
+            type Rev = <$crate::bits::MuxComposite as Reverse<($v, ($v, $v))>>::Rev;
+            fn rev(&self) -> Self::Rev {
+                <$crate::bits::MuxComposite as Reverse<($v, ($v, $v))>>::rev(&self.composite())
+            }
+        }
+    };
 }
+pub(crate) use gate_reverse_maps;
+
+gate_reverse_maps!(Bits);
 
 /// A polynomial over Z2 in at most 64 variables, in algebraic normal form:
 /// a sum of distinct monomials, each a product of distinct variables (a bit

@@ -1,5 +1,6 @@
 //! The circuit of the bit-sliced benchmark: 32 layers of an XOR and an OR
-//! gate on a pair of wires (64 gates), as the library's gates on `Bits` and
+//! gate on a pair of wires (64 gates), as the library's gates on `Bits`
+//! (gate by gate, and the whole circuit over `Word`s run word by word) and
 //! as a hand-written loop over one `bool` per example.
 //!
 //! Shared by `benches/bits.rs` and `examples/against_hand_written.rs`
@@ -7,7 +8,7 @@
 
 #![allow(dead_code)]
 
-use revdiff::bits::{Bits, OrGate, XorGate};
+use revdiff::bits::{Bits, OrGate, Word, WordByWord, XorGate};
 use revdiff::{Compose, Map, Workspace};
 use std::hint::black_box;
 
@@ -54,6 +55,14 @@ macro_rules! circuit {
 /// The library's circuit: 32 layers, the first and 31 more.
 pub fn circuit() -> impl Map<(Bits, Bits), Output = (Bits, Bits)> {
     circuit!(1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16 17 18 19 20 21 22 23 24 25 26 27 28 29 30 31)
+}
+
+/// The same circuit written over words and run at every word position.
+pub fn word_by_word_circuit() -> impl Map<(Bits, Bits), Output = (Bits, Bits)> {
+    fn over_words() -> impl Map<(Word, Word), Output = (Word, Word)> {
+        circuit!(1 2 3 4 5 6 7 8 9 10 11 12 13 14 15 16 17 18 19 20 21 22 23 24 25 26 27 28 29 30 31)
+    }
+    WordByWord::new(over_words())
 }
 
 /// The same examples both ways: bit-sliced wires and one pair of bools each.

@@ -187,14 +187,17 @@ impl<F: Compose, R: Compose, A> Compose for Transpose<F, R, A> {
 impl<A: Space, F: Map<A>, G: Map<F::Output>> Map<A> for Then<F, G> {
     type Output = G::Output;
     type Memo = (F::Memo, G::Memo);
+    #[inline]
     fn forward(&self, x: &A) -> Result<G::Output> {
         self.second.forward(&self.first.forward(x)?)
     }
+    #[inline]
     fn forward_memo(&self, x: &A) -> Result<(G::Output, Self::Memo)> {
         let (y, rf) = self.first.forward_memo(x)?;
         let (z, rg) = self.second.forward_memo(&y)?;
         Ok((z, (rf, rg)))
     }
+    #[inline]
     fn backward_memo(&self, memo: &Self::Memo, dz: &G::Output) -> Result<A> {
         let (rf, rg) = memo;
         let dy = self.second.backward_memo(rg, dz)?;
@@ -488,14 +491,17 @@ impl<A: Space, F: Reverse<A>, G: Reverse<F::Output>> Reverse<A> for Then<F, G> {
 impl<A: Space, F: Map<A>, G: Map<A>> Map<A> for Pair<F, G> {
     type Output = (F::Output, G::Output);
     type Memo = (F::Memo, G::Memo);
+    #[inline]
     fn forward(&self, x: &A) -> Result<Self::Output> {
         Ok((self.left.forward(x)?, self.right.forward(x)?))
     }
+    #[inline]
     fn forward_memo(&self, x: &A) -> Result<(Self::Output, Self::Memo)> {
         let (y, rf) = self.left.forward_memo(x)?;
         let (z, rg) = self.right.forward_memo(x)?;
         Ok(((y, z), (rf, rg)))
     }
+    #[inline]
     fn backward_memo(&self, (rf, rg): &Self::Memo, (dy, dz): &Self::Output) -> Result<A> {
         let mut dx = self.left.backward_memo(rf, dy)?;
         dx.try_add_assign(&self.right.backward_memo(rg, dz)?)?;
