@@ -483,8 +483,6 @@ fn reused<A: revdiff::Space, F: Map<A, Output = A>>(
     black_box(&*dx);
 }
 
-/// Runs this program again with one thread per matrix product (so that the
-/// shards, not the products, use the cores) and reads its answer.
 /// Hessian-vector product against one backward pass of the same map.
 fn hessian_ratio<A, F>(rounds: usize, reps: usize, f: &F, x: &A, v: &A) -> f64
 where
@@ -552,12 +550,16 @@ fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
     ));
 }
 
+/// Runs this program again with one thread per matrix product and per
+/// elementwise map (so that the single shard uses one core, and the shards,
+/// not the products, use the cores) and reads its answer.
 fn sharded_speed_up(rounds: usize) -> f64 {
     let exe = std::env::current_exe().expect("the running program has a path");
     let out = std::process::Command::new(exe)
         .arg("shards")
         .arg(rounds.to_string())
         .env("MATMUL_NUM_THREADS", "1")
+        .env("RAYON_NUM_THREADS", "1")
         .output()
         .expect("the program runs again");
     String::from_utf8_lossy(&out.stdout)

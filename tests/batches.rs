@@ -408,6 +408,9 @@ fn a_failing_or_panicking_shard_stops_sharded_training_with_an_error() {
         "{}",
         panicked.error
     );
+    // The parameters lent to the shards for the step come back.
+    assert_eq!(panicked.step, Some(0));
+    assert_eq!(panicked.parameters, 0.5);
     // A clean run of the same model trains.
     let fit = train(0.5).unwrap();
     assert!((fit.parameters - 2.0).abs() < (0.5_f64 - 2.0).abs());

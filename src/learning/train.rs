@@ -556,7 +556,7 @@ impl Training {
         start: P,
         data: &Examples<T>,
         mut observer: impl FnMut(&Progress<'_, T, P>) -> V,
-        mut gradient: impl FnMut(&mut Batch<T>, &(P, Array2<T>), &mut P) -> Result<T>,
+        mut gradient: impl FnMut(&mut Batch<T>, &mut (P, Array2<T>), &mut P) -> Result<T>,
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
         T: Real,
@@ -630,7 +630,7 @@ impl Training {
                     }
                 };
                 batch.gather(&train, rows, &mut input.1);
-                let batch_loss = match gradient(&mut batch, &input, &mut grad) {
+                let batch_loss = match gradient(&mut batch, &mut input, &mut grad) {
                     Ok(l) => l,
                     Err(e) => return Err(fail(e, input, true)),
                 };
@@ -838,6 +838,7 @@ fn shard_worker<T, P, B, M>(
     B: Space,
     M: SplitInput<P, Array2<T>, Output = B>,
 {
+    crate::space::keep_maps_on_this_thread();
     let mut work = Workspace::new();
     let mut rows = Array2::<T>::zeros((0, 0));
     while let Ok(job) = jobs.recv() {
@@ -890,11 +891,15 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
     /// The batch loss, and its parameter gradient into `gradient`: the
     /// model's passes run on the shards' threads, the loss on this one
     /// between them, and `reduction` combines the shards' gradients.
+    ///
+    /// The parameters and the batch are lent to the shards for the step
+    /// (swapped into the shared slot and back, whatever happens), not
+    /// copied.
     fn gradient<L, R>(
         &mut self,
         batch: &mut Batch<T>,
         loss: &L,
-        input: &(P, Array2<T>),
+        input: &mut (P, Array2<T>),
         gradient: &mut P,
         reduction: &mut R,
     ) -> Result<T>
@@ -902,7 +907,31 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         L: SplitInput<B, Array2<T>, Output = T>,
         R: GradientReduction<P>,
     {
-        let rows = input.1.nrows();
+        std::mem::swap(&mut *self.shared.write().map_err(|_| poisoned())?, input);
+        let result = self.lent_gradient(batch, loss, gradient, reduction);
+        // A shard that panicked while reading poisons the lock but leaves
+        // its contents whole: the input is taken back either way.
+        let mut shared = self
+            .shared
+            .write()
+            .unwrap_or_else(std::sync::PoisonError::into_inner);
+        std::mem::swap(&mut *shared, input);
+        result
+    }
+
+    /// [`gradient`](Self::gradient), while the shared slot holds the input.
+    fn lent_gradient<L, R>(
+        &mut self,
+        batch: &mut Batch<T>,
+        loss: &L,
+        gradient: &mut P,
+        reduction: &mut R,
+    ) -> Result<T>
+    where
+        L: SplitInput<B, Array2<T>, Output = T>,
+        R: GradientReduction<P>,
+    {
+        let rows = self.shared.read().map_err(|_| poisoned())?.1.nrows();
         let count = self.jobs.len().min(rows).max(1);
         let per = rows.div_ceil(count);
         self.ranges.clear();
@@ -911,15 +940,6 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
                 .map(|k| (k * per, ((k + 1) * per).min(rows)))
                 .filter(|(a, b)| a < b),
         );
-        {
-            let mut shared = self.shared.write().map_err(|_| poisoned())?;
-            shared.0.copy_from(&input.0)?;
-            if shared.1.dim() == input.1.dim() {
-                shared.1.assign(&input.1);
-            } else {
-                shared.1 = input.1.clone();
-            }
-        }
         for (k, &(a, b)) in self.ranges.iter().enumerate() {
             self.send(k, ToShard::Forward(a, b))?;
         }
