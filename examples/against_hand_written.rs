@@ -109,12 +109,14 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let library = || {
         black_box(library_training(&model, epochs, &p0, &examples, lr));
     };
-    let mut net = Network::new(&p0);
     let mut order: Vec<usize> = (0..rows).collect();
     let mut rng = StdRng::seed_from_u64(0);
     let mut xb = Array2::<T>::zeros((BATCH, WIDTHS[0]));
     let mut tb = Array2::<T>::zeros((BATCH, WIDTHS[3]));
+    // Like the library's run, each run starts from the same parameters with
+    // fresh buffers and optimiser state.
     let by_hand = || {
+        let mut net = Network::new(&p0);
         for _ in 0..epochs {
             order.shuffle(&mut rng);
             for chunk in order.chunks(BATCH) {
@@ -126,6 +128,7 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
                 net.adam(lr);
             }
         }
+        black_box(&net.params);
     };
     let (lib, hand) = race(rounds, 1, library, by_hand);
     let steps = (epochs * STEPS_PER_EPOCH) as f64;
@@ -136,6 +139,13 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         "<= 1.05",
     ));
     if name == "f32" {
+        let mut net = Network::new(&p0);
+        let xb = x.slice(ndarray::s![..BATCH, ..]).to_owned();
+        let (products, _) = race(rounds, 20, || net.products_only(black_box(&xb)), || {});
+        println!(
+            "f32 training step's matrix products alone (ndarray's threaded product): {:.1} GFLOP/s",
+            step_flops() / products / 1e9
+        );
         println!(
             "f32 training step: library {:.1} GFLOP/s, hand-written {:.1} GFLOP/s (matrix products only)",
             step_flops() * steps / lib / 1e9,
@@ -641,10 +651,10 @@ fn main() {
         return;
     }
     if args.iter().any(|a| a == "training") {
-        // Only the training lines, for working on them.
+        // Only the training lines, as the full run measures them.
         let mut lines = Vec::new();
-        training_lines::<f64>("f64", 3, 1, &mut lines);
-        training_lines::<f32>("f32", 3, 1, &mut lines);
+        training_lines::<f64>("f64", 7, 4, &mut lines);
+        training_lines::<f32>("f32", 7, 4, &mut lines);
         for l in &lines {
             println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
         }

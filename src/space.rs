@@ -48,10 +48,40 @@ pub trait Real:
     + Euclidean<Self>
     + Pointwise<Elem = Self>
 {
+    /// The hyperbolic tangent as the crate's maps compute it ([`Tanh`],
+    /// [`SechSquared`]). For `f32` and `f64` it is branch-free, so loops
+    /// over arrays vectorise (about 4 times faster than the C library's
+    /// `tanh` over a batch of `f32`), and within 4 units in the last place
+    /// (ulps) of the correctly rounded value for `f32`, and of the C
+    /// library's for `f64` (tested over sweeps of every binade). The
+    /// default is [`Float::tanh`].
+    ///
+    /// [`Tanh`]: crate::Tanh
+    /// [`SechSquared`]: crate::SechSquared
+    ///
+    /// ```
+    /// use revdiff::Real;
+    /// let t = Real::vector_tanh(0.5_f64);
+    /// assert!((t - 0.5_f64.tanh()).abs() <= 4.0 * f64::EPSILON);
+    /// ```
+    #[inline]
+    fn vector_tanh(self) -> Self {
+        Float::tanh(self)
+    }
 }
 
-impl Real for f32 {}
-impl Real for f64 {}
+impl Real for f32 {
+    #[inline]
+    fn vector_tanh(self) -> Self {
+        crate::primitives::elementary::tanh_f32(self)
+    }
+}
+impl Real for f64 {
+    #[inline]
+    fn vector_tanh(self) -> Self {
+        crate::primitives::elementary::tanh_f64(self)
+    }
+}
 
 /// A commutative monoid of values, with a zero shaped like any given value.
 ///

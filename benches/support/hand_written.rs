@@ -1,7 +1,8 @@
 //! The hand-written baselines the library is measured against: the same
 //! multilayer perceptron, loss and Adam written directly in ndarray, as
 //! efficiently as ndarray allows (products into buffers allocated once,
-//! elementwise updates in place, no input change for the first layer).
+//! elementwise updates in place, no input change for the first layer,
+//! the library's vectorised `tanh`).
 //!
 //! Shared by `benches/against_hand_written.rs` and
 //! `examples/against_hand_written.rs` through `#[path]`.
@@ -199,7 +200,9 @@ impl<T: Real> Network<T> {
             };
             general_mat_mul(T::one(), &input, &w.t(), T::one(), out);
             if k < 2 {
-                out.mapv_inplace(|v| v.tanh());
+                // The same vectorised tanh as the library's (public through
+                // `Real`), so that the ratio measures composition alone.
+                out.mapv_inplace(|v| v.vector_tanh());
             }
         }
     }
@@ -244,6 +247,52 @@ impl<T: Real> Network<T> {
             }
         }
         total / n
+    }
+
+    /// Only the matrix products of [`gradient`](Self::gradient), into the
+    /// same buffers: what the step's products cost by themselves, the
+    /// ceiling of its effective GFLOP/s.
+    pub fn products_only(&mut self, x: &Array2<T>) {
+        for k in 0..3 {
+            let (before, rest) = self.acts.split_at_mut(k);
+            let input = if k == 0 {
+                x.view()
+            } else {
+                before[k - 1].view()
+            };
+            general_mat_mul(
+                T::one(),
+                &input,
+                &self.params[k].0.t(),
+                T::zero(),
+                &mut rest[0],
+            );
+        }
+        for k in (0..3).rev() {
+            let (lower, upper) = self.dacts.split_at_mut(k);
+            let upstream: &Array2<T> = if k == 2 { &self.dy } else { &upper[0] };
+            let input = if k == 0 {
+                x.view()
+            } else {
+                self.acts[k - 1].view()
+            };
+            general_mat_mul(
+                T::one(),
+                &upstream.t(),
+                &input,
+                T::zero(),
+                &mut self.grads[k].0,
+            );
+            if k > 0 {
+                general_mat_mul(
+                    T::one(),
+                    upstream,
+                    &self.params[k].0,
+                    T::zero(),
+                    &mut lower[k - 1],
+                );
+            }
+        }
     }
 
     /// The last gradient, in the library's parameter layout.

@@ -3,6 +3,7 @@
 //! catalogue and combinators, so every order exists.
 
 mod batch;
+pub(crate) mod elementary;
 mod linalg;
 mod pick;
 pub(crate) mod pointwise;

@@ -400,7 +400,7 @@ pub struct Tanh;
 impl<T: Real> Elementwise<T> for Tanh {
     const NAME: &'static str = "tanh";
     fn value(&self, x: T) -> T {
-        x.tanh()
+        x.vector_tanh()
     }
     fn slope(&self, x: T) -> T {
         SechSquared.value(x)
@@ -422,11 +422,12 @@ pub struct SechSquared;
 impl<T: Real> Elementwise<T> for SechSquared {
     const NAME: &'static str = "sech squared";
     fn value(&self, x: T) -> T {
-        let t = x.tanh();
+        let t = x.vector_tanh();
         T::one() - t * t
     }
     fn slope(&self, x: T) -> T {
-        real::<T>(-2.0) * self.value(x) * x.tanh()
+        let t = x.vector_tanh();
+        real::<T>(-2.0) * (T::one() - t * t) * t
     }
 }
 elementwise!([E: Pointwise] SechSquared,
