@@ -62,9 +62,11 @@ where
         ))
     }
     fn erased_backward(&self, memo: &dyn Any, dy: &F::Output) -> Result<A> {
-        let r = memo.downcast_ref::<F::Memo>().ok_or(Error::ForeignMemo {
-            operation: "backward pass of a boxed map",
-        })?;
+        let r = memo
+            .downcast_ref::<F::Memo>()
+            .ok_or_else(|| Error::ForeignMemo {
+                operation: "backward pass of a boxed map",
+            })?;
         Map::backward_memo(self, r, dy)
     }
     fn erased_forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w F::Output> {
@@ -251,7 +253,7 @@ impl<T: Real> Stage<T> {
     /// A stage's output must have the shape it declared: otherwise the
     /// error names this stage, not the next one.
     fn check_output(&self, position: usize, y: &ArrayD<T>) -> Result<()> {
-        if y.shape() == self.output.as_slice() {
+        if crate::space::dims_equal(y.shape(), &self.output) {
             return Ok(());
         }
         Err(Error::ShapeMismatch {
@@ -716,7 +718,7 @@ impl<T: Real> Chain<T> {
     }
 
     fn check_input(&self, x: &ArrayD<T>) -> Result<()> {
-        if x.shape() == self.input_shape.as_slice() {
+        if crate::space::dims_equal(x.shape(), &self.input_shape) {
             return Ok(());
         }
         Err(Error::shape(

@@ -101,7 +101,7 @@ impl Workspace {
         self.output
             .as_ref()
             .and_then(|b| b.downcast_ref::<O>())
-            .ok_or(not_filled("reading the output of a reusing forward pass"))
+            .ok_or_else(|| not_filled("reading the output of a reusing forward pass"))
     }
 
     /// The stored output to overwrite in place, if there is one of type `O`.
@@ -126,7 +126,7 @@ impl Workspace {
         self.state
             .as_ref()
             .and_then(|b| b.downcast_ref::<S>())
-            .ok_or(not_filled("reading what a reusing forward pass kept"))
+            .ok_or_else(|| not_filled("reading what a reusing forward pass kept"))
     }
 
     /// The stored state of type `S`, to change in place.
@@ -134,7 +134,7 @@ impl Workspace {
         self.state
             .as_mut()
             .and_then(|b| b.downcast_mut::<S>())
-            .ok_or(not_filled("reading what a reusing forward pass kept"))
+            .ok_or_else(|| not_filled("reading what a reusing forward pass kept"))
     }
 
     /// Stores `value` as the state, in the previous state's box when that
