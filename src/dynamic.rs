@@ -62,11 +62,9 @@ where
         ))
     }
     fn erased_backward(&self, memo: &dyn Any, dy: &F::Output) -> Result<A> {
-        let r = memo
-            .downcast_ref::<F::Memo>()
-            .ok_or_else(|| Error::ForeignMemo {
-                operation: "backward pass of a boxed map",
-            })?;
+        let r = memo.downcast_ref::<F::Memo>().ok_or(Error::ForeignMemo {
+            operation: "backward pass of a boxed map",
+        })?;
         Map::backward_memo(self, r, dy)
     }
     fn erased_forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w F::Output> {

@@ -261,7 +261,7 @@ pub trait Reverse<A: Space>: Map<A> + Clone {
     fn backward_kept(&self, kept: &Kept, dy: &Self::Output) -> Result<A> {
         let memo = kept
             .downcast_ref::<Self::Memo>()
-            .ok_or_else(|| Error::ForeignMemo {
+            .ok_or(Error::ForeignMemo {
                 operation: "backward pass from a kept forward pass",
             })?;
         self.backward_memo(memo, dy)

@@ -394,7 +394,7 @@ struct ThenKept<B> {
 
 fn then_kept<B: 'static>(kept: &Kept) -> Result<&ThenKept<B>> {
     kept.downcast_ref::<ThenKept<B>>()
-        .ok_or_else(|| Error::ForeignMemo {
+        .ok_or(Error::ForeignMemo {
             operation: "reverse map of a sequential composite",
         })
 }
@@ -602,12 +602,9 @@ impl<A: Space, B: Space, C: Space> PairWork<A, B, C> {
         pair: &Pair<F, G>,
         f: impl FnOnce(&mut Workspace, &mut Workspace) -> Result<()>,
     ) -> Result<()> {
-        let (oy, oz) = self
-            .output
-            .as_mut()
-            .ok_or_else(|| Error::WorkspaceNotFilled {
-                operation: "backward pass of a pair",
-            })?;
+        let (oy, oz) = self.output.as_mut().ok_or(Error::WorkspaceNotFilled {
+            operation: "backward pass of a pair",
+        })?;
         let exchange = |left: &mut Workspace, right: &mut Workspace, oy: &mut B, oz: &mut C| {
             if self.lent.0 {
                 pair.left.swap_reused_output(left, oy)?;

@@ -461,7 +461,7 @@ impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
         let grads = grads
             .into_iter()
             .map(|g| {
-                g.ok_or_else(|| Error::ForeignMemo {
+                g.ok_or(Error::ForeignMemo {
                     operation: "run-time model",
                 })
             })

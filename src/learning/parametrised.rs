@@ -401,7 +401,7 @@ fn parametrised_kept<P: 'static, A: 'static, Q: 'static, B: 'static>(
     kept: &Kept,
 ) -> Result<&ThenParametrisedKept<P, A, Q, B>> {
     kept.downcast_ref::<ThenParametrisedKept<P, A, Q, B>>()
-        .ok_or_else(|| Error::ForeignMemo {
+        .ok_or(Error::ForeignMemo {
             operation: "reverse map of a parametrised composite",
         })
 }
