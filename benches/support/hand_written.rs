@@ -187,19 +187,27 @@ impl<T: Real> Network<T> {
 
     /// The forward pass into the activation buffers; returns nothing.
     pub fn forward(&mut self, x: &Array2<T>) {
+        self.forward_pass(x, true);
+    }
+
+    /// The forward pass; with `elementwise` false, only its matrix products.
+    fn forward_pass(&mut self, x: &Array2<T>, elementwise: bool) {
         for k in 0..3 {
             let (w, b) = &self.params[k];
             let (before, rest) = self.acts.split_at_mut(k);
             let out = &mut rest[0];
-            let dim = out.raw_dim();
-            out.assign(&b.broadcast(dim).unwrap());
+            if elementwise {
+                let dim = out.raw_dim();
+                out.assign(&b.broadcast(dim).unwrap());
+            }
             let input = if k == 0 {
                 x.view()
             } else {
                 before[k - 1].view()
             };
-            general_mat_mul(T::one(), &input, &w.t(), T::one(), out);
-            if k < 2 {
+            let keep = if elementwise { T::one() } else { T::zero() };
+            general_mat_mul(T::one(), &input, &w.t(), keep, out);
+            if elementwise && k < 2 {
                 // The same vectorised tanh as the library's (public through
                 // `Real`), so that the ratio measures composition alone.
                 out.mapv_inplace(|v| v.vector_tanh());
@@ -210,17 +218,33 @@ impl<T: Real> Network<T> {
     /// Mean squared error against `t` and its gradient into the grad
     /// buffers (forward included).
     pub fn gradient(&mut self, x: &Array2<T>, t: &Array2<T>) -> T {
-        self.forward(x);
+        self.gradient_pass(x, Some(t))
+    }
+
+    /// Only the matrix products of [`gradient`](Self::gradient), into the
+    /// same buffers: what the step's products cost by themselves, the
+    /// ceiling of its effective GFLOP/s.
+    pub fn products_only(&mut self, x: &Array2<T>) {
+        self.gradient_pass(x, None);
+    }
+
+    /// The gradient against `targets`; without them, only the products
+    /// (the change of the output is whatever the buffer holds).
+    fn gradient_pass(&mut self, x: &Array2<T>, targets: Option<&Array2<T>>) -> T {
+        let elementwise = targets.is_some();
+        self.forward_pass(x, elementwise);
         let n: T = real((BATCH * WIDTHS[3]) as f64);
         let mut total = T::zero();
-        Zip::from(&mut self.dy)
-            .and(&self.acts[2])
-            .and(t)
-            .for_each(|d, &y, &t| {
-                let r = y - t;
-                total = total + r * r;
-                *d = real::<T>(2.0) * r / n;
-            });
+        if let Some(t) = targets {
+            Zip::from(&mut self.dy)
+                .and(&self.acts[2])
+                .and(t)
+                .for_each(|d, &y, &t| {
+                    let r = y - t;
+                    total = total + r * r;
+                    *d = real::<T>(2.0) * r / n;
+                });
+        }
         // Layer 3, then 2, then 1: `upstream` is the change of the layer's
         // output before its activation; the first layer's input change is
         // skipped.
@@ -234,65 +258,23 @@ impl<T: Real> Network<T> {
             };
             let (gw, gb) = &mut self.grads[k];
             general_mat_mul(T::one(), &upstream.t(), &input, T::zero(), gw);
-            gb.fill(T::zero());
-            for row in upstream.rows() {
-                Zip::from(&mut *gb).and(&row).for_each(|g, &r| *g = *g + r);
+            if elementwise {
+                gb.fill(T::zero());
+                for row in upstream.rows() {
+                    Zip::from(&mut *gb).and(&row).for_each(|g, &r| *g = *g + r);
+                }
             }
             if k > 0 {
                 let target = &mut lower[k - 1];
                 general_mat_mul(T::one(), upstream, &self.params[k].0, T::zero(), target);
-                Zip::from(target)
-                    .and(&self.acts[k - 1])
-                    .for_each(|d, &a| *d = *d * (T::one() - a * a));
+                if elementwise {
+                    Zip::from(target)
+                        .and(&self.acts[k - 1])
+                        .for_each(|d, &a| *d = *d * (T::one() - a * a));
+                }
             }
         }
         total / n
-    }
-
-    /// Only the matrix products of [`gradient`](Self::gradient), into the
-    /// same buffers: what the step's products cost by themselves, the
-    /// ceiling of its effective GFLOP/s.
-    pub fn products_only(&mut self, x: &Array2<T>) {
-        for k in 0..3 {
-            let (before, rest) = self.acts.split_at_mut(k);
-            let input = if k == 0 {
-                x.view()
-            } else {
-                before[k - 1].view()
-            };
-            general_mat_mul(
-                T::one(),
-                &input,
-                &self.params[k].0.t(),
-                T::zero(),
-                &mut rest[0],
-            );
-        }
-        for k in (0..3).rev() {
-            let (lower, upper) = self.dacts.split_at_mut(k);
-            let upstream: &Array2<T> = if k == 2 { &self.dy } else { &upper[0] };
-            let input = if k == 0 {
-                x.view()
-            } else {
-                self.acts[k - 1].view()
-            };
-            general_mat_mul(
-                T::one(),
-                &upstream.t(),
-                &input,
-                T::zero(),
-                &mut self.grads[k].0,
-            );
-            if k > 0 {
-                general_mat_mul(
-                    T::one(),
-                    upstream,
-                    &self.params[k].0,
-                    T::zero(),
-                    &mut lower[k - 1],
-                );
-            }
-        }
     }
 
     /// The last gradient, in the library's parameter layout.
