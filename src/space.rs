@@ -50,8 +50,9 @@ pub trait Real:
 {
     /// The hyperbolic tangent as the crate's maps compute it ([`Tanh`],
     /// [`SechSquared`]). For `f32` and `f64` it is branch-free, so loops
-    /// over arrays vectorise (about 4 times faster than the C library's
-    /// `tanh` over a batch of `f32`), and within 4 units in the last place
+    /// over arrays vectorise (over a 128 x 256 batch, about 7 times
+    /// faster than the C library's `tanh` for `f32`, 1.5 times for `f64`),
+    /// and within 4 units in the last place
     /// (ulps) of the correctly rounded value for `f32`, and of the C
     /// library's for `f64` (tested over sweeps of every binade). The
     /// default is [`Float::tanh`].
