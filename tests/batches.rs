@@ -295,31 +295,46 @@ fn examples_read_from_csv_and_bad_files_say_where() {
 fn sharded_gradients_equal_unsharded_ones() {
     let (model, start) = small_network();
     let data = wave(37);
-    let training = Training::new(4, 10).unwrap().seed(2);
+    // Without and with a held-out validation split (the shards then read
+    // their rows from the training part).
+    let plain = Training::new(4, 10).unwrap().seed(2);
+    let held_out = plain.stop_early(0.25, 10).unwrap();
+    for training in [plain, held_out] {
+        sharded_training_equals_unsharded(&model, &start, &data, &training);
+    }
+}
+
+fn sharded_training_equals_unsharded(
+    model: &ThenParametrised<Then<Affine, Tanh>, Affine>,
+    start: &Params,
+    data: &Examples<f64>,
+    training: &Training,
+) {
     let whole = training
         .run(
-            &model,
+            model,
             &MeanSquaredError,
             &mut Adam::new(0.02).unwrap(),
             start.clone(),
-            &data,
+            data,
             |_| {},
         )
         .unwrap();
     for shards in [1, 2, 3, 16] {
         let split = training
             .run_sharded(
-                &model,
+                model,
                 &MeanSquaredError,
                 &mut Adam::new(0.02).unwrap(),
                 start.clone(),
-                &data,
+                data,
                 shards,
                 &mut ShardSum,
                 |_| {},
             )
             .unwrap();
         assert_eq!(split.steps, whole.steps);
+        assert_eq!(split.validation_losses.len(), whole.validation_losses.len());
         // Additivity: the same up to the order of summation.
         for (p, q) in split
             .parameters
@@ -332,11 +347,11 @@ fn sharded_gradients_equal_unsharded_ones() {
     }
     let err = training
         .run_sharded(
-            &model,
+            model,
             &MeanSquaredError,
             &mut Adam::new(0.02).unwrap(),
-            start,
-            &data,
+            start.clone(),
+            data,
             0,
             &mut ShardSum,
             |_| {},

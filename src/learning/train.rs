@@ -423,14 +423,24 @@ impl Training {
         O: Optimiser<T>,
         V: ObserverVerdict,
     {
+        let prepared = match self.prepare(data, &start) {
+            Ok(prepared) => prepared,
+            Err(error) => return Err(refused(error, start)),
+        };
+        let train = &*prepared.train;
         self.run_core(
             model,
             loss,
             optimiser,
             start,
-            data,
+            prepared.rng,
+            train,
+            prepared.validation.as_ref(),
             observer,
-            |batch, input, gradient| batch.gradient(model, loss, input, gradient),
+            |batch, rows, input, gradient| {
+                batch.gather(train, rows, &mut input.1);
+                batch.gradient(model, loss, input, gradient)
+            },
         )
     }
 
@@ -506,13 +516,15 @@ impl Training {
                 value: "0".to_string(),
                 reason: "must be at least 1",
             };
-            return Err(Interrupted {
-                error,
-                step: None,
-                parameters: start,
-            });
+            return Err(refused(error, start));
         }
-        let shared = RwLock::new((start.clone(), Array2::zeros((0, 0))));
+        let prepared = match self.prepare(data, &start) {
+            Ok(prepared) => prepared,
+            Err(error) => return Err(refused(error, start)),
+        };
+        let train = &*prepared.train;
+        // The parameters lent for the step, and the batch's row numbers.
+        let shared = RwLock::new((start.clone(), Vec::new()));
         let slots: Vec<Mutex<P>> = (0..shards).map(|_| Mutex::new(start.zero_like())).collect();
         std::thread::scope(|scope| {
             let mut jobs = Vec::with_capacity(shards);
@@ -524,11 +536,13 @@ impl Training {
                 jobs.push(job_tx);
                 answers.push(answer_rx);
                 let shared = &shared;
-                threads.push(
-                    scope.spawn(move || shard_worker(model, shared, slot, job_rx, answer_tx)),
-                );
+                threads
+                    .push(scope.spawn(move || {
+                        shard_worker(model, train, shared, slot, job_rx, answer_tx)
+                    }));
             }
             let mut pool = ShardPool {
+                train,
                 jobs,
                 answers,
                 shared: &shared,
@@ -541,9 +555,13 @@ impl Training {
                 loss,
                 optimiser,
                 start,
-                data,
+                prepared.rng,
+                train,
+                prepared.validation.as_ref(),
                 observer,
-                |batch, input, gradient| pool.gradient(batch, loss, input, gradient, reduction),
+                |batch, rows, input, gradient| {
+                    pool.gradient(batch, loss, rows, &mut input.0, gradient, reduction)
+                },
             );
             // Closing the job channels ends the threads; joining them here
             // (a panic was already reported as an error) keeps the scope
@@ -563,9 +581,11 @@ impl Training {
         loss: &L,
         optimiser: &mut O,
         start: P,
-        data: &Examples<T>,
+        mut rng: StdRng,
+        train: &Examples<T>,
+        validation: Option<&Examples<T>>,
         mut observer: impl FnMut(&Progress<'_, T, P>) -> V,
-        mut gradient: impl FnMut(&mut Batch<T>, &mut (P, Array2<T>), &mut P) -> Result<T>,
+        mut gradient: impl FnMut(&mut Batch<T>, &[usize], &mut (P, Array2<T>), &mut P) -> Result<T>,
     ) -> std::result::Result<Trained<P, T>, Interrupted<P>>
     where
         T: Real,
@@ -576,29 +596,11 @@ impl Training {
         O: Optimiser<T>,
         V: ObserverVerdict,
     {
-        let refuse = |error, parameters| Interrupted {
-            error,
-            step: None,
-            parameters,
-        };
-        let mut rng = StdRng::seed_from_u64(self.seed);
-        let (train, validation) = match self.split(data, &mut rng) {
-            Ok(parts) => parts,
-            Err(error) => return Err(refuse(error, start)),
-        };
-        if !start.all_finite() {
-            let error = Error::NonFinite {
-                operation: "training",
-                detail: "in the starting parameters".to_string(),
-            };
-            return Err(refuse(error, start));
-        }
-
         // The fallbacks for an interrupted run, made once: the start and a
         // copy refreshed (in place) at the end of every epoch.
         let kept_start = start.clone();
         let mut epoch_snapshot = start.clone();
-        let mut batch = Batch::new(&train);
+        let mut batch = Batch::new(train);
         // The gradient's buffer, overwritten every step.
         let mut grad = start.zero_like();
         let mut input: (P, Array2<T>) = (start, Array2::zeros((0, train.inputs.ncols())));
@@ -634,12 +636,11 @@ impl Training {
                     Interrupted {
                         error,
                         step: Some(step),
-                        parameters: first_with_finite_loss(model, loss, &train, self, candidates)
+                        parameters: first_with_finite_loss(model, loss, train, self, candidates)
                             .unwrap_or_else(|| kept_start.clone()),
                     }
                 };
-                batch.gather(&train, rows, &mut input.1);
-                let batch_loss = match gradient(&mut batch, &mut input, &mut grad) {
+                let batch_loss = match gradient(&mut batch, rows, &mut input, &mut grad) {
                     Ok(l) => l,
                     Err(e) => return Err(fail(e, input, true)),
                 };
@@ -670,7 +671,7 @@ impl Training {
 
                 let epoch_finished = b + 1 == batches;
                 let mut validation_loss = None;
-                if let (true, Some(valid)) = (epoch_finished, &validation) {
+                if let (true, Some(valid)) = (epoch_finished, validation) {
                     match mean_loss(model, loss, &input.0, valid, self.batch_size) {
                         Ok(v) if v.is_finite() => validation_loss = Some(v),
                         Ok(_) => return Err(fail(diverged("validation loss"), input, false)),
@@ -727,6 +728,29 @@ impl Training {
         })
     }
 
+    /// What a run needs before its first step: the seeded generator, after
+    /// it drew the validation split (with early stopping), the training and
+    /// validation rows, and a check that the start is finite.
+    fn prepare<'d, T: Real, P: Euclidean<T>>(
+        &self,
+        data: &'d Examples<T>,
+        start: &P,
+    ) -> Result<Prepared<'d, T>> {
+        let mut rng = StdRng::seed_from_u64(self.seed);
+        let (train, validation) = self.split(data, &mut rng)?;
+        if !start.all_finite() {
+            return Err(Error::NonFinite {
+                operation: "training",
+                detail: "in the starting parameters".to_string(),
+            });
+        }
+        Ok(Prepared {
+            rng,
+            train,
+            validation,
+        })
+    }
+
     /// The training rows and, with early stopping, the validation rows.
     fn split<'d, T: Real>(&self, data: &'d Examples<T>, rng: &mut StdRng) -> Result<Split<'d, T>> {
         let Some(stopping) = self.hold_out else {
@@ -750,6 +774,22 @@ impl Training {
 
 /// The training rows (borrowed when nothing is held out) and the validation rows.
 type Split<'d, T> = (Cow<'d, Examples<T>>, Option<Examples<T>>);
+
+/// See [`Training::prepare`].
+struct Prepared<'d, T: Clone> {
+    rng: StdRng,
+    train: Cow<'d, Examples<T>>,
+    validation: Option<Examples<T>>,
+}
+
+/// A run refused before its first step: the start comes back unchanged.
+fn refused<P>(error: Error, parameters: P) -> Interrupted<P> {
+    Interrupted {
+        error,
+        step: None,
+        parameters,
+    }
+}
 
 fn count<T: Real>(n: usize) -> T {
     T::from(n).expect("row counts fit every real type")
@@ -813,7 +853,8 @@ impl<T: Real> Batch<T> {
 
 /// What the training thread asks of a shard's thread.
 enum ToShard<B> {
-    /// The forward pass on rows `start..end` of the shared batch.
+    /// The forward pass on the batch's rows `start..end` (positions in the
+    /// shared list of row numbers), gathered by the shard itself.
     Forward(usize, usize),
     /// The backward pass for this change of the shard's output.
     Backward(B),
@@ -837,7 +878,8 @@ fn poisoned() -> Error {
 /// gradient slot are reused from step to step, and never cross threads.
 fn shard_worker<T, P, B, M>(
     model: &M,
-    shared: &RwLock<(P, Array2<T>)>,
+    train: &Examples<T>,
+    shared: &RwLock<(P, Vec<usize>)>,
     slot: &Mutex<P>,
     jobs: mpsc::Receiver<ToShard<B>>,
     answers: mpsc::Sender<FromShard<B>>,
@@ -854,12 +896,7 @@ fn shard_worker<T, P, B, M>(
         let answer = match job {
             ToShard::Forward(start, end) => FromShard::Output((|| {
                 let shared = shared.read().map_err(|_| poisoned())?;
-                let part = shared.1.slice_axis(Axis(0), Slice::from(start..end));
-                if rows.dim() == part.dim() {
-                    rows.assign(&part);
-                } else {
-                    rows = part.to_owned();
-                }
+                gather_rows(&train.inputs, &shared.1[start..end], &mut rows);
                 Ok(model.forward_split(&shared.0, &rows, &mut work)?.clone())
             })()),
             ToShard::Backward(dy) => FromShard::Done((|| {
@@ -876,9 +913,10 @@ fn shard_worker<T, P, B, M>(
 
 /// The shards' threads, as the training thread sees them.
 struct ShardPool<'s, T, P, B> {
+    train: &'s Examples<T>,
     jobs: Vec<mpsc::Sender<ToShard<B>>>,
     answers: Vec<mpsc::Receiver<FromShard<B>>>,
-    shared: &'s RwLock<(P, Array2<T>)>,
+    shared: &'s RwLock<(P, Vec<usize>)>,
     slots: &'s [Mutex<P>],
     ranges: Vec<(usize, usize)>,
     outputs: Vec<B>,
@@ -901,14 +939,17 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
     /// model's passes run on the shards' threads, the loss on this one
     /// between them, and `reduction` combines the shards' gradients.
     ///
-    /// The parameters and the batch are lent to the shards for the step
-    /// (swapped into the shared slot and back, whatever happens), not
-    /// copied.
+    /// The parameters are lent to the shards for the step (swapped into
+    /// the shared slot and back, whatever happens), not copied; each shard
+    /// gathers its own rows of the batch from the training data, so this
+    /// thread gathers only the targets.
+    #[allow(clippy::too_many_arguments)]
     fn gradient<L, R>(
         &mut self,
         batch: &mut Batch<T>,
         loss: &L,
-        input: &mut (P, Array2<T>),
+        rows: &[usize],
+        parameters: &mut P,
         gradient: &mut P,
         reduction: &mut R,
     ) -> Result<T>
@@ -916,15 +957,21 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         L: SplitInput<B, Array2<T>, Output = T>,
         R: GradientReduction<P>,
     {
-        std::mem::swap(&mut *self.shared.write().map_err(|_| poisoned())?, input);
+        gather_rows(&self.train.targets, rows, &mut batch.targets);
+        {
+            let mut shared = self.shared.write().map_err(|_| poisoned())?;
+            std::mem::swap(&mut shared.0, parameters);
+            shared.1.clear();
+            shared.1.extend_from_slice(rows);
+        }
         let result = self.lent_gradient(batch, loss, gradient, reduction);
         // A shard that panicked while reading poisons the lock but leaves
-        // its contents whole: the input is taken back either way.
+        // its contents whole: the parameters are taken back either way.
         let mut shared = self
             .shared
             .write()
             .unwrap_or_else(std::sync::PoisonError::into_inner);
-        std::mem::swap(&mut *shared, input);
+        std::mem::swap(&mut shared.0, parameters);
         result
     }
 
@@ -940,7 +987,7 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         L: SplitInput<B, Array2<T>, Output = T>,
         R: GradientReduction<P>,
     {
-        let rows = self.shared.read().map_err(|_| poisoned())?.1.nrows();
+        let rows = self.shared.read().map_err(|_| poisoned())?.1.len();
         let count = self.jobs.len().min(rows).max(1);
         let per = rows.div_ceil(count);
         self.ranges.clear();
