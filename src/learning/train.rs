@@ -457,8 +457,9 @@ impl Training {
     ///
     /// The shards' threads start once per run and each keeps its workspace
     /// (the model's reusing passes), its rows and its gradient for the whole
-    /// run; every step the parameters and the batch are lent to them, not
-    /// copied. A shard's elementwise maps stay on its thread.
+    /// run; every step the parameters are lent to them, not copied, and
+    /// each gathers its own rows of the batch from the training data. A
+    /// shard's elementwise maps stay on its thread.
     ///
     /// Shard when each matrix product runs on one thread: with the
     /// `threads` feature, products of a few hundred rows already split over
@@ -466,7 +467,7 @@ impl Training {
     /// (on 2 cores, batch 1,024, 2 shards ran about 10% slower than
     /// [`run`](Training::run)). Build without the feature, or set
     /// `MATMUL_NUM_THREADS=1` in the environment before the program's first
-    /// product; then 2 shards on 2 cores ran 1.5 to 1.7 times faster than
+    /// product; then 2 shards on 2 cores ran 1.65 to 1.8 times faster than
     /// one shard on one core. A shard's error stops the run like any
     /// other; a shard whose model panics stops it with
     /// [`Error::ShardFailed`].
@@ -964,7 +965,13 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
             shared.1.clear();
             shared.1.extend_from_slice(rows);
         }
-        let result = self.lent_gradient(batch, loss, gradient, reduction);
+        // The step, while the shared slot holds the lent parameters; its
+        // errors are returned only after they are taken back.
+        let result = (|| {
+            let l = self.passes(batch, loss, rows.len())?;
+            self.sum_gradients(gradient, reduction)?;
+            Ok(l)
+        })();
         // A shard that panicked while reading poisons the lock but leaves
         // its contents whole: the parameters are taken back either way.
         let mut shared = self
@@ -975,19 +982,13 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         result
     }
 
-    /// [`gradient`](Self::gradient), while the shared slot holds the input.
-    fn lent_gradient<L, R>(
-        &mut self,
-        batch: &mut Batch<T>,
-        loss: &L,
-        gradient: &mut P,
-        reduction: &mut R,
-    ) -> Result<T>
+    /// The shards' forward passes, the loss and its change on this thread,
+    /// and the shards' backward passes, for a batch of `rows` rows; returns
+    /// the loss.
+    fn passes<L>(&mut self, batch: &mut Batch<T>, loss: &L, rows: usize) -> Result<T>
     where
         L: SplitInput<B, Array2<T>, Output = T>,
-        R: GradientReduction<P>,
     {
-        let rows = self.shared.read().map_err(|_| poisoned())?.1.len();
         let count = self.jobs.len().min(rows).max(1);
         let per = rows.div_ceil(count);
         self.ranges.clear();
@@ -1041,9 +1042,19 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
                 FromShard::Output(Ok(_)) => failure = failure.or(Some(panicked())),
             }
         }
-        if let Some(e) = failure {
-            return Err(e);
+        match failure {
+            Some(e) => Err(e),
+            None => Ok(l),
         }
+    }
+
+    /// The shards' parameter gradients, combined by `reduction`, into
+    /// `gradient`.
+    fn sum_gradients<R: GradientReduction<P>>(
+        &mut self,
+        gradient: &mut P,
+        reduction: &mut R,
+    ) -> Result<()> {
         let mut guards = self.slots[..self.ranges.len()]
             .iter()
             .map(|slot| slot.lock().map_err(|_| poisoned()))
@@ -1053,8 +1064,7 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
             .expect("a batch has at least one row, so one shard");
         let others: Vec<&P> = rest.iter().map(|g| &**g).collect();
         reduction.reduce(first, &others)?;
-        gradient.copy_from(first)?;
-        Ok(l)
+        gradient.copy_from(first)
     }
 }
 
