@@ -60,6 +60,7 @@ pub mod learning;
 pub mod map;
 pub mod memory;
 pub mod primitives;
+mod products;
 pub mod retention;
 pub mod space;
 pub mod workspace;

@@ -28,7 +28,7 @@
 //! ```
 
 use crate::error::{Error, Result};
-use ndarray::{Array, Dimension, ScalarOperand, Zip};
+use ndarray::{Array, ArrayView2, ArrayViewMut2, Dimension, ScalarOperand, Zip};
 use num_traits::Float;
 use std::fmt::{Debug, Display, LowerExp};
 
@@ -69,6 +69,48 @@ pub trait Real:
     fn vector_tanh(self) -> Self {
         Float::tanh(self)
     }
+
+    /// The matrix product `c = alpha a b + beta c`, as the crate's batched
+    /// maps compute it ([`Affine`] on a batch, [`Layers`]).
+    ///
+    /// For `f32` and `f64` it runs faer's kernels, chosen at run time for
+    /// the processor, with no allocation once warm: at the shapes of a
+    /// 256-wide training step, about twice as fast as ndarray's
+    /// `general_mat_mul`. With the `threads` feature, products of 2^24
+    /// multiply-adds or more split their rows over the cores. Operands
+    /// that are not contiguous in row- or column-major order fall back to
+    /// `general_mat_mul`. The default is `general_mat_mul`.
+    ///
+    /// A fused layer of your own can call it for its products.
+    ///
+    /// # Panics
+    ///
+    /// If the shapes disagree (`a` is m x k, `b` k x n, `c` m x n), as
+    /// `general_mat_mul` does: check them where your map checks its input.
+    ///
+    /// [`Affine`]: crate::Affine
+    /// [`Layers`]: crate::learning::Layers
+    ///
+    /// ```
+    /// use revdiff::Real;
+    /// use revdiff::ndarray::{array, Array2};
+    /// let a = array![[1.0_f64, 2.0], [3.0, 4.0]];
+    /// let b = array![[5.0, 6.0], [7.0, 8.0]];
+    /// let mut c = Array2::<f64>::ones((2, 2));
+    /// // c = a b' + 2 c, with b' read in place (column-major).
+    /// f64::product_into(1.0, a.view(), b.t(), 2.0, c.view_mut());
+    /// assert_eq!(c, array![[19.0, 25.0], [41.0, 55.0]]);
+    /// ```
+    fn product_into(
+        alpha: Self,
+        a: ArrayView2<'_, Self>,
+        b: ArrayView2<'_, Self>,
+        beta: Self,
+        c: ArrayViewMut2<'_, Self>,
+    ) {
+        let mut c = c;
+        ndarray::linalg::general_mat_mul(alpha, &a, &b, beta, &mut c);
+    }
 }
 
 impl Real for f32 {
@@ -76,11 +118,29 @@ impl Real for f32 {
     fn vector_tanh(self) -> Self {
         crate::primitives::elementary::tanh_f32(self)
     }
+    fn product_into(
+        alpha: Self,
+        a: ArrayView2<'_, Self>,
+        b: ArrayView2<'_, Self>,
+        beta: Self,
+        c: ArrayViewMut2<'_, Self>,
+    ) {
+        crate::products::product_into(alpha, a, b, beta, c);
+    }
 }
 impl Real for f64 {
     #[inline]
     fn vector_tanh(self) -> Self {
         crate::primitives::elementary::tanh_f64(self)
+    }
+    fn product_into(
+        alpha: Self,
+        a: ArrayView2<'_, Self>,
+        b: ArrayView2<'_, Self>,
+        beta: Self,
+        c: ArrayViewMut2<'_, Self>,
+    ) {
+        crate::products::product_into(alpha, a, b, beta, c);
     }
 }
 
@@ -569,12 +629,20 @@ pub(crate) fn keep_maps_on_this_thread() {
     ALREADY_PARALLEL.with(|flag| flag.set(true));
 }
 
+/// Whether the calling thread is one of sharded training's, which keep
+/// their work (elementwise maps, matrix products) to themselves.
+#[cfg(feature = "threads")]
+#[inline]
+pub(crate) fn on_a_shard_thread() -> bool {
+    ALREADY_PARALLEL.with(std::cell::Cell::get)
+}
+
 /// Whether an elementwise map over `len` elements splits across cores.
 #[inline]
 fn split_across_cores(len: usize) -> bool {
     #[cfg(feature = "threads")]
     {
-        len >= PARALLEL_FROM && !ALREADY_PARALLEL.with(std::cell::Cell::get)
+        len >= PARALLEL_FROM && !on_a_shard_thread()
     }
     #[cfg(not(feature = "threads"))]
     {

@@ -5,9 +5,9 @@ use crate::dynamic::{Boxed, BoxedMemo};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
+use crate::products::product;
 use crate::space::{Real, shape_tuple};
 use crate::workspace::{SplitInput, Workspace, reshape_to, shaped_like};
-use ndarray::linalg::general_mat_mul;
 use ndarray::{Array1, Array2, Axis, Zip};
 use rand::rngs::StdRng;
 use rand::{RngExt, SeedableRng};
@@ -310,7 +310,7 @@ impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {
                         *y = Array2::zeros(shape);
                     }
                     y.assign(&b.broadcast(shape).expect("the bias was checked"));
-                    general_mat_mul(T::one(), input, &wt.t(), T::one(), y);
+                    T::product_into(T::one(), input.view(), wt.t(), T::one(), y.view_mut());
                 }
                 Stage::Elementwise { map, .. } => {
                     map.forward_reusing(input, &mut rest[0])?;
@@ -377,13 +377,19 @@ impl<T: Real> SplitInput<LayerParameters<T>, Array2<T>> for Layers<T> {
                         });
                     }
                     let (gw, gb) = &mut dp[*slot];
-                    general_mat_mul(T::one(), &change.t(), input, T::zero(), gw);
+                    T::product_into(T::one(), change.t(), input.view(), T::zero(), gw.view_mut());
                     gb.fill(T::zero());
                     for row in change.rows() {
                         Zip::from(&mut *gb).and(&row).for_each(|s, &r| *s = *s + r);
                     }
                     if let Some(into) = into {
-                        general_mat_mul(T::one(), change, &params[*slot].0, T::zero(), into);
+                        T::product_into(
+                            T::one(),
+                            change.view(),
+                            params[*slot].0.view(),
+                            T::zero(),
+                            into.view_mut(),
+                        );
                     }
                 }
                 Stage::Elementwise { map, .. } => {
@@ -415,7 +421,7 @@ impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
                         .broadcast((current.nrows(), b.len()))
                         .expect("a vector broadcasts over rows")
                         .to_owned();
-                    general_mat_mul(T::one(), &current, &w.t(), T::one(), &mut y);
+                    T::product_into(T::one(), current.view(), w.t(), T::one(), y.view_mut());
                     memos.push(StageMemo::Affine(current, w.clone()));
                     y
                 }
@@ -445,8 +451,8 @@ impl<T: Real> Map<(LayerParameters<T>, Array2<T>)> for Layers<T> {
                             found: shape_tuple(change.shape()),
                         });
                     }
-                    grads[*slot] = Some((change.t().dot(x), change.sum_axis(Axis(0))));
-                    change.dot(w)
+                    grads[*slot] = Some((product(change.t(), x.view()), change.sum_axis(Axis(0))));
+                    product(change.view(), w.view())
                 }
                 (Stage::Elementwise { map, .. }, StageMemo::Elementwise(m)) => {
                     map.backward_memo(m, &change)?

@@ -10,9 +10,9 @@ use crate::combinators::{AddPair, Fst, Pair, Snd, Then, ZeroMap};
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::primitives::{Affine, MatMul};
+use crate::products::product;
 use crate::space::{Real, shape_tuple};
 use crate::workspace::{SplitInput, Workspace, reshape_to};
-use ndarray::linalg::general_mat_mul;
 use ndarray::{Array1, Array2, Axis, Zip};
 
 /// The sum of a matrix's rows, `X -> 1' X`, a linear map `Array2 -> Array1`:
@@ -167,7 +167,7 @@ impl<T: Real> Map<AffineBatch<T>> for Affine {
         let ((w, b), x) = input;
         // Start from the bias in every row, then one product adds X W'.
         let mut y = repeat_rows(x.nrows(), b);
-        general_mat_mul(T::one(), x, &w.t(), T::one(), &mut y);
+        T::product_into(T::one(), x.view(), w.t(), T::one(), y.view_mut());
         Ok(y)
     }
     fn forward_memo(&self, input: &AffineBatch<T>) -> Result<(Array2<T>, Self::Memo)> {
@@ -178,9 +178,9 @@ impl<T: Real> Map<AffineBatch<T>> for Affine {
     fn backward_memo(&self, (w, x): &Self::Memo, dy: &Array2<T>) -> Result<AffineBatch<T>> {
         check_output_change(x.nrows(), w.nrows(), dy)?;
         // dW = dY' X, db = 1' dY, dX = dY W: three kernel calls, no strided loops.
-        let dw = dy.t().dot(x);
+        let dw = product(dy.t(), x.view());
         let db = dy.sum_axis(Axis(0));
-        let dx = dy.dot(w);
+        let dx = product(dy.view(), w.view());
         Ok(((dw, db), dx))
     }
 }
@@ -214,7 +214,7 @@ impl<T: Real> SplitInput<(Array2<T>, Array1<T>), Array2<T>> for Affine {
         }
         // Start from the bias in every row, then one product adds X W'.
         y.assign(&b.broadcast(shape).expect("the bias length was checked"));
-        general_mat_mul(T::one(), x, &w.t(), T::one(), y);
+        T::product_into(T::one(), x.view(), w.t(), T::one(), y.view_mut());
         Ok(y)
     }
     fn backward_split(
@@ -230,14 +230,14 @@ impl<T: Real> SplitInput<(Array2<T>, Array1<T>), Array2<T>> for Affine {
         check_output_change(x.nrows(), w.nrows(), dy)?;
         reshape_to(dw, w);
         reshape_to(db, b);
-        general_mat_mul(T::one(), &dy.t(), x, T::zero(), dw);
+        T::product_into(T::one(), dy.t(), x.view(), T::zero(), dw.view_mut());
         db.fill(T::zero());
         for row in dy.rows() {
             Zip::from(&mut *db).and(&row).for_each(|s, &r| *s = *s + r);
         }
         if let Some(dx) = dx {
             reshape_to(dx, x);
-            general_mat_mul(T::one(), dy, w, T::zero(), dx);
+            T::product_into(T::one(), dy.view(), w.view(), T::zero(), dx.view_mut());
         }
         Ok(())
     }

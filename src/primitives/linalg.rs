@@ -147,7 +147,7 @@ impl MatMul {
                 format!("right {}", shape_tuple(r.shape())),
             ));
         }
-        Ok(l.dot(&r))
+        Ok(crate::products::product(l, r))
     }
 
     /// The member computing the change of the left factor `X` from `(D, Y)`.
