@@ -114,9 +114,14 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let mut xb = Array2::<T>::zeros((BATCH, WIDTHS[0]));
     let mut tb = Array2::<T>::zeros((BATCH, WIDTHS[3]));
     // Like the library's run, each run starts from the same parameters with
-    // fresh buffers and optimiser state.
-    let by_hand = || {
-        let mut net = Network::new(&p0);
+    // fresh buffers and optimiser state. `same_products`: the products
+    // through the library's kernel instead of ndarray's.
+    let mut by_hand = |same_products: bool| {
+        let mut net = if same_products {
+            Network::with_library_products(&p0)
+        } else {
+            Network::new(&p0)
+        };
         for _ in 0..epochs {
             order.shuffle(&mut rng);
             for chunk in order.chunks(BATCH) {
@@ -130,7 +135,7 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         }
         black_box(&net.params);
     };
-    let (lib, hand) = race(rounds, 1, library, by_hand);
+    let (lib, hand) = race(rounds, 1, library, || by_hand(false));
     let steps = (epochs * STEPS_PER_EPOCH) as f64;
     lines.push(at_most(
         format!("training step {name}, library / hand-written"),
@@ -138,13 +143,29 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         1.05,
         "<= 1.05",
     ));
+    // The library's products are faster than ndarray's: against code by
+    // hand with the same products, the ratio is composition's cost alone.
+    let (lib_again, hand_same) = race(rounds, 1, library, || by_hand(true));
+    lines.push(at_most(
+        format!("training step {name}, library / hand-written with the library's products"),
+        lib_again / hand_same,
+        1.05,
+        "<= 1.05",
+    ));
     if name == "f32" {
-        let mut net = Network::new(&p0);
         let xb = x.slice(ndarray::s![..BATCH, ..]).to_owned();
-        let (products, _) = race(rounds, 20, || net.products_only(black_box(&xb)), || {});
+        let mut ndarray_net = Network::new(&p0);
+        let mut library_net = Network::with_library_products(&p0);
+        let (by_ndarray, by_library) = race(
+            rounds,
+            20,
+            || ndarray_net.products_only(black_box(&xb)),
+            || library_net.products_only(black_box(&xb)),
+        );
         println!(
-            "f32 training step's matrix products alone (ndarray's threaded product): {:.1} GFLOP/s",
-            step_flops() / products / 1e9
+            "f32 training step's matrix products alone: {:.1} GFLOP/s through the library's kernel, {:.1} through ndarray's threaded product",
+            step_flops() / by_library / 1e9,
+            step_flops() / by_ndarray / 1e9
         );
         println!(
             "f32 training step: library {:.1} GFLOP/s, hand-written {:.1} GFLOP/s (matrix products only)",
@@ -202,6 +223,23 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let (lib, hand) = race(rounds, 5, lib_gradient, hand_gradient);
     lines.push(at_most(
         format!("gradient {name}, library / hand-written"),
+        lib / hand,
+        1.05,
+        "<= 1.05",
+    ));
+    let mut same = Network::with_library_products(&p0);
+    let (lib, hand) = race(
+        rounds,
+        5,
+        || {
+            black_box(buffers.run(&model, &input, &tbatch));
+        },
+        || {
+            black_box(same.gradient(&xb, &tbatch));
+        },
+    );
+    lines.push(at_most(
+        format!("gradient {name}, library / hand-written with the library's products"),
         lib / hand,
         1.05,
         "<= 1.05",
@@ -560,18 +598,20 @@ fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
     ));
 }
 
-/// Runs this program again with one thread per matrix product and per
-/// elementwise map (so that the single shard uses one core, and the shards,
-/// not the products, use the cores) and reads its answer.
-fn sharded_speed_up(rounds: usize) -> f64 {
+/// Runs this program again and reads its answer. With `one_core`, one
+/// thread per matrix product and per elementwise map, so that the single
+/// shard uses one core and the shards, not the products, use the cores;
+/// without, the single shard's large products split over the cores.
+fn sharded_speed_up(rounds: usize, one_core: bool) -> f64 {
     let exe = std::env::current_exe().expect("the running program has a path");
-    let out = std::process::Command::new(exe)
-        .arg("shards")
-        .arg(rounds.to_string())
-        .env("MATMUL_NUM_THREADS", "1")
-        .env("RAYON_NUM_THREADS", "1")
-        .output()
-        .expect("the program runs again");
+    let mut child = std::process::Command::new(exe);
+    child.arg("shards").arg(rounds.to_string());
+    if one_core {
+        child
+            .env("MATMUL_NUM_THREADS", "1")
+            .env("RAYON_NUM_THREADS", "1");
+    }
+    let out = child.output().expect("the program runs again");
     String::from_utf8_lossy(&out.stdout)
         .lines()
         .find_map(|l| l.strip_prefix("speed-up ")?.parse().ok())
@@ -676,7 +716,11 @@ fn main() {
     chain_lines(rounds, &mut lines);
     second_order_lines(rounds, &mut lines);
     bits_lines(rounds, &mut lines);
-    let speed_up = sharded_speed_up(rounds);
+    let speed_up = sharded_speed_up(rounds, true);
+    println!(
+        "2 shards against one shard whose products split over the cores (no target): {:.2}",
+        sharded_speed_up(rounds, false)
+    );
     lines.push(Line {
         measure: "data-parallel speed-up on 2 cores, batch 1,024 (2 shards against 1)".into(),
         value: speed_up,

@@ -478,6 +478,7 @@ pub(crate) fn dims_equal(a: &[usize], b: &[usize]) -> bool {
     a.len() == b.len() && a.iter().zip(b).fold(true, |same, (x, y)| same & (x == y))
 }
 
+#[inline]
 pub(crate) fn same_shape<T, D: Dimension + 'static>(
     operation: &'static str,
     a: &Array<T, D>,
@@ -486,11 +487,24 @@ pub(crate) fn same_shape<T, D: Dimension + 'static>(
     if dims_equal(a.shape(), b.shape()) {
         Ok(())
     } else {
-        Err(Error::shape(
-            operation,
-            shape_tuple(a.shape()),
-            shape_tuple(b.shape()),
-        ))
+        Err(shapes_differ(operation, a.shape(), b.shape()))
+    }
+}
+
+#[cold]
+fn shapes_differ(operation: &'static str, a: &[usize], b: &[usize]) -> Error {
+    Error::shape(operation, shape_tuple(a), shape_tuple(b))
+}
+
+/// The one value of a one-element array (the stages of a run-time chain
+/// of scalar maps), read without ndarray's layout check, which on an array
+/// of dynamic dimension costs more than the map itself.
+#[inline]
+fn single<T: Copy, D: Dimension>(a: &Array<T, D>) -> Option<T> {
+    if a.len() == 1 {
+        a.first().copied()
+    } else {
+        None
     }
 }
 
@@ -678,6 +692,10 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
             *out = self.map_elems(f);
             return;
         }
+        if let (Some(v), Some(o)) = (single(self), out.first_mut()) {
+            *o = f(v);
+            return;
+        }
         // Both in standard layout (as the crate's own outputs are): plain
         // slices, without the per-call setup of a `Zip`, which dominates for
         // small arrays.
@@ -705,6 +723,10 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         same_shape(operation, self, other)?;
         if !dims_equal(out.shape(), self.shape()) {
             *out = self.zip_elems(other, operation, f)?;
+            return Ok(());
+        }
+        if let (Some(a), Some(b), Some(o)) = (single(self), single(other), out.first_mut()) {
+            *o = f(a, b);
             return Ok(());
         }
         if !split_across_cores(self.len())

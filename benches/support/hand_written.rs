@@ -10,7 +10,7 @@
 #![allow(dead_code)]
 
 use ndarray::linalg::general_mat_mul;
-use ndarray::{Array1, Array2, Zip};
+use ndarray::{Array1, Array2, ArrayView2, Zip};
 use revdiff::Real;
 
 /// Layer widths of the measured network: 256 -> 256 (tanh) -> 256 (tanh) -> 10.
@@ -163,6 +163,26 @@ pub struct Network<T> {
     adam_m: Vec<T>,
     adam_v: Vec<T>,
     steps: i32,
+    /// Whether the products go through the library's kernel
+    /// (`Real::product_into`) rather than ndarray's `general_mat_mul`.
+    library_products: bool,
+}
+
+/// `c = alpha a b + beta c`, through ndarray or through the library's
+/// product kernel.
+fn mat_mul<T: Real>(
+    library: bool,
+    alpha: T,
+    a: ArrayView2<'_, T>,
+    b: ArrayView2<'_, T>,
+    beta: T,
+    c: &mut Array2<T>,
+) {
+    if library {
+        T::product_into(alpha, a, b, beta, c.view_mut());
+    } else {
+        general_mat_mul(alpha, &a, &b, beta, c);
+    }
 }
 
 impl<T: Real> Network<T> {
@@ -182,6 +202,17 @@ impl<T: Real> Network<T> {
             adam_m: vec![T::zero(); n],
             adam_v: vec![T::zero(); n],
             steps: 0,
+            library_products: false,
+        }
+    }
+
+    /// The same network with its products through the library's kernel
+    /// (`Real::product_into`): what the code costs by hand with the same
+    /// products as the library's.
+    pub fn with_library_products(p: &Params<T>) -> Self {
+        Network {
+            library_products: true,
+            ..Network::new(p)
         }
     }
 
@@ -206,7 +237,7 @@ impl<T: Real> Network<T> {
                 before[k - 1].view()
             };
             let keep = if elementwise { T::one() } else { T::zero() };
-            general_mat_mul(T::one(), &input, &w.t(), keep, out);
+            mat_mul(self.library_products, T::one(), input, w.t(), keep, out);
             if elementwise && k < 2 {
                 // The same vectorised tanh as the library's (public through
                 // `Real`), so that the ratio measures composition alone.
@@ -245,6 +276,7 @@ impl<T: Real> Network<T> {
                     *d = real::<T>(2.0) * r / n;
                 });
         }
+        let library = self.library_products;
         // Layer 3, then 2, then 1: `upstream` is the change of the layer's
         // output before its activation; the first layer's input change is
         // skipped.
@@ -257,7 +289,7 @@ impl<T: Real> Network<T> {
                 self.acts[k - 1].view()
             };
             let (gw, gb) = &mut self.grads[k];
-            general_mat_mul(T::one(), &upstream.t(), &input, T::zero(), gw);
+            mat_mul(library, T::one(), upstream.t(), input.view(), T::zero(), gw);
             if elementwise {
                 gb.fill(T::zero());
                 for row in upstream.rows() {
@@ -266,7 +298,14 @@ impl<T: Real> Network<T> {
             }
             if k > 0 {
                 let target = &mut lower[k - 1];
-                general_mat_mul(T::one(), upstream, &self.params[k].0, T::zero(), target);
+                mat_mul(
+                    library,
+                    T::one(),
+                    upstream.view(),
+                    self.params[k].0.view(),
+                    T::zero(),
+                    target,
+                );
                 if elementwise {
                     Zip::from(target)
                         .and(&self.acts[k - 1])

@@ -459,17 +459,16 @@ impl Training {
     /// (the model's reusing passes), its rows and its gradient for the whole
     /// run; every step the parameters are lent to them, not copied, and
     /// each gathers its own rows of the batch from the training data. A
-    /// shard's elementwise maps stay on its thread.
+    /// shard's matrix products and elementwise maps stay on its thread, so
+    /// the shards, not the products, share the cores. On 2
+    /// cores, batch 1,024, 2 shards ran 1.65 to 1.86 times as fast as
+    /// one shard on one core, and SHARDVSRUN times as fast as
+    /// [`run`](Training::run) with the `threads` feature (whose products
+    /// at that batch split over the cores). Sharding pays on large batches:
+    /// at batch 128 the halves' products were too small to gain.
     ///
-    /// Shard when each matrix product runs on one thread: with the
-    /// `threads` feature, products of a few hundred rows already split over
-    /// the cores, and two shards then compete for the same product threads
-    /// (on 2 cores, batch 1,024, 2 shards ran about 10% slower than
-    /// [`run`](Training::run)). Build without the feature, or set
-    /// `MATMUL_NUM_THREADS=1` in the environment before the program's first
-    /// product; then 2 shards on 2 cores ran 1.65 to 1.8 times faster than
-    /// one shard on one core. A shard's error stops the run like any
-    /// other; a shard whose model panics stops it with
+    /// A shard's error stops the run like any other; a shard whose model
+    /// panics stops it with
     /// [`Error::ShardFailed`].
     ///
     /// ```
