@@ -462,7 +462,7 @@ impl Training {
     /// shard's matrix products and elementwise maps stay on its thread, so
     /// the shards, not the products, share the cores. On 2
     /// cores, batch 1,024, 2 shards ran 1.65 to 1.86 times as fast as
-    /// one shard on one core, and SHARDVSRUN times as fast as
+    /// one shard on one core, and 1.03 to 1.25 times as fast as
     /// [`run`](Training::run) with the `threads` feature (whose products
     /// at that batch split over the cores). Sharding pays on large batches:
     /// at batch 128 the halves' products were too small to gain.
