@@ -113,36 +113,29 @@ pub trait Real:
     }
 }
 
-impl Real for f32 {
-    #[inline]
-    fn vector_tanh(self) -> Self {
-        crate::primitives::elementary::tanh_f32(self)
-    }
-    fn product_into(
-        alpha: Self,
-        a: ArrayView2<'_, Self>,
-        b: ArrayView2<'_, Self>,
-        beta: Self,
-        c: ArrayViewMut2<'_, Self>,
-    ) {
-        crate::products::product_into(alpha, a, b, beta, c);
-    }
+/// `f32` and `f64`: the vectorised `tanh` of their width, and faer's
+/// products.
+macro_rules! machine_real {
+    ($t:ty, $tanh:path) => {
+        impl Real for $t {
+            #[inline]
+            fn vector_tanh(self) -> Self {
+                $tanh(self)
+            }
+            fn product_into(
+                alpha: Self,
+                a: ArrayView2<'_, Self>,
+                b: ArrayView2<'_, Self>,
+                beta: Self,
+                c: ArrayViewMut2<'_, Self>,
+            ) {
+                crate::products::product_into(alpha, a, b, beta, c);
+            }
+        }
+    };
 }
-impl Real for f64 {
-    #[inline]
-    fn vector_tanh(self) -> Self {
-        crate::primitives::elementary::tanh_f64(self)
-    }
-    fn product_into(
-        alpha: Self,
-        a: ArrayView2<'_, Self>,
-        b: ArrayView2<'_, Self>,
-        beta: Self,
-        c: ArrayViewMut2<'_, Self>,
-    ) {
-        crate::products::product_into(alpha, a, b, beta, c);
-    }
-}
+machine_real!(f32, crate::primitives::elementary::tanh_f32);
+machine_real!(f64, crate::primitives::elementary::tanh_f64);
 
 /// A commutative monoid of values, with a zero shaped like any given value.
 ///
