@@ -133,7 +133,41 @@ fn rows_product<T: Kernel>(
     } else {
         Accum::Add
     };
+    let large = a.nrows().max(a.ncols()).max(b.ncols()) > SMALL_KERNEL_UP_TO;
     matmul(c, accum, a, b, alpha, Par::Seq);
+    if large {
+        clear_vector_state();
+    }
+}
+
+/// faer's products with every dimension up to this run through its small
+/// kernels, which leave the vector registers clean (see
+/// [`clear_vector_state`]).
+const SMALL_KERNEL_UP_TO: usize = 16;
+
+/// faer's kernels for larger products (assembly for AVX-512) return with
+/// the upper halves of the vector registers still in use. Until something
+/// clears them, every SSE instruction the thread runs afterwards pays a
+/// transition penalty, and so does every thread it starts (they inherit the
+/// state). That includes the crate's elementwise maps and the C library's
+/// `sin`: a static chain of 8 `sin` stages ran at 1,500-1,900 ns per pass
+/// pair after one 128 x 256 x 256 product, against 120-140 before it.
+/// faer's small-product kernels are compiled code that clears the registers
+/// on return, so one 8 x 8 product after each larger one restores full
+/// speed (measured: back to 140 ns); it costs about as much as a few
+/// hundred multiply-adds, on products of thousands or more.
+fn clear_vector_state() {
+    let a = [0.0_f32; 64];
+    let mut c = [0.0_f32; 64];
+    let a = MatRef::from_row_major_slice(&a, 8, 8);
+    matmul(
+        MatMut::from_row_major_slice_mut(&mut c, 8, 8),
+        Accum::Replace,
+        a,
+        a,
+        1.0,
+        Par::Seq,
+    );
 }
 
 #[cfg(test)]
