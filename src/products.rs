@@ -3,9 +3,9 @@
 //!
 //! faer picks its kernel at run time (AVX2 or AVX-512 where the processor
 //! has them) and packs into a buffer it keeps per thread. At the shapes of a
-//! training step (128 x 256 by 256 x 256) it ran twice as fast on one core
-//! as ndarray's matrixmultiply on two, and it allocates nothing once warm;
-//! matrixmultiply allocates a packing buffer per product.
+//! training step (128 x 256 by 256 x 256) it ran 1.4 to 2 times as fast on
+//! one core as ndarray's matrixmultiply on two, and it allocates nothing
+//! once warm; matrixmultiply allocates a packing buffer per product.
 //!
 //! Operands in neither row- nor column-major contiguous layout (a strided
 //! block of a larger matrix) go through ndarray's `general_mat_mul`, whose
@@ -24,8 +24,8 @@ impl Kernel for f64 {}
 
 /// Products at least this large (`m * k * n`) split their output rows over
 /// the cores (with the `threads` feature). Below it one core is as fast:
-/// at 128 x 256 x 256 (2^23), two halves on two cores ran at 97-136
-/// GFLOP/s against 101-152 on one; at 1,024^3 they ran 1.7-1.9 times as
+/// at 128 x 256 x 256 (2^23), two halves on two cores ran at 90-103
+/// GFLOP/s against 98-116 on one; at 1,024^3 they ran 1.7-1.9 times as
 /// fast.
 #[cfg(feature = "threads")]
 const SPLIT_FROM: usize = 1 << 24;
@@ -103,8 +103,8 @@ fn as_faer<T>(v: ArrayView2<'_, T>) -> Option<MatRef<'_, T>> {
     None
 }
 
-/// `c = alpha a b + beta c` on faer views, beta 0 or 1; large products split their
-/// output rows (and `a`'s) in halves, one per core.
+/// `c = alpha a b + beta c` on faer views, beta 0 or 1; large products
+/// split their output rows (and `a`'s) in halves, one per core.
 fn rows_product<T: Kernel>(
     alpha: T,
     a: MatRef<'_, T>,
