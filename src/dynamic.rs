@@ -803,13 +803,11 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         self.check_input(x)?;
         let w = work.state_or_insert_with(ChainWork::<T>::default);
         w.fit(self.stages.len());
-        for (k, stage) in self.stages.iter().enumerate() {
-            let (before, rest) = w.stages.split_at_mut(k);
-            let input = match before.last() {
-                Some(previous) => self.stages[k - 1].map.reused_output(previous)?,
-                None => x,
-            };
-            let y = stage.map.forward_reusing(input, &mut rest[0])?;
+        // Each stage's output, borrowed from its own workspace, is the next
+        // stage's input: no lookups between stages.
+        let mut y = x;
+        for (k, (stage, stage_work)) in self.stages.iter().zip(&mut w.stages).enumerate() {
+            y = stage.map.forward_reusing(y, stage_work)?;
             stage.check_output(k, y)?;
         }
         self.reused_output(work)

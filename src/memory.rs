@@ -156,7 +156,7 @@ tuple_size!(A 0, B 1, C 2, D 3, E 4, F 5);
 /// use ndarray::Array1;
 ///
 /// let x = Array1::from_elem(1000, 0.5_f64);
-/// // `sin` keeps its input and `exp` its output: two arrays of 8,000 bytes.
+/// // `sin` and `exp` each keep their slope: two arrays of 8,000 bytes.
 /// assert_eq!(kept_bytes(&Sin.then(Exp), &x)?, 16_000);
 /// // Recomputed, only the input is kept.
 /// assert_eq!(kept_bytes(&Sin.then(Exp).recomputed(), &x)?, 8_000);

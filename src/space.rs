@@ -369,6 +369,31 @@ pub trait Pointwise: Euclidean<Self::Elem> {
         *out = self.map_elems(f);
     }
 
+    /// Applies `f`, which gives two values per element, and returns the
+    /// two results: a function and its slope computed in one pass where
+    /// they share work (a sine and a cosine, an exponential).
+    ///
+    /// The default calls `f` twice per element; the crate's spaces call it
+    /// once.
+    fn map_elems_two(
+        &self,
+        f: impl Fn(Self::Elem) -> (Self::Elem, Self::Elem) + Sync + Send,
+    ) -> (Self, Self) {
+        (self.map_elems(|v| f(v).0), self.map_elems(|v| f(v).1))
+    }
+
+    /// [`map_elems_two`](Pointwise::map_elems_two) written into `first`
+    /// and `second`, in their memory when they have `self`'s shape (else
+    /// they are replaced).
+    fn map_elems_two_into(
+        &self,
+        first: &mut Self,
+        second: &mut Self,
+        f: impl Fn(Self::Elem) -> (Self::Elem, Self::Elem) + Sync + Send,
+    ) {
+        (*first, *second) = self.map_elems_two(f);
+    }
+
     /// [`zip_elems`](Pointwise::zip_elems) written into `out`, in its
     /// memory when it has `self`'s shape (else `out` is replaced).
     fn zip_elems_into(
@@ -445,6 +470,9 @@ macro_rules! real_scalar_space {
             }
             fn zip_elems(&self, other: &Self, _: &'static str, f: impl Fn($t, $t) -> $t + Sync + Send) -> Result<Self> {
                 Ok(f(*self, *other))
+            }
+            fn map_elems_two(&self, f: impl Fn($t) -> ($t, $t) + Sync + Send) -> (Self, Self) {
+                f(*self)
             }
         }
     )*};
@@ -707,6 +735,48 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         }
         zip.for_each(|o, &v| *o = f(v));
     }
+    fn map_elems_two(&self, f: impl Fn(T) -> (T, T) + Sync + Send) -> (Self, Self) {
+        let (mut first, mut second) = (Array::zeros(self.raw_dim()), Array::zeros(self.raw_dim()));
+        // Same shapes now, so this does not come back here.
+        self.map_elems_two_into(&mut first, &mut second, f);
+        (first, second)
+    }
+    fn map_elems_two_into(
+        &self,
+        first: &mut Self,
+        second: &mut Self,
+        f: impl Fn(T) -> (T, T) + Sync + Send,
+    ) {
+        if !dims_equal(first.shape(), self.shape()) || !dims_equal(second.shape(), self.shape()) {
+            (*first, *second) = self.map_elems_two(f);
+            return;
+        }
+        if let Some(v) = single(self) {
+            let both = f(v);
+            // The shapes agree, so each holds one element too.
+            if let (Some(a), Some(b)) = (first.first_mut(), second.first_mut()) {
+                (*a, *b) = both;
+            }
+            return;
+        }
+        if !split_across_cores(self.len())
+            && let (Some(a), Some(b), Some(x)) =
+                (first.as_slice_mut(), second.as_slice_mut(), self.as_slice())
+        {
+            a.iter_mut()
+                .zip(b.iter_mut())
+                .zip(x)
+                .for_each(|((a, b), &v)| (*a, *b) = f(v));
+            return;
+        }
+        let zip = Zip::from(first).and(second).and(self);
+        #[cfg(feature = "threads")]
+        if split_across_cores(self.len()) {
+            zip.par_for_each(|a, b, &v| (*a, *b) = f(v));
+            return;
+        }
+        zip.for_each(|a, b, &v| (*a, *b) = f(v));
+    }
     fn zip_elems_into(
         &self,
         other: &Self,
@@ -906,6 +976,10 @@ where
         f: impl Fn(T, T) -> T + Sync + Send,
     ) -> Result<Self> {
         Ok(std::array::from_fn(|i| f(self[i], other[i])))
+    }
+    fn map_elems_two(&self, f: impl Fn(T) -> (T, T) + Sync + Send) -> (Self, Self) {
+        let both = self.map(f);
+        (both.map(|b| b.0), both.map(|b| b.1))
     }
 }
 

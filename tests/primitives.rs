@@ -184,3 +184,94 @@ fn shape_errors_name_both_shapes() {
         Err(Error::Empty { .. })
     ));
 }
+
+/// The largest gap between two arrays relative to the larger entry of
+/// `scale` (at least 1).
+fn relative_gap(a: &Array2<f64>, b: &Array2<f64>, scale: &Array2<f64>) -> f64 {
+    let size = scale.iter().fold(1.0_f64, |m, v| m.max(v.abs()));
+    a.iter()
+        .zip(b)
+        .fold(0.0_f64, |m, (p, q)| m.max((p - q).abs()))
+        / size
+}
+
+/// A map that keeps its slope (computed with its value in one pass) gives,
+/// through its memo passes and its reusing passes, the output `forward`
+/// gives and the input change its reverse map gives from its separate slope
+/// map, to a few units of rounding.
+fn slope_kept_agrees(
+    name: &str,
+    f: impl Reverse<Array2<f64>, Output = Array2<f64>>,
+    x: &Array2<f64>,
+    dy: &Array2<f64>,
+) -> std::result::Result<(), TestCaseError> {
+    let expected = f.rev().forward(&(x.clone(), dy.clone())).unwrap();
+    let (y, memo) = f.forward_memo(x).unwrap();
+    prop_assert_eq!(&y, &f.forward(x).unwrap(), "{}: memo forward output", name);
+    let dx = f.backward_memo(&memo, dy).unwrap();
+    prop_assert!(
+        relative_gap(&dx, &expected, &expected) <= 4.0 * f64::EPSILON,
+        "{}: memo passes off by {:e}",
+        name,
+        relative_gap(&dx, &expected, &expected)
+    );
+    let mut work = Workspace::new();
+    let mut reused = Array2::zeros((0, 0));
+    // Twice: the second call writes into the first call's buffers.
+    for _ in 0..2 {
+        prop_assert_eq!(
+            f.forward_reusing(x, &mut work).unwrap(),
+            &y,
+            "{}: reusing output",
+            name
+        );
+        f.backward_reusing(x, &mut work, dy, &mut reused).unwrap();
+        prop_assert_eq!(&reused, &dx, "{}: reusing against memo passes", name);
+    }
+    Ok(())
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(48))]
+    /// Sine, cosine, exponential, square root, sigmoid and softplus keep
+    /// their slope; on arrays in row-major and in column-major memory.
+    #[test]
+    fn maps_that_keep_their_slope_agree_with_their_slope_maps(
+        x in matrix(3, 4),
+        dy in matrix(3, 4),
+        column_major in any::<bool>(),
+    ) {
+        // `reversed_axes` keeps the memory: a column-major 4 x 3 array.
+        let (x, dy) = if column_major { (x.reversed_axes(), dy.reversed_axes()) } else { (x, dy) };
+        let positive = x.mapv(|v| v.abs() + 0.1);
+        slope_kept_agrees("sin", Sin, &x, &dy)?;
+        slope_kept_agrees("cos", Cos, &x, &dy)?;
+        slope_kept_agrees("exp", Exp, &x, &dy)?;
+        slope_kept_agrees("sqrt", Sqrt, &positive, &dy)?;
+        slope_kept_agrees("sigmoid", Sigmoid, &(&x * 4.0), &dy)?;
+        slope_kept_agrees("softplus", Softplus, &(&x * 4.0), &dy)?;
+    }
+
+    /// `map_elems_two` and `map_elems_two_into` give what two `map_elems`
+    /// give, on every space, in every layout, into buffers of any shape.
+    #[test]
+    fn two_results_per_element_equal_two_maps(x in matrix(3, 4), column_major in any::<bool>()) {
+        let x = if column_major { x.reversed_axes() } else { x };
+        let f = |v: f64| (v.exp(), 2.0 * v - 1.0);
+        let expected = (x.mapv(|v| f(v).0), x.mapv(|v| f(v).1));
+        prop_assert_eq!(&x.map_elems_two(f), &expected);
+        // Into buffers of the wrong shape (replaced), then of the right one.
+        let (mut a, mut b) = (Array2::zeros((1, 1)), Array2::zeros((2, 2)));
+        for _ in 0..2 {
+            x.map_elems_two_into(&mut a, &mut b, f);
+            prop_assert_eq!(&(a.clone(), b.clone()), &expected);
+        }
+        let one = Array1::from_elem(1, x[[0, 0]]).into_dyn();
+        let (mut a, mut b) = (one.clone(), one.clone());
+        one.map_elems_two_into(&mut a, &mut b, f);
+        prop_assert_eq!((a[[0]], b[[0]]), f(x[[0, 0]]));
+        prop_assert_eq!(x[[0, 0]].map_elems_two(f), f(x[[0, 0]]));
+        let fixed = [x[[0, 0]], x[[1, 1]]];
+        prop_assert_eq!(fixed.map_elems_two(f), ([f(fixed[0]).0, f(fixed[1]).0], [f(fixed[0]).1, f(fixed[1]).1]));
+    }
+}

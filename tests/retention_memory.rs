@@ -76,7 +76,7 @@ fn reported_bytes_match_what_the_allocator_sees() {
         );
     }
 
-    // Stages that keep a memo the size of a state (sine keeps its input,
+    // Stages that keep a memo the size of a state (sine keeps its slope,
     // tanh its output): the reported peak of checkpoints and memos together
     // is what is live, beyond the same few temporaries.
     let mut chain = Chain::<f64>::new(&[width]);

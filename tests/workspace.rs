@@ -92,7 +92,8 @@ fn elementwise_maps_reuse_their_output_and_read_the_input_again() {
             assert_eq!(dx, f.backward(x, dy).unwrap());
         }
     }
-    // Tanh and sigmoid keep their output, exp and sin their input.
+    // Tanh keeps its output; sigmoid, exp and sin their slope, computed
+    // with the value.
     check(Tanh, &x, &dy);
     check(Sigmoid, &x, &dy);
     check(Exp, &x, &dy);

@@ -49,6 +49,11 @@ trait Elementwise<T: Real> {
     fn value(&self, x: T) -> T;
     /// Its derivative.
     fn slope(&self, x: T) -> T;
+    /// The value and the slope together, for maps where they share work;
+    /// such maps keep the slope (see the macro's `slope with value`).
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        (self.value(x), self.slope(x))
+    }
     /// `slope(x) * d`, where a map whose slope can overflow while the
     /// product cannot computes it without the overflow.
     fn slope_times(&self, x: T, d: T) -> T {
@@ -88,6 +93,18 @@ pub(crate) fn logistic<T: Real>(x: T) -> T {
     }
 }
 
+/// The logistic function at `x` and at `-x`, from one exponential
+/// `e^-|x|`; each is what [`logistic`] gives.
+fn logistic_both<T: Real>(x: T) -> (T, T) {
+    let e = (-x.abs()).exp();
+    let (near_one, near_zero) = (T::one() / (T::one() + e), e / (T::one() + e));
+    if x >= T::zero() {
+        (near_one, near_zero)
+    } else {
+        (near_zero, near_one)
+    }
+}
+
 /// `ln(1 + e^x)` as `max(x, 0) + ln(1 + e^-|x|)`: no overflow, no lost digits.
 pub(crate) fn softplus<T: Real>(x: T) -> T {
     x.max(T::zero()) + (-x.abs()).exp().ln_1p()
@@ -102,6 +119,15 @@ macro_rules! elementwise {
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr,
      slope from output |$y:ident| $from_output:expr) => {
         elementwise!(@map [$($gen)*] $ty, keeps output, |$y, d, _map| $from_output * d);
+        elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
+    };
+    // Maps whose value and slope share work (a sine and a cosine from one
+    // `sin_cos`, an exponential that is its own slope) compute both in the
+    // forward passes that keep something, and keep the slope: the backward
+    // pass is then one product.
+    ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr,
+     slope with value) => {
+        elementwise!(@map_slope [$($gen)*] $ty);
         elementwise!(@reverse [$($gen)*] $ty, $slope_ty, |$s| $slope);
     };
     ([$($gen:tt)*] $ty:ty, slope map $slope_ty:ty = |$s:ident| $slope:expr) => {
@@ -152,6 +178,49 @@ macro_rules! elementwise {
             }
         }
     };
+    (@map_slope [$($gen:tt)*] $ty:ty) => {
+        impl<$($gen)*> Map<E> for $ty {
+            type Output = E;
+            type Memo = E;
+            fn forward(&self, x: &E) -> Result<E> {
+                Elementwise::<E::Elem>::settings(self)?;
+                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
+            }
+            fn forward_memo(&self, x: &E) -> Result<(E, E)> {
+                Elementwise::<E::Elem>::settings(self)?;
+                Ok(x.map_elems_two(|v| Elementwise::<E::Elem>::value_and_slope(self, v)))
+            }
+            fn backward_memo(&self, slope: &E, dy: &E) -> Result<E> {
+                Elementwise::<E::Elem>::settings(self)?;
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                slope.zip_elems(dy, name, |s, d| s * d)
+                    .map_err(|e| e.in_output_change(name))
+            }
+            // The output stays in the workspace's output slot, the slope
+            // in its state.
+            fn forward_reusing<'w>(&self, x: &E, work: &'w mut Workspace) -> Result<&'w E> {
+                Elementwise::<E::Elem>::settings(self)?;
+                let f = |v| Elementwise::<E::Elem>::value_and_slope(self, v);
+                let (output, slope) = work.output_and_state::<E, E>(|| x.clone());
+                if let Some(y) = output {
+                    x.map_elems_two_into(y, slope, f);
+                } else {
+                    let (y, s) = x.map_elems_two(f);
+                    *slope = s;
+                    work.put_output(y);
+                }
+                work.output::<E>()
+            }
+            fn backward_reusing(&self, x: &E, work: &mut Workspace, dy: &E, dx: &mut E) -> Result<()> {
+                let _ = x;
+                Elementwise::<E::Elem>::settings(self)?;
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                work.state::<E>()?
+                    .zip_elems_into(dy, dx, name, |s, d| s * d)
+                    .map_err(|e| e.in_output_change(name))
+            }
+        }
+    };
     (@kept input, $x:ident, $y:ident) => { $x.clone() };
     (@kept output, $x:ident, $y:ident) => { $y.clone() };
     (@kept_ref input, $x:ident, $w:ident) => {{ let _ = &$w; $x }};
@@ -184,8 +253,12 @@ impl<T: Real> Elementwise<T> for Exp {
     fn slope(&self, x: T) -> T {
         x.exp()
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        let e = x.exp();
+        (e, e)
+    }
 }
-elementwise!([E: Pointwise] Exp, slope map Exp = |_s| Exp);
+elementwise!([E: Pointwise] Exp, slope map Exp = |_s| Exp, slope with value);
 
 /// The natural logarithm, domain `x > 0`. Reverse derivative: `dy / x`.
 ///
@@ -225,8 +298,14 @@ impl<T: Real> Elementwise<T> for Sqrt {
     fn slope(&self, x: T) -> T {
         real::<T>(0.5) / x.sqrt()
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        let r = x.sqrt();
+        (r, real::<T>(0.5) / r)
+    }
 }
-elementwise!([E: Pointwise] Sqrt, slope map Powf<E::Elem> = |_s| Powf::with_coefficient(real(0.5), real(-0.5)));
+elementwise!([E: Pointwise] Sqrt,
+    slope map Powf<E::Elem> = |_s| Powf::with_coefficient(real(0.5), real(-0.5)),
+    slope with value);
 
 /// A scaled integer power `x -> c x^n` (with `c = 1` from [`Powi::new`]).
 ///
@@ -365,8 +444,11 @@ impl<T: Real> Elementwise<T> for Sin {
     fn slope(&self, x: T) -> T {
         x.cos()
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        x.sin_cos()
+    }
 }
-elementwise!([E: Pointwise] Sin, slope map Cos = |_s| Cos);
+elementwise!([E: Pointwise] Sin, slope map Cos = |_s| Cos, slope with value);
 
 /// The cosine. Reverse derivative: `-sin(x) dy`.
 ///
@@ -385,8 +467,12 @@ impl<T: Real> Elementwise<T> for Cos {
     fn slope(&self, x: T) -> T {
         -x.sin()
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        let (s, c) = x.sin_cos();
+        (c, -s)
+    }
 }
-elementwise!([E: Pointwise] Cos, slope map Then<Sin, Neg> = |_s| Sin.then(Neg));
+elementwise!([E: Pointwise] Cos, slope map Then<Sin, Neg> = |_s| Sin.then(Neg), slope with value);
 
 /// The hyperbolic tangent. Reverse derivative: `(1 - tanh(x)^2) dy`.
 ///
@@ -454,10 +540,15 @@ impl<T: Real> Elementwise<T> for Sigmoid {
     fn slope(&self, x: T) -> T {
         self.value(x) * self.value(-x)
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        let (s, s_minus) = logistic_both(x);
+        (s, s * s_minus)
+    }
 }
 elementwise!([E: Pointwise] Sigmoid,
     slope map Then<Pair<Sigmoid, Then<Neg, Sigmoid>>, MulPair> =
-    |_s| Sigmoid.pair(Neg.then(Sigmoid)).then(MulPair));
+    |_s| Sigmoid.pair(Neg.then(Sigmoid)).then(MulPair),
+    slope with value);
 
 /// `x -> ln(1 + e^x)`, computed as `max(x, 0) + ln(1 + e^-|x|)` so that it
 /// neither overflows nor loses digits. Reverse derivative: `sigmoid(x) dy`.
@@ -478,8 +569,19 @@ impl<T: Real> Elementwise<T> for Softplus {
     fn slope(&self, x: T) -> T {
         Sigmoid.value(x)
     }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        // Both from the one exponential `e^-|x|`.
+        let e = (-x.abs()).exp();
+        let value = x.max(T::zero()) + e.ln_1p();
+        let slope = if x >= T::zero() {
+            T::one() / (T::one() + e)
+        } else {
+            e / (T::one() + e)
+        };
+        (value, slope)
+    }
 }
-elementwise!([E: Pointwise] Softplus, slope map Sigmoid = |_s| Sigmoid);
+elementwise!([E: Pointwise] Softplus, slope map Sigmoid = |_s| Sigmoid, slope with value);
 
 /// Clamping to a band, `x -> max(-limit, min(x, limit))`. Reverse
 /// derivative: `dy` inside the band (`|x| < limit`), `0` outside and on its
