@@ -707,6 +707,15 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         if split_across_cores(self.len()) {
             return Ok(Zip::from(self).and(other).par_map_collect(|&a, &b| f(a, b)));
         }
+        // Both in standard layout: a copy of `self` overwritten in place,
+        // without the setup of a `Zip`, which dominates for small arrays.
+        if self.is_standard_layout() && other.is_standard_layout() {
+            let mut out = self.clone();
+            if let (Some(o), Some(b)) = (out.as_slice_mut(), other.as_slice()) {
+                o.iter_mut().zip(b).for_each(|(o, &b)| *o = f(*o, b));
+                return Ok(out);
+            }
+        }
         Ok(Zip::from(self).and(other).map_collect(|&a, &b| f(a, b)))
     }
     fn map_elems_into(&self, out: &mut Self, f: impl Fn(T) -> T + Sync + Send) {
@@ -736,6 +745,20 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         zip.for_each(|o, &v| *o = f(v));
     }
     fn map_elems_two(&self, f: impl Fn(T) -> (T, T) + Sync + Send) -> (Self, Self) {
+        // Contiguous (the crate's own outputs): two copies of `self`,
+        // overwritten in place. A copy costs less than building an array
+        // from a shape, which for small arrays of dynamic dimension costs
+        // more than the map.
+        if !split_across_cores(self.len()) && self.as_slice_memory_order().is_some() {
+            let (mut first, mut second) = (self.clone(), self.clone());
+            if let (Some(a), Some(b)) = (
+                first.as_slice_memory_order_mut(),
+                second.as_slice_memory_order_mut(),
+            ) {
+                a.iter_mut().zip(b).for_each(|(a, b)| (*a, *b) = f(*a));
+                return (first, second);
+            }
+        }
         let (mut first, mut second) = (Array::zeros(self.raw_dim()), Array::zeros(self.raw_dim()));
         // Same shapes now, so this does not come back here.
         self.map_elems_two_into(&mut first, &mut second, f);

@@ -266,6 +266,11 @@ proptest! {
             x.map_elems_two_into(&mut a, &mut b, f);
             prop_assert_eq!(&(a.clone(), b.clone()), &expected);
         }
+        // An owned array that is not contiguous: every other column.
+        let mut gaps = x.to_owned();
+        gaps.slice_collapse(ndarray::s![.., ..;2]);
+        let expected_gaps = (gaps.mapv(|v| f(v).0), gaps.mapv(|v| f(v).1));
+        prop_assert_eq!(&gaps.map_elems_two(f), &expected_gaps);
         let one = Array1::from_elem(1, x[[0, 0]]).into_dyn();
         let (mut a, mut b) = (one.clone(), one.clone());
         one.map_elems_two_into(&mut a, &mut b, f);
