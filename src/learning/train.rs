@@ -461,8 +461,8 @@ impl Training {
     /// each gathers its own rows of the batch from the training data. A
     /// shard's matrix products and elementwise maps stay on its thread, so
     /// the shards, not the products, share the cores. On 2
-    /// cores, batch 1,024, 2 shards ran 1.65 to 1.86 times as fast as
-    /// one shard on one core, and 1.03 to 1.25 times as fast as
+    /// cores, batch 1,024, 2 shards ran 1.65 to 2.05 times as fast as
+    /// one shard on one core, and 1.03 to 1.30 times as fast as
     /// [`run`](Training::run) with the `threads` feature (whose products
     /// at that batch split over the cores). Sharding pays on large batches:
     /// at batch 128 the halves' products were too small to gain.
