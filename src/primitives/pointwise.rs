@@ -110,6 +110,26 @@ pub(crate) fn softplus<T: Real>(x: T) -> T {
     x.max(T::zero()) + (-x.abs()).exp().ln_1p()
 }
 
+/// An elementwise map's value at every element, after checking its settings.
+fn values<E: Pointwise, M: Elementwise<E::Elem> + Sync>(map: &M, x: &E) -> Result<E> {
+    map.settings()?;
+    Ok(x.map_elems(|v| map.value(v)))
+}
+
+/// An elementwise map's input change from what its forward pass kept and
+/// the output change, combined element by element by `product`; a shape
+/// error names the map.
+fn changes<E: Pointwise, M: Elementwise<E::Elem>>(
+    map: &M,
+    kept: &E,
+    dy: &E,
+    product: impl Fn(E::Elem, E::Elem) -> E::Elem + Sync + Send,
+) -> Result<E> {
+    map.settings()?;
+    kept.zip_elems(dy, M::NAME, product)
+        .map_err(|e| e.in_output_change(M::NAME))
+}
+
 /// `(x, dy) -> slope(x) * dy`, where `S` is the map computing `slope`.
 pub type ElementwiseRev<S> = Then<Pair<Then<Fst, S>, Snd>, MulPair>;
 
@@ -142,8 +162,7 @@ macro_rules! elementwise {
             type Output = E;
             type Memo = E;
             fn forward(&self, x: &E) -> Result<E> {
-                Elementwise::<E::Elem>::settings(self)?;
-                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
+                values(self, x)
             }
             fn forward_memo(&self, x: &E) -> Result<(E, E)> {
                 let y = self.forward(x)?;
@@ -151,11 +170,8 @@ macro_rules! elementwise {
                 Ok((y, kept))
             }
             fn backward_memo(&self, kept: &E, dy: &E) -> Result<E> {
-                Elementwise::<E::Elem>::settings(self)?;
-                let name = <Self as Elementwise<E::Elem>>::NAME;
                 let $map = self;
-                kept.zip_elems(dy, name, |$k, $d| $product)
-                    .map_err(|e| e.in_output_change(name))
+                changes(self, kept, dy, |$k, $d| $product)
             }
             // The reusing passes keep no memo: the output stays in the
             // workspace and the backward pass is handed the input again.
@@ -183,18 +199,14 @@ macro_rules! elementwise {
             type Output = E;
             type Memo = E;
             fn forward(&self, x: &E) -> Result<E> {
-                Elementwise::<E::Elem>::settings(self)?;
-                Ok(x.map_elems(|v| Elementwise::<E::Elem>::value(self, v)))
+                values(self, x)
             }
             fn forward_memo(&self, x: &E) -> Result<(E, E)> {
                 Elementwise::<E::Elem>::settings(self)?;
                 Ok(x.map_elems_two(|v| Elementwise::<E::Elem>::value_and_slope(self, v)))
             }
             fn backward_memo(&self, slope: &E, dy: &E) -> Result<E> {
-                Elementwise::<E::Elem>::settings(self)?;
-                let name = <Self as Elementwise<E::Elem>>::NAME;
-                slope.zip_elems(dy, name, |s, d| s * d)
-                    .map_err(|e| e.in_output_change(name))
+                changes(self, slope, dy, |s, d| s * d)
             }
             // The output stays in the workspace's output slot, the slope
             // in its state.
