@@ -168,8 +168,8 @@ pub trait Map<A: Space>: Compose {
     /// change to `dx` (of `x`'s shape) instead of overwriting it: what a
     /// pairing ([`Pair`]) needs, whose input change is the sum of its
     /// parts'. The default computes the change into a scratch buffer kept
-    /// in `work` and adds it; the crate's gates add in the same pass
-    /// that computes it.
+    /// in `work` and adds it; the crate's gates and elementwise maps add in
+    /// the same pass that computes it.
     fn backward_reusing_adding(
         &self,
         x: &A,

@@ -394,6 +394,21 @@ pub trait Pointwise: Euclidean<Self::Elem> {
         (*first, *second) = self.map_elems_two(f);
     }
 
+    /// [`zip_elems`](Pointwise::zip_elems) added to `out`, which must have
+    /// `self`'s shape: how an elementwise map adds its input change to one
+    /// already there ([`Map::backward_reusing_adding`](crate::Map::backward_reusing_adding)).
+    /// The default adds a new value; the crate's spaces add in one pass.
+    fn zip_elems_adding(
+        &self,
+        other: &Self,
+        out: &mut Self,
+        operation: &'static str,
+        f: impl Fn(Self::Elem, Self::Elem) -> Self::Elem + Sync + Send,
+    ) -> Result<()> {
+        let change = self.zip_elems(other, operation, f)?;
+        out.try_add_assign(&change)
+    }
+
     /// [`zip_elems`](Pointwise::zip_elems) written into `out`, in its
     /// memory when it has `self`'s shape (else `out` is replaced).
     fn zip_elems_into(
@@ -473,6 +488,10 @@ macro_rules! real_scalar_space {
             }
             fn map_elems_two(&self, f: impl Fn($t) -> ($t, $t) + Sync + Send) -> (Self, Self) {
                 f(*self)
+            }
+            fn zip_elems_adding(&self, other: &Self, out: &mut Self, _: &'static str, f: impl Fn($t, $t) -> $t + Sync + Send) -> Result<()> {
+                *out += f(*self, *other);
+                Ok(())
             }
         }
     )*};
@@ -800,6 +819,37 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         }
         zip.for_each(|a, b, &v| (*a, *b) = f(v));
     }
+    fn zip_elems_adding(
+        &self,
+        other: &Self,
+        out: &mut Self,
+        operation: &'static str,
+        f: impl Fn(T, T) -> T + Sync + Send,
+    ) -> Result<()> {
+        same_shape(operation, self, other)?;
+        same_shape("adding an input change to the one already there", out, self)?;
+        if let (Some(a), Some(b), Some(o)) = (single(self), single(other), out.first_mut()) {
+            *o = *o + f(a, b);
+            return Ok(());
+        }
+        if !split_across_cores(self.len())
+            && let (Some(o), Some(a), Some(b)) =
+                (out.as_slice_mut(), self.as_slice(), other.as_slice())
+        {
+            o.iter_mut()
+                .zip(a.iter().zip(b))
+                .for_each(|(o, (&a, &b))| *o = *o + f(a, b));
+            return Ok(());
+        }
+        let zip = Zip::from(out).and(self).and(other);
+        #[cfg(feature = "threads")]
+        if split_across_cores(self.len()) {
+            zip.par_for_each(|o, &a, &b| *o = *o + f(a, b));
+            return Ok(());
+        }
+        zip.for_each(|o, &a, &b| *o = *o + f(a, b));
+        Ok(())
+    }
     fn zip_elems_into(
         &self,
         other: &Self,
@@ -1003,6 +1053,18 @@ where
     fn map_elems_two(&self, f: impl Fn(T) -> (T, T) + Sync + Send) -> (Self, Self) {
         let both = self.map(f);
         (both.map(|b| b.0), both.map(|b| b.1))
+    }
+    fn zip_elems_adding(
+        &self,
+        other: &Self,
+        out: &mut Self,
+        _: &'static str,
+        f: impl Fn(T, T) -> T + Sync + Send,
+    ) -> Result<()> {
+        for ((o, &a), &b) in out.iter_mut().zip(self).zip(other) {
+            *o = *o + f(a, b);
+        }
+        Ok(())
     }
 }
 

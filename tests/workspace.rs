@@ -438,7 +438,8 @@ fn pairs_and_gates_reuse_their_buffers_over_bits_and_arrays() {
 #[test]
 fn adding_backward_passes_add_the_input_change_to_what_is_there() {
     use revdiff::bits::{AndGate, Bits, OrGate, XorGate};
-    // Arrays: the default (through a scratch buffer) and a composite.
+    // Arrays: elementwise maps keeping their input, output or slope, the
+    // default (through a scratch buffer, for softmax) and a composite.
     let x = array![0.2, -0.7, 1.5];
     let dy = array![1.0, 0.5, -2.0];
     let start = array![10.0, 20.0, 30.0];
@@ -458,8 +459,43 @@ fn adding_backward_passes_add_the_input_change_to_what_is_there() {
         }
     }
     check(Tanh, &x, &dy, &start);
+    check(Sin, &x, &dy, &start);
+    check(Ln.then(Abs), &x.mapv(f64::abs), &dy, &start);
     check(Sin.then(Exp), &x, &dy, &start);
     check(Softmax, &x, &dy, &start);
+    // Scalars and fixed-size arrays add in place too.
+    let mut work = Workspace::new();
+    Sin.forward_reusing(&0.3_f64, &mut work).unwrap();
+    let mut acc = 2.0;
+    Sin.backward_reusing_adding(&0.3, &mut work, &-1.5, &mut acc)
+        .unwrap();
+    assert_eq!(acc, 2.0 + Sin.backward(&0.3, &-1.5).unwrap());
+    let mut work = Workspace::new();
+    let xs = [0.3_f64, -0.8];
+    Relu.forward_reusing(&xs, &mut work).unwrap();
+    let mut acc = [1.0, 1.0];
+    Relu.backward_reusing_adding(&xs, &mut work, &[4.0, 4.0], &mut acc)
+        .unwrap();
+    assert_eq!(acc, [5.0, 1.0]);
+    // A sum of the wrong shape is refused, naming it, and left as it was;
+    // so is an output change of the wrong shape, naming the map.
+    let mut work = Workspace::new();
+    Sin.forward_reusing(&x, &mut work).unwrap();
+    let mut short = array![1.0, 2.0];
+    let err = Sin
+        .backward_reusing_adding(&x, &mut work, &dy, &mut short)
+        .unwrap_err();
+    assert!(err.to_string().contains("adding an input change"), "{err}");
+    assert_eq!(short, array![1.0, 2.0]);
+    let mut acc = start.clone();
+    let err = Sin
+        .backward_reusing_adding(&x, &mut work, &array![1.0], &mut acc)
+        .unwrap_err();
+    assert!(
+        matches!(err, Error::OutputChangeShape { map: "sin", .. }),
+        "{err}"
+    );
+    assert_eq!(acc, start);
     // Gates: XOR into what is there.
     let bits = |k: usize| Bits::from_fn(1, 70, |_, e| (e * 3 + k).is_multiple_of(4));
     let input = (bits(0), bits(1));

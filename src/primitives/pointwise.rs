@@ -110,6 +110,21 @@ pub(crate) fn softplus<T: Real>(x: T) -> T {
     x.max(T::zero()) + (-x.abs()).exp().ln_1p()
 }
 
+/// Adds `product(kept, dy)` to `dx` element by element. A `dy` of the
+/// wrong shape is an error naming the map's output change; a `dx` of the
+/// wrong shape, one naming the sum.
+fn adding<E: Pointwise>(
+    name: &'static str,
+    kept: &E,
+    dy: &E,
+    dx: &mut E,
+    product: impl Fn(E::Elem, E::Elem) -> E::Elem + Sync + Send,
+) -> Result<()> {
+    kept.check_same_shape(dy)
+        .map_err(|e| e.in_output_change(name))?;
+    kept.zip_elems_adding(dy, dx, name, product)
+}
+
 /// An elementwise map's value at every element, after checking its settings.
 fn values<E: Pointwise, M: Elementwise<E::Elem> + Sync>(map: &M, x: &E) -> Result<E> {
     map.settings()?;
@@ -192,6 +207,14 @@ macro_rules! elementwise {
                 kept.zip_elems_into(dy, dx, name, |$k, $d| $product)
                     .map_err(|e| e.in_output_change(name))
             }
+            // The change is added in the pass that computes it.
+            fn backward_reusing_adding(&self, x: &E, work: &mut Workspace, dy: &E, dx: &mut E) -> Result<()> {
+                Elementwise::<E::Elem>::settings(self)?;
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                let $map = self;
+                let kept = elementwise!(@kept_ref $which, x, work);
+                adding(name, kept, dy, dx, |$k, $d| $product)
+            }
         }
     };
     (@map_slope [$($gen:tt)*] $ty:ty) => {
@@ -230,6 +253,12 @@ macro_rules! elementwise {
                 work.state::<E>()?
                     .zip_elems_into(dy, dx, name, |s, d| s * d)
                     .map_err(|e| e.in_output_change(name))
+            }
+            fn backward_reusing_adding(&self, x: &E, work: &mut Workspace, dy: &E, dx: &mut E) -> Result<()> {
+                let _ = x;
+                Elementwise::<E::Elem>::settings(self)?;
+                let name = <Self as Elementwise<E::Elem>>::NAME;
+                adding(name, work.state::<E>()?, dy, dx, |s, d| s * d)
             }
         }
     };
