@@ -496,21 +496,21 @@ impl<T: Real> Chain<T> {
                     });
                 }
                 held.keep_memos(memos);
-                self.backward_through(0, memos, dy.clone())
+                self.backward_through(0, memos, dy)
             }
             (ChainMemo::Checkpoints(states), Retention::EveryKth(k)) if !states.is_empty() => {
                 for state in states {
                     held.store(state.held_bytes());
                 }
-                let mut d = dy.clone();
+                let mut d: Option<ArrayD<T>> = None;
                 for (segment, start) in states.iter().enumerate().rev() {
                     let first = segment * k;
                     let memos = self.record(first, (first + k).min(n), start, cost)?;
                     held.keep_memos(&memos);
-                    d = self.backward_through(first, &memos, d)?;
+                    d = Some(self.backward_through(first, &memos, d.as_ref().unwrap_or(dy))?);
                     held.free_memos(&memos);
                 }
-                Ok(d)
+                Ok(d.unwrap_or_else(|| dy.clone()))
             }
             (ChainMemo::Checkpoints(states), Retention::Binomial { states: slots })
                 if states.len() == 1 =>
@@ -526,7 +526,7 @@ impl<T: Real> Chain<T> {
                 held.store(states[0].held_bytes());
                 let memos = self.record(0, n, &states[0], cost)?;
                 held.keep_memos(&memos);
-                self.backward_through(0, &memos, dy.clone())
+                self.backward_through(0, &memos, dy)
             }
             _ => Err(Error::ForeignMemo {
                 operation: "backward pass of a chain",
@@ -539,17 +539,20 @@ impl<T: Real> Chain<T> {
         Ok(d)
     }
 
-    /// Backward through stages `first..first + memos.len()`.
+    /// Backward through stages `first..first + memos.len()`, from the
+    /// change `dy` of the last one's output (read, not copied).
     fn backward_through(
         &self,
         first: usize,
         memos: &[BoxedMemo],
-        mut d: ArrayD<T>,
+        dy: &ArrayD<T>,
     ) -> Result<ArrayD<T>> {
+        let mut d: Option<ArrayD<T>> = None;
         for (offset, r) in memos.iter().enumerate().rev() {
-            d = self.stages[first + offset].map.backward_memo(r, &d)?;
+            let change = d.as_ref().unwrap_or(dy);
+            d = Some(self.stages[first + offset].map.backward_memo(r, change)?);
         }
-        Ok(d)
+        Ok(d.unwrap_or_else(|| dy.clone()))
     }
 
     /// Runs stages `from..to` on `state` keeping their memos.
@@ -606,7 +609,7 @@ impl<T: Real> Chain<T> {
         if n == 1 {
             let memos = self.record(a, b, state, cost)?;
             held.keep_memos(&memos);
-            let d = self.backward_through(a, &memos, dy);
+            let d = self.backward_through(a, &memos, &dy);
             held.free_memos(&memos);
             return d;
         }
@@ -617,7 +620,7 @@ impl<T: Real> Chain<T> {
                 let input = self.advance(a, k, state, cost)?;
                 let memos = self.record(k, k + 1, &input, cost)?;
                 held.keep_memos(&memos);
-                d = self.backward_through(k, &memos, d)?;
+                d = self.backward_through(k, &memos, &d)?;
                 held.free_memos(&memos);
             }
             return Ok(d);
@@ -755,19 +758,21 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     }
     fn forward_memo(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Memo)> {
         self.check_input(x)?;
-        let mut y = x.clone();
         match self.retention {
             Retention::All => {
                 let mut memos = Vec::with_capacity(self.stages.len());
+                // The first stage reads `x` itself: no copy of the input.
+                let mut y: Option<ArrayD<T>> = None;
                 for (k, stage) in self.stages.iter().enumerate() {
-                    let (next, r) = stage.map.forward_memo(&y)?;
+                    let (next, r) = stage.map.forward_memo(y.as_ref().unwrap_or(x))?;
                     stage.check_output(k, &next)?;
                     memos.push(r);
-                    y = next;
+                    y = Some(next);
                 }
-                Ok((y, ChainMemo::Stages(memos)))
+                Ok((y.unwrap_or_else(|| x.clone()), ChainMemo::Stages(memos)))
             }
             Retention::EveryKth(k) => {
+                let mut y = x.clone();
                 let mut states = Vec::with_capacity(self.stages.len() / k.max(1) + 1);
                 for (i, stage) in self.stages.iter().enumerate() {
                     if i % k.max(1) == 0 {
