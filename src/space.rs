@@ -549,6 +549,38 @@ fn single<T: Copy, D: Dimension>(a: &Array<T, D>) -> Option<T> {
     }
 }
 
+/// Updates every element of `out` by `update` from the elements of `a`
+/// and `b` at the same place (the caller checked that the three shapes
+/// agree), through the fastest path their layouts allow: one element,
+/// three slices, or a `Zip` (split across cores when large).
+#[inline]
+fn update_from_two<T: Real, D: Dimension>(
+    out: &mut Array<T, D>,
+    a: &Array<T, D>,
+    b: &Array<T, D>,
+    update: impl Fn(&mut T, T, T) + Sync + Send,
+) {
+    if let (Some(x), Some(y), Some(o)) = (single(a), single(b), out.first_mut()) {
+        update(o, x, y);
+        return;
+    }
+    if !split_across_cores(a.len())
+        && let (Some(o), Some(x), Some(y)) = (out.as_slice_mut(), a.as_slice(), b.as_slice())
+    {
+        o.iter_mut()
+            .zip(x.iter().zip(y))
+            .for_each(|(o, (&x, &y))| update(o, x, y));
+        return;
+    }
+    let zip = Zip::from(out).and(a).and(b);
+    #[cfg(feature = "threads")]
+    if split_across_cores(a.len()) {
+        zip.par_for_each(|o, &x, &y| update(o, x, y));
+        return;
+    }
+    zip.for_each(|o, &x, &y| update(o, x, y));
+}
+
 impl<T: Real, D: Dimension + 'static> Space for Array<T, D> {
     type Shape = D;
     fn shape(&self) -> D {
@@ -828,26 +860,7 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
     ) -> Result<()> {
         same_shape(operation, self, other)?;
         same_shape("adding an input change to the one already there", out, self)?;
-        if let (Some(a), Some(b), Some(o)) = (single(self), single(other), out.first_mut()) {
-            *o = *o + f(a, b);
-            return Ok(());
-        }
-        if !split_across_cores(self.len())
-            && let (Some(o), Some(a), Some(b)) =
-                (out.as_slice_mut(), self.as_slice(), other.as_slice())
-        {
-            o.iter_mut()
-                .zip(a.iter().zip(b))
-                .for_each(|(o, (&a, &b))| *o = *o + f(a, b));
-            return Ok(());
-        }
-        let zip = Zip::from(out).and(self).and(other);
-        #[cfg(feature = "threads")]
-        if split_across_cores(self.len()) {
-            zip.par_for_each(|o, &a, &b| *o = *o + f(a, b));
-            return Ok(());
-        }
-        zip.for_each(|o, &a, &b| *o = *o + f(a, b));
+        update_from_two(out, self, other, |o, a, b| *o = *o + f(a, b));
         Ok(())
     }
     fn zip_elems_into(
@@ -862,26 +875,7 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
             *out = self.zip_elems(other, operation, f)?;
             return Ok(());
         }
-        if let (Some(a), Some(b), Some(o)) = (single(self), single(other), out.first_mut()) {
-            *o = f(a, b);
-            return Ok(());
-        }
-        if !split_across_cores(self.len())
-            && let (Some(o), Some(a), Some(b)) =
-                (out.as_slice_mut(), self.as_slice(), other.as_slice())
-        {
-            o.iter_mut()
-                .zip(a.iter().zip(b))
-                .for_each(|(o, (&a, &b))| *o = f(a, b));
-            return Ok(());
-        }
-        let zip = Zip::from(out).and(self).and(other);
-        #[cfg(feature = "threads")]
-        if split_across_cores(self.len()) {
-            zip.par_for_each(|o, &a, &b| *o = f(a, b));
-            return Ok(());
-        }
-        zip.for_each(|o, &a, &b| *o = f(a, b));
+        update_from_two(out, self, other, |o, a, b| *o = f(a, b));
         Ok(())
     }
 }
