@@ -329,14 +329,21 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
 
     // Run-time chains: the same sine stages over one-element arrays, through
     // the reusing passes (kept workspaces, the fast path) and through the
-    // memo passes (`backward`).
-    let run_time = |n: usize, width: usize| {
+    // memo passes (`backward`). The stages are per-element (the sine as a
+    // scalar map, `push_per_element`); the same chains of array stages
+    // (`push_elementwise`) are printed for comparison.
+    let chain_of = |n: usize, width: usize, per_element: bool| {
         let mut chain = Chain::<f64>::new(&[width]);
         for _ in 0..n {
-            chain.push_elementwise("sin", Sin).unwrap();
+            if per_element {
+                chain.push_per_element("sin", Sin).unwrap();
+            } else {
+                chain.push_elementwise("sin", Sin).unwrap();
+            }
         }
         chain
     };
+    let run_time = |n: usize, width: usize| chain_of(n, width, true);
     let (c10, c10k) = (run_time(10, 1), run_time(10_000, 1));
     let xd = ArrayD::from_elem(vec![1], 0.7);
     let (mut w10, mut w10k) = (Workspace::new(), Workspace::new());
@@ -379,10 +386,21 @@ fn chain_lines(rounds: usize, lines: &mut Vec<Line>) {
             black_box(s8.backward(black_box(&x), &1.0).unwrap());
         },
     );
+    let array_stages = chain_of(8, 1, false);
+    let (mut wa, mut da) = (Workspace::new(), xd.clone());
+    let (arrays, _) = race(
+        rounds,
+        2000,
+        || reused(&array_stages, &xd, &xd, &mut wa, &mut da),
+        || {
+            black_box(s8.backward(black_box(&x), &1.0).unwrap());
+        },
+    );
     println!(
-        "scalar chains of 8 stages, per pass pair: static {:.0} ns, run-time chain (reusing passes) {:.0} ns",
+        "scalar chains of 8 stages, per pass pair: static {:.0} ns, run-time chain (reusing passes) {:.0} ns, the same of array stages (push_elementwise) {:.0} ns",
         fixed * 1e9,
-        dynamic * 1e9
+        dynamic * 1e9,
+        arrays * 1e9
     );
     lines.push(at_most(
         "dynamic / static, scalar chains of 8 stages (reusing passes)",

@@ -25,6 +25,9 @@ use std::any::Any;
 use std::fmt;
 use std::sync::Arc;
 
+mod per_element;
+use per_element::{EachElement, ElementPasses, RunWork, run_backward, run_forward};
+
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
     fn erased_forward_memo(&self, x: &A) -> Result<(B, BoxedMemo)>;
@@ -176,6 +179,22 @@ impl<A: Space, B: Space> Boxed<A, B> {
         Ok(Self::unchecked(map))
     }
 
+    /// [`new`](Self::new) for a map already shared, checked the same way.
+    fn shared<F>(map: Arc<F>) -> Result<Self>
+    where
+        F: Map<A, Output = B> + Send + Sync + 'static,
+        F::Memo: HeldBytes + 'static,
+    {
+        let depth = map.boxed_depth() + 1;
+        if depth > Self::MAX_DEPTH {
+            return Err(Error::NestingTooDeep {
+                depth,
+                limit: Self::MAX_DEPTH,
+            });
+        }
+        Ok(Boxed { inner: map, depth })
+    }
+
     /// [`new`](Self::new) without the depth limit, for the crate's own
     /// stages, which hold maps a user has already boxed.
     pub(crate) fn unchecked<F>(map: F) -> Self
@@ -245,6 +264,9 @@ struct Stage<T> {
     map: Boxed<ArrayD<T>, ArrayD<T>>,
     /// The output shape the stage declared when it was pushed.
     output: Vec<usize>,
+    /// For a stage pushed by [`Chain::push_per_element`], its passes over
+    /// flat slices (the same map as `map`), which the reusing passes use.
+    per_element: Option<Arc<dyn ElementPasses<T>>>,
 }
 
 impl<T: Real> Stage<T> {
@@ -660,6 +682,7 @@ impl<T: Real> Chain<T> {
             name: name.to_string(),
             map: Boxed::new(map)?,
             output: output.clone(),
+            per_element: None,
         });
         self.output_shape = output;
         Ok(())
@@ -672,6 +695,91 @@ impl<T: Real> Chain<T> {
         M: HeldBytes + 'static,
     {
         self.push(name, map, StageShape::Preserving)
+    }
+
+    /// Appends a stage that applies the scalar map `map` to every element
+    /// (any map `T -> T`: a catalogue map such as [`Sin`](crate::Sin), a
+    /// static composite of them, or your own).
+    ///
+    /// Consecutive per-element stages are the fast path of the reusing
+    /// passes ([`Map::forward_reusing`], [`Map::backward_reusing`]): they
+    /// run over flat slices, with one dynamic call per stage, where a stage
+    /// pushed by [`push_elementwise`](Self::push_elementwise) pays for
+    /// workspace lookups and dynamic-dimension bookkeeping that for small
+    /// arrays cost more than the map. The other passes apply the map element
+    /// by element. Every pass gives what the scalar map gives at each
+    /// element, bit for bit. Arrays of 131,072 elements or more are split
+    /// across the cores (with the `threads` feature), which is why the
+    /// map's memo must be `Send` and `Sync`.
+    ///
+    /// ```
+    /// use revdiff::{Chain, Compose, Map, Sin, Tanh, Workspace};
+    /// use ndarray::ArrayD;
+    ///
+    /// let depth = 6; // read at run time
+    /// let mut chain = Chain::<f64>::new(&[1]);
+    /// for _ in 0..depth {
+    ///     chain.push_per_element("sin", Sin)?;
+    /// }
+    /// chain.push_per_element("tanh after sin", Sin.then(Tanh))?;
+    ///
+    /// let (x, dy) = (ArrayD::from_elem(vec![1], 0.7), ArrayD::from_elem(vec![1], 1.0));
+    /// let mut work = Workspace::new();
+    /// let mut dx = ArrayD::zeros(vec![1]);
+    /// for _ in 0..2 {
+    ///     chain.forward_reusing(&x, &mut work)?;
+    ///     chain.backward_reusing(&x, &mut work, &dy, &mut dx)?;
+    /// }
+    /// assert_eq!(dx, chain.backward(&x, &dy)?);
+    /// # Ok::<(), revdiff::Error>(())
+    /// ```
+    pub fn push_per_element<F>(&mut self, name: &str, map: F) -> Result<()>
+    where
+        F: Map<T, Output = T> + Send + Sync + 'static,
+        F::Memo: HeldBytes + Send + Sync + 'static,
+    {
+        let map = Arc::new(EachElement(map));
+        let passes: Arc<dyn ElementPasses<T>> = map.clone();
+        self.stages.push(Stage {
+            name: name.to_string(),
+            map: Boxed::shared(map)?,
+            output: self.output_shape.clone(),
+            per_element: Some(passes),
+        });
+        Ok(())
+    }
+
+    /// The number of runs of consecutive per-element stages.
+    fn runs(&self) -> usize {
+        self.stages
+            .iter()
+            .enumerate()
+            .filter(|(k, s)| {
+                s.per_element.is_some() && (*k == 0 || self.stages[k - 1].per_element.is_none())
+            })
+            .count()
+    }
+
+    /// The end of the run of per-element stages that starts at `first`.
+    fn run_end(&self, first: usize) -> usize {
+        self.stages[first..]
+            .iter()
+            .position(|s| s.per_element.is_none())
+            .map_or(self.stages.len(), |n| first + n)
+    }
+
+    /// The per-element passes of stages `first..end`, a run that
+    /// [`run_end`](Self::run_end) found.
+    fn run_passes(
+        &self,
+        first: usize,
+        end: usize,
+    ) -> impl DoubleEndedIterator<Item = &dyn ElementPasses<T>> + ExactSizeIterator {
+        self.stages[first..end].iter().map(|s| {
+            s.per_element
+                .as_deref()
+                .expect("a run holds per-element stages only")
+        })
     }
 
     /// Appends the affine stage `x -> W x + b` with fixed `W` of shape
@@ -807,19 +915,44 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         }
         self.check_input(x)?;
         let w = work.state_or_insert_with(ChainWork::<T>::default);
-        w.fit(self.stages.len());
-        // Each stage's output, borrowed from its own workspace, is the next
-        // stage's input: no lookups between stages.
+        w.fit(self);
+        // Each stage's output, borrowed from its own workspace (or its
+        // run's), is the next stage's input: no lookups between stages.
         let mut y = x;
-        for (k, (stage, stage_work)) in self.stages.iter().zip(&mut w.stages).enumerate() {
-            y = stage.map.forward_reusing(y, stage_work)?;
-            stage.check_output(k, y)?;
+        let (mut stage_work, mut run_work) = (&mut w.stages[..], &mut w.runs[..]);
+        let mut k = 0;
+        while k < self.stages.len() {
+            let stage = &self.stages[k];
+            if stage.per_element.is_some() {
+                let end = self.run_end(k);
+                let (run, rest) = std::mem::take(&mut run_work)
+                    .split_first_mut()
+                    .expect("fitted: one run workspace per run");
+                run_forward(self.run_passes(k, end), y, run)?;
+                y = &run.output;
+                run_work = rest;
+                stage_work = &mut std::mem::take(&mut stage_work)[end - k..];
+                k = end;
+            } else {
+                let (own, rest) = std::mem::take(&mut stage_work)
+                    .split_first_mut()
+                    .expect("fitted: one workspace per stage");
+                y = stage.map.forward_reusing(y, own)?;
+                stage.check_output(k, y)?;
+                stage_work = rest;
+                k += 1;
+            }
         }
         self.reused_output(work)
     }
     fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w ArrayD<T>> {
         match (work.state::<ChainWork<T>>(), self.stages.last()) {
             (Ok(w), Some(last)) if w.stages.len() == self.stages.len() => {
+                if last.per_element.is_some()
+                    && let Some(run) = w.runs.last()
+                {
+                    return Ok(&run.output);
+                }
                 last.map.reused_output(&w.stages[self.stages.len() - 1])
             }
             _ => work.output(),
@@ -837,33 +970,66 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
             return Ok(());
         }
         let w = work.state_mut::<ChainWork<T>>()?;
-        if w.stages.len() != self.stages.len() {
+        if w.stages.len() != self.stages.len() || w.runs.len() != self.runs() {
             return Err(Error::WorkspaceNotFilled {
                 operation: "backward pass of a run-time chain (its stages changed since the forward pass)",
             });
         }
         let n = self.stages.len();
-        for k in (0..n).rev() {
-            // Stage k reads its input (stage k - 1's output) and the change
-            // of its output, and writes the change of its input.
-            let (before, rest) = w.stages.split_at_mut(k);
-            let input = match before.last() {
-                Some(previous) => self.stages[k - 1].map.reused_output(previous)?,
-                None => x,
+        let mut runs = &mut w.runs[..];
+        let mut end = n;
+        while end > 0 {
+            // The segment `first..end` is one stage, or a run of
+            // per-element stages. It reads its input (the previous
+            // segment's output) and the change of its output, and writes
+            // the change of its input.
+            let k = end - 1;
+            let first = if self.stages[k].per_element.is_some() {
+                (0..end)
+                    .rev()
+                    .find(|&j| self.stages[j].per_element.is_none())
+                    .map_or(0, |j| j + 1)
+            } else {
+                k
             };
-            let (lower, upper) = w.changes.split_at_mut(k);
-            let change = if k + 1 == n {
+            let (earlier_runs, this_run) = match self.stages[k].per_element {
+                Some(_) => {
+                    let (last, rest) = std::mem::take(&mut runs)
+                        .split_last_mut()
+                        .expect("checked: one run workspace per run");
+                    (rest, Some(last))
+                }
+                None => (std::mem::take(&mut runs), None),
+            };
+            let (before, rest) = w.stages.split_at_mut(first);
+            let input = match first.checked_sub(1) {
+                None => x,
+                Some(p) if self.stages[p].per_element.is_some() => match earlier_runs.last() {
+                    Some(run) => &run.output,
+                    None => x,
+                },
+                Some(p) => self.stages[p].map.reused_output(&before[p])?,
+            };
+            let (lower, upper) = w.changes.split_at_mut(first);
+            let change = if end == n {
                 dy
             } else {
-                upper[0].as_ref().expect("filled at stage k + 1")
+                upper[end - 1 - first]
+                    .as_ref()
+                    .expect("filled by the next segment")
             };
             let into = match lower.last_mut() {
                 Some(slot) => crate::workspace::shaped_like(slot, input),
                 None => &mut *dx,
             };
-            self.stages[k]
-                .map
-                .backward_reusing(input, &mut rest[0], change, into)?;
+            match this_run {
+                Some(run) => run_backward(self.run_passes(first, end), run, change, into)?,
+                None => self.stages[k]
+                    .map
+                    .backward_reusing(input, &mut rest[0], change, into)?,
+            }
+            runs = earlier_runs;
+            end = first;
         }
         Ok(())
     }
@@ -874,6 +1040,8 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
 struct ChainWork<T> {
     stages: Vec<Workspace>,
     changes: Vec<Option<ArrayD<T>>>,
+    /// One per run of consecutive per-element stages, in order.
+    runs: Vec<RunWork<T>>,
 }
 
 impl<T> Default for ChainWork<T> {
@@ -881,15 +1049,18 @@ impl<T> Default for ChainWork<T> {
         ChainWork {
             stages: Vec::new(),
             changes: Vec::new(),
+            runs: Vec::new(),
         }
     }
 }
 
-impl<T> ChainWork<T> {
-    /// One workspace per stage (the chain may have grown since the last call).
-    fn fit(&mut self, stages: usize) {
-        self.stages.resize_with(stages, Workspace::new);
-        self.changes.resize_with(stages, || None);
+impl<T: Real> ChainWork<T> {
+    /// One workspace per stage and per run (the chain may have grown since
+    /// the last call).
+    fn fit(&mut self, chain: &Chain<T>) {
+        self.stages.resize_with(chain.stages.len(), Workspace::new);
+        self.changes.resize_with(chain.stages.len(), || None);
+        self.runs.resize_with(chain.runs(), RunWork::default);
     }
 }
 

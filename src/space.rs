@@ -726,7 +726,7 @@ pub(crate) fn on_a_shard_thread() -> bool {
 
 /// Whether an elementwise map over `len` elements splits across cores.
 #[inline]
-fn split_across_cores(len: usize) -> bool {
+pub(crate) fn split_across_cores(len: usize) -> bool {
     #[cfg(feature = "threads")]
     {
         len >= PARALLEL_FROM && !on_a_shard_thread()

@@ -1,0 +1,206 @@
+//! Per-element stages of run-time chains (`Chain::push_per_element`): a
+//! scalar map applied to every element gives, through every pass, what the
+//! catalogue's array maps give, and the reusing passes (flat buffers for a
+//! run of such stages) give what the memo passes give, whatever the other
+//! stages, layouts and earlier calls.
+
+use ndarray::{Array2, ArrayD, IxDyn, ShapeBuilder};
+use proptest::prelude::*;
+use revdiff::*;
+
+/// The stages a generated chain is made of.
+#[derive(Clone, Copy, Debug)]
+enum Kind {
+    SinPerElement,
+    TanhPerElement,
+    /// A static composite as one per-element stage.
+    SinThenExpPerElement,
+    TanhArray,
+    Affine,
+}
+
+fn kind() -> impl Strategy<Value = Kind> {
+    prop_oneof![
+        Just(Kind::SinPerElement),
+        Just(Kind::TanhPerElement),
+        Just(Kind::SinThenExpPerElement),
+        Just(Kind::TanhArray),
+        Just(Kind::Affine),
+    ]
+}
+
+/// The chain of `kinds` on vectors of length `width`; with `per_element`
+/// false, every scalar stage is pushed as the catalogue's array map instead.
+fn chain_of(kinds: &[Kind], width: usize, per_element: bool) -> Chain<f64> {
+    let mut chain = Chain::<f64>::new(&[width]);
+    for (k, kind) in kinds.iter().enumerate() {
+        match (kind, per_element) {
+            (Kind::SinPerElement, true) => chain.push_per_element("sin", Sin),
+            (Kind::SinPerElement, false) => chain.push_elementwise("sin", Sin),
+            (Kind::TanhPerElement, true) => chain.push_per_element("tanh", Tanh),
+            (Kind::TanhPerElement | Kind::TanhArray, _) => chain.push_elementwise("tanh", Tanh),
+            (Kind::SinThenExpPerElement, true) => chain.push_per_element("sin exp", Sin.then(Exp)),
+            (Kind::SinThenExpPerElement, false) => chain.push_elementwise("sin exp", Sin.then(Exp)),
+            (Kind::Affine, _) => chain.push_affine(
+                Array2::from_shape_fn((width, width), |(i, j)| {
+                    ((i * 5 + j * 3 + k) % 7) as f64 / 7.0 - 0.4
+                }),
+                ndarray::Array1::from_shape_fn(width, |i| 0.1 * i as f64 - 0.2),
+            ),
+        }
+        .unwrap();
+    }
+    chain
+}
+
+fn largest(a: &ArrayD<f64>) -> f64 {
+    a.iter().fold(1.0_f64, |m, v| m.max(v.abs()))
+}
+
+fn gap(a: &ArrayD<f64>, b: &ArrayD<f64>) -> f64 {
+    assert_eq!(a.shape(), b.shape());
+    a.iter()
+        .zip(b)
+        .fold(0.0_f64, |m, (x, y)| m.max((x - y).abs()))
+}
+
+/// Forward and backward through the reusing passes into `work`.
+fn reusing(
+    chain: &Chain<f64>,
+    x: &ArrayD<f64>,
+    dy: &ArrayD<f64>,
+    work: &mut Workspace,
+) -> (ArrayD<f64>, ArrayD<f64>) {
+    let y = chain.forward_reusing(x, work).unwrap().clone();
+    // A stale buffer of another shape, to be replaced.
+    let mut dx = ArrayD::from_elem(IxDyn(&[7]), f64::NAN);
+    chain.backward_reusing(x, work, dy, &mut dx).unwrap();
+    (y, dx)
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(96))]
+    /// Any mix of per-element, array and affine stages: the reusing passes,
+    /// on a second call after one at another point, equal the memo passes,
+    /// and both equal the chain of catalogue array maps.
+    #[test]
+    fn per_element_stages_agree_with_array_stages_through_every_pass(
+        kinds in proptest::collection::vec(kind(), 1..9),
+        width in 1usize..5,
+        xs in proptest::collection::vec(-2.0..2.0_f64, 4),
+        dys in proptest::collection::vec(-3.0..3.0_f64, 4),
+    ) {
+        let chain = chain_of(&kinds, width, true);
+        let arrays = chain_of(&kinds, width, false);
+        let x = ArrayD::from_shape_vec(IxDyn(&[width]), xs[..width].to_vec()).unwrap();
+        let dy = ArrayD::from_shape_vec(IxDyn(&[width]), dys[..width].to_vec()).unwrap();
+
+        let mut work = Workspace::new();
+        reusing(&chain, &x.mapv(|v| 0.5 - v), &dy.mapv(|v| -v), &mut work);
+        let (y, dx) = reusing(&chain, &x, &dy, &mut work);
+
+        let expected_y = arrays.forward(&x).unwrap();
+        let expected_dx = arrays.backward(&x, &dy).unwrap();
+        let memo_dx = chain.backward(&x, &dy).unwrap();
+        let tolerance = 1e-14 * largest(&expected_dx);
+        prop_assert!(gap(&y, &expected_y) <= 1e-14 * largest(&expected_y), "outputs differ: {} against {}", y, expected_y);
+        prop_assert_eq!(&chain.forward(&x).unwrap(), &y, "the plain forward pass differs");
+        prop_assert!(gap(&dx, &expected_dx) <= tolerance, "reusing passes: {} against {}", dx, expected_dx);
+        prop_assert!(gap(&memo_dx, &expected_dx) <= tolerance, "memo passes: {} against {}", memo_dx, expected_dx);
+    }
+}
+
+#[test]
+fn arrays_in_column_major_layout_keep_their_element_order() {
+    // Owned arrays whose memory order is not their logical order: the run
+    // reads and writes elements in logical order all the same.
+    let x = Array2::from_shape_vec((3, 2).f(), vec![0.1, -0.7, 1.3, 0.4, -1.9, 2.2])
+        .unwrap()
+        .into_dyn();
+    let dy = Array2::from_shape_vec((3, 2).f(), vec![1.0, -2.0, 0.5, 3.0, -1.5, 0.25])
+        .unwrap()
+        .into_dyn();
+    assert!(!x.is_standard_layout());
+    let mut chain = Chain::<f64>::new(&[3, 2]);
+    chain.push_per_element("sin", Sin).unwrap();
+    chain.push_per_element("tanh", Tanh).unwrap();
+    let y = x.mapv(|v: f64| v.sin().tanh());
+    // d/dx tanh(sin x) = (1 - tanh(sin x)^2) cos x
+    let expected = ndarray::Zip::from(&x)
+        .and(&dy)
+        .map_collect(|&v: &f64, &d: &f64| (1.0 - v.sin().tanh().powi(2)) * v.cos() * d);
+    let mut work = Workspace::new();
+    for _ in 0..2 {
+        let (out, dx) = reusing(&chain, &x, &dy, &mut work);
+        assert!(gap(&out, &y) <= 1e-15, "{out} against {y}");
+        assert!(gap(&dx, &expected) <= 1e-15, "{dx} against {expected}");
+    }
+    let memo = chain.backward(&x, &dy).unwrap();
+    assert!(gap(&memo, &expected) <= 1e-15, "{memo} against {expected}");
+}
+
+#[test]
+fn arrays_long_enough_to_split_across_cores_give_the_same_changes() {
+    // 140,000 elements: over the size from which the passes split their
+    // elements across the cores (with the `threads` feature).
+    let n = 140_000;
+    let x = ArrayD::from_shape_fn(IxDyn(&[n]), |i| (i[0] as f64 * 1e-4).sin());
+    let dy = ArrayD::from_shape_fn(IxDyn(&[n]), |i| 1.0 + (i[0] % 3) as f64);
+    let mut chain = Chain::<f64>::new(&[n]);
+    chain.push_per_element("sin", Sin).unwrap();
+    chain.push_per_element("exp", Exp).unwrap();
+    let expected = ndarray::Zip::from(&x)
+        .and(&dy)
+        .map_collect(|&v: &f64, &d: &f64| v.sin().exp() * v.cos() * d);
+    let mut work = Workspace::new();
+    for _ in 0..2 {
+        let (_, dx) = reusing(&chain, &x, &dy, &mut work);
+        assert!(gap(&dx, &expected) <= 1e-14 * largest(&expected));
+    }
+}
+
+#[test]
+fn wrong_changes_and_stale_workspaces_are_errors() {
+    let mut chain = Chain::<f64>::new(&[2]);
+    chain.push_per_element("sin", Sin).unwrap();
+    chain.push_per_element("cos", Cos).unwrap();
+    let x = ndarray::arr1(&[0.3, 0.9]).into_dyn();
+    let mut dx = ArrayD::zeros(IxDyn(&[2]));
+
+    // Backward before any forward pass.
+    let mut work = Workspace::new();
+    let err = chain
+        .backward_reusing(&x, &mut work, &x, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+
+    // An output change of the wrong shape, through both kinds of passes.
+    chain.forward_reusing(&x, &mut work).unwrap();
+    let wrong = ndarray::arr1(&[1.0, 2.0, 3.0]).into_dyn();
+    for err in [
+        chain
+            .backward_reusing(&x, &mut work, &wrong, &mut dx)
+            .unwrap_err(),
+        chain.backward(&x, &wrong).unwrap_err(),
+    ] {
+        match err {
+            Error::ShapeMismatch {
+                expected, found, ..
+            } => assert_eq!((expected.as_str(), found.as_str()), ("(2,)", "(3,)")),
+            other => panic!("expected a shape mismatch, got {other}"),
+        }
+    }
+
+    // A workspace filled by a chain of another make: refused, not misread.
+    let mut other = Chain::<f64>::new(&[2]);
+    other.push_elementwise("sin", Sin).unwrap();
+    other.push_per_element("cos", Cos).unwrap();
+    let err = other
+        .backward_reusing(&x, &mut work, &x, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    // Its own forward pass refits the workspace, and then all agrees.
+    other.forward_reusing(&x, &mut work).unwrap();
+    other.backward_reusing(&x, &mut work, &x, &mut dx).unwrap();
+    assert_eq!(dx, other.backward(&x, &x).unwrap());
+}
