@@ -1,6 +1,7 @@
 //! What each way of composing costs: one forward-and-backward pass of the same
 //! eight-stage elementwise model on 1,000-element arrays, built statically,
-//! as a run-time chain and as nested boxed maps; the fast backward pass
+//! as a run-time chain (of array stages, and of per-element stages) and as
+//! nested boxed maps, through the memo passes and through the reusing ones; the fast backward pass
 //! against the reverse derivative evaluated as a map; and Hessian-vector
 //! products against backward passes of static scalar chains.
 
@@ -10,7 +11,7 @@ mod chains;
 use chains::sine_chains;
 use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, ArrayD};
-use revdiff::{Boxed, Chain, Compose, Map, Reverse, Sigmoid, Sin, Softplus, Tanh};
+use revdiff::{Boxed, Chain, Compose, Map, Reverse, Sigmoid, Sin, Softplus, Tanh, Workspace};
 use std::hint::black_box;
 
 fn compositions(c: &mut Criterion) {
@@ -36,6 +37,14 @@ fn compositions(c: &mut Criterion) {
         chain.push_elementwise("sigmoid", Sigmoid).unwrap();
     }
 
+    let mut per_element = Chain::<f64>::new(&[n]);
+    for _ in 0..2 {
+        per_element.push_per_element("tanh", Tanh).unwrap();
+        per_element.push_per_element("sin", Sin).unwrap();
+        per_element.push_per_element("softplus", Softplus).unwrap();
+        per_element.push_per_element("sigmoid", Sigmoid).unwrap();
+    }
+
     let mut boxed: Boxed<Array1<f64>, Array1<f64>> = Boxed::new(Tanh).unwrap();
     for i in 0..7 {
         boxed = match i % 4 {
@@ -53,6 +62,37 @@ fn compositions(c: &mut Criterion) {
     group.bench_function("run-time chain backward", |b| {
         b.iter(|| chain.backward(black_box(&xd), black_box(&dyd)).unwrap())
     });
+    group.bench_function("run-time chain of per-element stages backward", |b| {
+        b.iter(|| {
+            per_element
+                .backward(black_box(&xd), black_box(&dyd))
+                .unwrap()
+        })
+    });
+    group.bench_function("static, reusing passes", |b| {
+        let (mut work, mut dx) = (Workspace::new(), x.clone());
+        b.iter(|| {
+            model.forward_reusing(black_box(&x), &mut work).unwrap();
+            model.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
+        })
+    });
+    for (name, chain) in [
+        ("run-time chain, reusing passes", &chain),
+        (
+            "run-time chain of per-element stages, reusing passes",
+            &per_element,
+        ),
+    ] {
+        group.bench_function(name, |b| {
+            let (mut work, mut dx) = (Workspace::new(), xd.clone());
+            b.iter(|| {
+                chain.forward_reusing(black_box(&xd), &mut work).unwrap();
+                chain
+                    .backward_reusing(&xd, &mut work, &dyd, &mut dx)
+                    .unwrap();
+            })
+        });
+    }
     group.bench_function("nested boxed backward", |b| {
         b.iter(|| boxed.backward(black_box(&x), black_box(&dy)).unwrap())
     });

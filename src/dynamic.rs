@@ -26,7 +26,9 @@ use std::fmt;
 use std::sync::Arc;
 
 mod per_element;
-use per_element::{EachElement, ElementPasses, RunWork, run_backward, run_forward};
+use per_element::{
+    EachElement, ElementPasses, PerElementStage, RunWork, run_backward, run_forward,
+};
 
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
@@ -264,9 +266,30 @@ struct Stage<T> {
     map: Boxed<ArrayD<T>, ArrayD<T>>,
     /// The output shape the stage declared when it was pushed.
     output: Vec<usize>,
-    /// For a stage pushed by [`Chain::push_per_element`], its passes over
-    /// flat slices (the same map as `map`), which the reusing passes use.
-    per_element: Option<Arc<dyn ElementPasses<T>>>,
+    /// Whether [`Chain::push_per_element`] pushed it (its passes over flat
+    /// slices are then in the chain's segment of consecutive such stages).
+    per_element: bool,
+}
+
+/// The stages of a [`Chain`] as its reusing passes run them: one stage
+/// alone, or a run of consecutive per-element stages together.
+#[derive(Clone)]
+enum Segment<T> {
+    One(usize),
+    Run {
+        first: usize,
+        stages: Vec<PerElementStage<T>>,
+    },
+}
+
+impl<T> Segment<T> {
+    /// The segment's stages, `first..end`.
+    fn range(&self) -> std::ops::Range<usize> {
+        match self {
+            Segment::One(k) => *k..k + 1,
+            Segment::Run { first, stages } => *first..first + stages.len(),
+        }
+    }
 }
 
 impl<T: Real> Stage<T> {
@@ -321,6 +344,10 @@ pub struct Chain<T> {
     input_shape: Vec<usize>,
     output_shape: Vec<usize>,
     stages: Vec<Stage<T>>,
+    /// The stages as the reusing passes run them.
+    segments: Vec<Segment<T>>,
+    /// How many of the segments are runs of per-element stages.
+    run_count: usize,
     retention: Retention,
 }
 
@@ -369,6 +396,8 @@ impl<T: Real> Chain<T> {
             input_shape: input_shape.to_vec(),
             output_shape: input_shape.to_vec(),
             stages: Vec::new(),
+            segments: Vec::new(),
+            run_count: 0,
             retention: Retention::All,
         }
     }
@@ -682,8 +711,9 @@ impl<T: Real> Chain<T> {
             name: name.to_string(),
             map: Boxed::new(map)?,
             output: output.clone(),
-            per_element: None,
+            per_element: false,
         });
+        self.segments.push(Segment::One(self.stages.len() - 1));
         self.output_shape = output;
         Ok(())
     }
@@ -738,48 +768,27 @@ impl<T: Real> Chain<T> {
         F: Map<T, Output = T> + Send + Sync + 'static,
         F::Memo: HeldBytes + Send + Sync + 'static,
     {
-        let map = Arc::new(EachElement(map));
+        let map = Arc::new(EachElement(Arc::new(map)));
         let passes: Arc<dyn ElementPasses<T>> = map.clone();
+        let stage = PerElementStage::new(passes);
+        let k = self.stages.len();
         self.stages.push(Stage {
             name: name.to_string(),
             map: Boxed::shared(map)?,
             output: self.output_shape.clone(),
-            per_element: Some(passes),
+            per_element: true,
         });
+        match self.segments.last_mut() {
+            Some(Segment::Run { stages, .. }) => stages.push(stage),
+            _ => {
+                self.segments.push(Segment::Run {
+                    first: k,
+                    stages: vec![stage],
+                });
+                self.run_count += 1;
+            }
+        }
         Ok(())
-    }
-
-    /// The number of runs of consecutive per-element stages.
-    fn runs(&self) -> usize {
-        self.stages
-            .iter()
-            .enumerate()
-            .filter(|(k, s)| {
-                s.per_element.is_some() && (*k == 0 || self.stages[k - 1].per_element.is_none())
-            })
-            .count()
-    }
-
-    /// The end of the run of per-element stages that starts at `first`.
-    fn run_end(&self, first: usize) -> usize {
-        self.stages[first..]
-            .iter()
-            .position(|s| s.per_element.is_none())
-            .map_or(self.stages.len(), |n| first + n)
-    }
-
-    /// The per-element passes of stages `first..end`, a run that
-    /// [`run_end`](Self::run_end) found.
-    fn run_passes(
-        &self,
-        first: usize,
-        end: usize,
-    ) -> impl DoubleEndedIterator<Item = &dyn ElementPasses<T>> + ExactSizeIterator {
-        self.stages[first..end].iter().map(|s| {
-            s.per_element
-                .as_deref()
-                .expect("a run holds per-element stages only")
-        })
     }
 
     /// Appends the affine stage `x -> W x + b` with fixed `W` of shape
@@ -918,37 +927,44 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         w.fit(self);
         // Each stage's output, borrowed from its own workspace (or its
         // run's), is the next stage's input: no lookups between stages.
-        let mut y = x;
+        let mut y: Option<&'w ArrayD<T>> = None;
         let (mut stage_work, mut run_work) = (&mut w.stages[..], &mut w.runs[..]);
-        let mut k = 0;
-        while k < self.stages.len() {
-            let stage = &self.stages[k];
-            if stage.per_element.is_some() {
-                let end = self.run_end(k);
-                let (run, rest) = std::mem::take(&mut run_work)
-                    .split_first_mut()
-                    .expect("fitted: one run workspace per run");
-                run_forward(self.run_passes(k, end), y, run)?;
-                y = &run.output;
-                run_work = rest;
-                stage_work = &mut std::mem::take(&mut stage_work)[end - k..];
-                k = end;
-            } else {
-                let (own, rest) = std::mem::take(&mut stage_work)
-                    .split_first_mut()
-                    .expect("fitted: one workspace per stage");
-                y = stage.map.forward_reusing(y, own)?;
-                stage.check_output(k, y)?;
-                stage_work = rest;
-                k += 1;
+        for segment in &self.segments {
+            let input = y.unwrap_or(x);
+            match segment {
+                Segment::Run { stages, .. } => {
+                    let (run, rest) = std::mem::take(&mut run_work)
+                        .split_first_mut()
+                        .expect("fitted: one run workspace per run");
+                    run_forward(stages, input, run)?;
+                    y = Some(&run.output);
+                    run_work = rest;
+                    stage_work = &mut std::mem::take(&mut stage_work)[stages.len()..];
+                }
+                &Segment::One(k) => {
+                    let (own, rest) = std::mem::take(&mut stage_work)
+                        .split_first_mut()
+                        .expect("fitted: one workspace per stage");
+                    let stage = &self.stages[k];
+                    let output = stage.map.forward_reusing(input, own)?;
+                    stage.check_output(k, output)?;
+                    y = Some(output);
+                    stage_work = rest;
+                }
             }
         }
-        self.reused_output(work)
+        // The chain has stages (checked above), so the last one's output.
+        let Some(y) = y else {
+            return Err(Error::WorkspaceNotFilled {
+                operation: "forward pass of a run-time chain",
+            });
+        };
+        Ok(y)
     }
     fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w ArrayD<T>> {
         match (work.state::<ChainWork<T>>(), self.stages.last()) {
             (Ok(w), Some(last)) if w.stages.len() == self.stages.len() => {
-                if last.per_element.is_some()
+                if last.per_element
                     && let Some(run) = w.runs.last()
                 {
                     return Ok(&run.output);
@@ -970,45 +986,34 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
             return Ok(());
         }
         let w = work.state_mut::<ChainWork<T>>()?;
-        if w.stages.len() != self.stages.len() || w.runs.len() != self.runs() {
+        if w.stages.len() != self.stages.len() || w.runs.len() != self.run_count {
             return Err(Error::WorkspaceNotFilled {
                 operation: "backward pass of a run-time chain (its stages changed since the forward pass)",
             });
         }
         let n = self.stages.len();
         let mut runs = &mut w.runs[..];
-        let mut end = n;
-        while end > 0 {
-            // The segment `first..end` is one stage, or a run of
-            // per-element stages. It reads its input (the previous
-            // segment's output) and the change of its output, and writes
-            // the change of its input.
-            let k = end - 1;
-            let first = if self.stages[k].per_element.is_some() {
-                (0..end)
-                    .rev()
-                    .find(|&j| self.stages[j].per_element.is_none())
-                    .map_or(0, |j| j + 1)
-            } else {
-                k
-            };
-            let (earlier_runs, this_run) = match self.stages[k].per_element {
-                Some(_) => {
+        for (i, segment) in self.segments.iter().enumerate().rev() {
+            // A segment reads its input (the previous segment's output) and
+            // the change of its output, and writes the change of its input.
+            let std::ops::Range { start: first, end } = segment.range();
+            let (earlier_runs, this_run) = match segment {
+                Segment::Run { stages, .. } => {
                     let (last, rest) = std::mem::take(&mut runs)
                         .split_last_mut()
                         .expect("checked: one run workspace per run");
-                    (rest, Some(last))
+                    (rest, Some((stages, last)))
                 }
-                None => (std::mem::take(&mut runs), None),
+                Segment::One(_) => (std::mem::take(&mut runs), None),
             };
             let (before, rest) = w.stages.split_at_mut(first);
-            let input = match first.checked_sub(1) {
+            let input = match i.checked_sub(1).map(|p| &self.segments[p]) {
                 None => x,
-                Some(p) if self.stages[p].per_element.is_some() => match earlier_runs.last() {
+                Some(Segment::Run { .. }) => match earlier_runs.last() {
                     Some(run) => &run.output,
                     None => x,
                 },
-                Some(p) => self.stages[p].map.reused_output(&before[p])?,
+                Some(&Segment::One(p)) => self.stages[p].map.reused_output(&before[p])?,
             };
             let (lower, upper) = w.changes.split_at_mut(first);
             let change = if end == n {
@@ -1023,13 +1028,14 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
                 None => &mut *dx,
             };
             match this_run {
-                Some(run) => run_backward(self.run_passes(first, end), run, change, into)?,
-                None => self.stages[k]
-                    .map
-                    .backward_reusing(input, &mut rest[0], change, into)?,
+                Some((stages, run)) => run_backward(stages, run, change, into)?,
+                None => {
+                    self.stages[first]
+                        .map
+                        .backward_reusing(input, &mut rest[0], change, into)?
+                }
             }
             runs = earlier_runs;
-            end = first;
         }
         Ok(())
     }
@@ -1058,9 +1064,13 @@ impl<T: Real> ChainWork<T> {
     /// One workspace per stage and per run (the chain may have grown since
     /// the last call).
     fn fit(&mut self, chain: &Chain<T>) {
-        self.stages.resize_with(chain.stages.len(), Workspace::new);
-        self.changes.resize_with(chain.stages.len(), || None);
-        self.runs.resize_with(chain.runs(), RunWork::default);
+        // Checked first: this runs on every pass, and almost always fits.
+        let (stages, runs) = (chain.stages.len(), chain.run_count);
+        if self.stages.len() != stages || self.changes.len() != stages || self.runs.len() != runs {
+            self.stages.resize_with(stages, Workspace::new);
+            self.changes.resize_with(stages, || None);
+            self.runs.resize_with(runs, RunWork::default);
+        }
     }
 }
 

@@ -15,11 +15,11 @@ use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
 use crate::space::{Real, dims_equal, shape_tuple, split_across_cores};
 use ndarray::{ArrayD, IxDyn};
-use std::any::Any;
+use std::sync::Arc;
 
 /// A scalar map applied to each element of an `ArrayD<T>`: the array map
 /// of a per-element stage, used by every pass but the chain's reusing ones.
-pub(crate) struct EachElement<F>(pub(crate) F);
+pub(crate) struct EachElement<F>(pub(crate) Arc<F>);
 
 impl<F: Compose> Compose for EachElement<F> {
     fn boxed_depth(&self) -> usize {
@@ -82,70 +82,142 @@ fn check_change<T>(shape: &[usize], dy: &ArrayD<T>) -> Result<()> {
     ))
 }
 
-/// Where a per-element stage keeps its memos between the reusing passes:
-/// a `Vec` of the scalar map's memo type, behind `Any` because the chain's
-/// workspace cannot name that type.
-pub(crate) type KeptMemos = Option<Box<dyn Any>>;
+/// A per-element stage as a chain holds it: its passes, and their
+/// identity, read once here rather than through a dynamic call per pass.
+#[derive(Clone)]
+pub(crate) struct PerElementStage<T> {
+    passes: Arc<dyn ElementPasses<T>>,
+    identity: usize,
+}
 
-/// A per-element stage's passes over flat slices of elements, in the same
-/// order: what a chain's reusing passes call, once per stage and pass.
+impl<T> PerElementStage<T> {
+    pub(crate) fn new(passes: Arc<dyn ElementPasses<T>>) -> Self {
+        let identity = passes.identity();
+        PerElementStage { passes, identity }
+    }
+}
+
+/// The per-element passes of a stage, which make the buffers its reusing
+/// passes run in.
 pub(crate) trait ElementPasses<T>: Send + Sync {
-    /// `y[i] = f(x[i])`, keeping each element's memo in `kept`.
-    fn forward_elements(&self, x: &[T], y: &mut [T], kept: &mut KeptMemos) -> Result<()>;
+    /// Empty buffers for this stage; the first forward pass fills them.
+    fn buffers(&self) -> Box<dyn StageBuffers<T>>;
+    /// What tells this stage's buffers from another's: the address of the
+    /// scalar map, which the buffers keep alive, so that no other map can
+    /// take the address while they exist.
+    fn identity(&self) -> usize;
+}
+
+/// A per-element stage's memos between its reusing passes, with the map
+/// that reads them: the pass over flat slices is one dynamic call, with no
+/// lookup of what the memos are.
+pub(crate) trait StageBuffers<T> {
+    /// `y[i] = f(x[i])`, keeping each element's memo.
+    fn forward(&mut self, x: &[T], y: &mut [T]) -> Boxed<()>;
     /// `dx[i] = R[f](x[i], dy[i])` from the memos of the last forward pass.
-    fn backward_elements(&self, kept: &KeptMemos, dy: &[T], dx: &mut [T]) -> Result<()>;
+    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()>;
 }
 
 impl<T, F> ElementPasses<T> for EachElement<F>
 where
     T: Real,
-    F: Map<T, Output = T> + Send + Sync,
+    F: Map<T, Output = T> + Send + Sync + 'static,
     F::Memo: Send + Sync + 'static,
 {
-    fn forward_elements(&self, x: &[T], y: &mut [T], kept: &mut KeptMemos) -> Result<()> {
-        let memos = match kept.as_mut().and_then(|b| b.downcast_mut::<Vec<F::Memo>>()) {
-            Some(memos) if memos.len() == x.len() => memos,
-            _ => {
-                // First pass, or another width: filled element by element.
-                let mut memos = Vec::with_capacity(x.len());
-                for (out, v) in y.iter_mut().zip(x) {
-                    let (value, memo) = self.0.forward_memo(v)?;
-                    *out = value;
-                    memos.push(memo);
-                }
-                *kept = Some(Box::new(memos));
-                return Ok(());
+    fn buffers(&self) -> Box<dyn StageBuffers<T>> {
+        Box::new(Buffers {
+            map: Arc::clone(&self.0),
+            memos: Vec::new(),
+        })
+    }
+    fn identity(&self) -> usize {
+        Arc::as_ptr(&self.0) as *const () as usize
+    }
+}
+
+/// A result whose error is boxed: one word, returned in a register by the
+/// dynamic call of every stage, where [`Error`] itself would go through
+/// memory.
+type Boxed<R> = std::result::Result<R, Box<Error>>;
+
+struct Buffers<F: Map<T>, T: Real> {
+    map: Arc<F>,
+    memos: Vec<F::Memo>,
+}
+
+impl<T, F> StageBuffers<T> for Buffers<F, T>
+where
+    T: Real,
+    F: Map<T, Output = T> + Send + Sync,
+    F::Memo: Send + Sync,
+{
+    fn forward(&mut self, x: &[T], y: &mut [T]) -> Boxed<()> {
+        self.forward_unboxed(x, y).map_err(Box::new)
+    }
+    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()> {
+        self.backward_unboxed(dy, dx).map_err(Box::new)
+    }
+}
+
+impl<T, F> Buffers<F, T>
+where
+    T: Real,
+    F: Map<T, Output = T> + Send + Sync,
+    F::Memo: Send + Sync,
+{
+    #[inline]
+    fn forward_unboxed(&mut self, x: &[T], y: &mut [T]) -> Result<()> {
+        let map = &*self.map;
+        // One element (a chain of scalar maps): no loop to set up.
+        if let ([v], [out], [memo]) = (x, &mut *y, self.memos.as_mut_slice()) {
+            (*out, *memo) = map.forward_memo(v)?;
+            return Ok(());
+        }
+        if self.memos.len() != x.len() {
+            // First pass, or another width: filled element by element.
+            self.memos.clear();
+            for (out, v) in y.iter_mut().zip(x) {
+                let (value, memo) = map.forward_memo(v)?;
+                *out = value;
+                self.memos.push(memo);
             }
-        };
+            return Ok(());
+        }
         split_elements(
             x,
             y,
-            memos.as_mut_slice(),
+            self.memos.as_mut_slice(),
             &|x, y, memos: &mut [F::Memo]| {
                 for ((out, memo), v) in y.iter_mut().zip(memos).zip(x) {
-                    (*out, *memo) = self.0.forward_memo(v)?;
+                    (*out, *memo) = map.forward_memo(v)?;
                 }
                 Ok(())
             },
         )
     }
-    fn backward_elements(&self, kept: &KeptMemos, dy: &[T], dx: &mut [T]) -> Result<()> {
-        // The error is made only when needed: this runs once per stage.
-        let Some(memos) = kept
-            .as_ref()
-            .and_then(|b| b.downcast_ref::<Vec<F::Memo>>())
-            .filter(|memos| memos.len() == dy.len())
-        else {
+    #[inline]
+    fn backward_unboxed(&self, dy: &[T], dx: &mut [T]) -> Result<()> {
+        if self.memos.len() != dy.len() {
             return Err(Error::WorkspaceNotFilled {
                 operation: "backward pass of a per-element stage of a run-time chain",
             });
-        };
-        split_elements(dy, dx, memos.as_slice(), &|dy, dx, memos: &[F::Memo]| {
-            for ((d, memo), g) in dx.iter_mut().zip(memos).zip(dy) {
-                *d = self.0.backward_memo(memo, g)?;
-            }
-            Ok(())
-        })
+        }
+        let map = &*self.map;
+        if let ([g], [d], [memo]) = (dy, &mut *dx, self.memos.as_slice()) {
+            *d = map.backward_memo(memo, g)?;
+            return Ok(());
+        }
+        split_elements(
+            dy,
+            dx,
+            self.memos.as_slice(),
+            &|dy, dx, memos: &[F::Memo]| {
+                for ((d, memo), g) in dx.iter_mut().zip(memos).zip(dy) {
+                    *d = map.backward_memo(memo, g)?;
+                }
+                Ok(())
+            },
+        )
     }
 }
 
@@ -158,21 +230,38 @@ where
     K: SplitAt,
     P: Fn(&[T], &mut [T], K) -> Result<()> + Sync,
 {
-    #[cfg(feature = "threads")]
     if split_across_cores(from.len()) {
-        let mid = from.len() / 2;
-        let (from_a, from_b) = from.split_at(mid);
-        let (into_a, into_b) = into.split_at_mut(mid);
-        let (kept_a, kept_b) = kept.split(mid);
+        return in_halves(from, into, kept, pass);
+    }
+    pass(from, into, kept)
+}
+
+/// [`split_elements`] on two cores; out of line, so that the common path
+/// (one core) keeps a small stack frame.
+#[inline(never)]
+fn in_halves<T, K, P>(from: &[T], into: &mut [T], kept: K, pass: &P) -> Result<()>
+where
+    T: Send + Sync,
+    K: SplitAt,
+    P: Fn(&[T], &mut [T], K) -> Result<()> + Sync,
+{
+    let mid = from.len() / 2;
+    let (from_a, from_b) = from.split_at(mid);
+    let (into_a, into_b) = into.split_at_mut(mid);
+    let (kept_a, kept_b) = kept.split(mid);
+    #[cfg(feature = "threads")]
+    {
         let (a, b) = rayon::join(
             || split_elements(from_a, into_a, kept_a, pass),
             || split_elements(from_b, into_b, kept_b, pass),
         );
-        return a.and(b);
+        a.and(b)
     }
     #[cfg(not(feature = "threads"))]
-    let _ = split_across_cores;
-    pass(from, into, kept)
+    {
+        pass(from_a, into_a, kept_a)?;
+        pass(from_b, into_b, kept_b)
+    }
 }
 
 /// A slice of memos, shared or not, that can be cut in two for the halves
@@ -193,6 +282,9 @@ impl<M: Sync> SplitAt for &[M] {
     }
 }
 
+/// A stage's buffers, tagged with the identity of the stage that made them.
+type Tagged<T> = (usize, Box<dyn StageBuffers<T>>);
+
 /// What a run of consecutive per-element stages keeps between the reusing
 /// passes. Every buffer is the run's width long (per stage where it says
 /// so) and is reused while the width stays.
@@ -202,8 +294,8 @@ pub(crate) struct RunWork<T> {
     scratch: Vec<T>,
     /// The outputs of every stage but the last, one after another.
     values: Vec<T>,
-    /// Every stage's memos.
-    kept: Vec<KeptMemos>,
+    /// Every stage's buffers, with the identity of the stage that made them.
+    kept: Vec<Option<Tagged<T>>>,
     /// The last stage's output, read by the next stage or the caller.
     pub(crate) output: ArrayD<T>,
     /// The change being passed back, in two buffers used in turn.
@@ -235,8 +327,8 @@ fn standard_slice_mut<'a, T: Real>(a: &'a mut ArrayD<T>, shape: &[usize]) -> &'a
 
 /// The reusing forward pass of a run of per-element stages (`passes`, in
 /// order, at least one) from `input`; the result stays in `work.output`.
-pub(crate) fn run_forward<'p, T: Real + 'p>(
-    passes: impl ExactSizeIterator<Item = &'p dyn ElementPasses<T>>,
+pub(crate) fn run_forward<T: Real>(
+    stages: &[PerElementStage<T>],
     input: &ArrayD<T>,
     work: &mut RunWork<T>,
 ) -> Result<()> {
@@ -249,20 +341,38 @@ pub(crate) fn run_forward<'p, T: Real + 'p>(
     } = work;
     let x = logical_slice(input, scratch);
     let len = x.len();
-    let stages = passes.len();
-    values.resize(len * stages.saturating_sub(1), T::zero());
-    kept.resize_with(stages, || None);
-    let y = standard_slice_mut(output, input.shape());
-    for (i, (passes, kept)) in passes.zip(kept.iter_mut()).enumerate() {
+    let count = stages.len();
+    // Checked first: this runs on every pass, and almost always fits.
+    let between = len * count.saturating_sub(1);
+    if values.len() != between {
+        values.resize(between, T::zero());
+    }
+    if kept.len() != count {
+        kept.resize_with(count, || None);
+    }
+    // The output is the run's own, made here in standard layout and never
+    // lent mutably, so only its shape needs a check.
+    if !dims_equal(output.shape(), input.shape()) {
+        *output = ArrayD::zeros(input.raw_dim());
+    }
+    let y = output.as_slice_mut().expect("made in standard layout here");
+    for (i, (stage, kept)) in stages.iter().zip(kept.iter_mut()).enumerate() {
         // Stage i reads stage i - 1's output and writes its own.
         let (before, after) = values.split_at_mut(i * len);
         let from = if i == 0 { x } else { &before[(i - 1) * len..] };
-        let into = if i + 1 == stages {
+        let into = if i + 1 == count {
             &mut *y
         } else {
             &mut after[..len]
         };
-        passes.forward_elements(from, into, kept)?;
+        // Buffers made by another stage (a workspace that served another
+        // chain) are replaced.
+        if !matches!(kept, Some((id, _)) if *id == stage.identity) {
+            *kept = Some((stage.identity, stage.passes.buffers()));
+        }
+        if let Some((_, buffers)) = kept {
+            buffers.forward(from, into).map_err(|e| *e)?;
+        }
     }
     Ok(())
 }
@@ -284,8 +394,8 @@ fn logical_slice<'a, T: Real>(a: &'a ArrayD<T>, scratch: &'a mut Vec<T>) -> &'a 
 /// the change `dy` of its output into `dx`, the change of its input
 /// (reshaped to the input's shape when it has another, or is not in
 /// standard layout).
-pub(crate) fn run_backward<'p, T: Real + 'p>(
-    passes: impl DoubleEndedIterator<Item = &'p dyn ElementPasses<T>> + ExactSizeIterator,
+pub(crate) fn run_backward<T: Real>(
+    stages: &[PerElementStage<T>],
     work: &mut RunWork<T>,
     dy: &ArrayD<T>,
     dx: &mut ArrayD<T>,
@@ -298,17 +408,19 @@ pub(crate) fn run_backward<'p, T: Real + 'p>(
         ..
     } = work;
     check_change(output.shape(), dy)?;
-    if kept.len() != passes.len() {
+    if kept.len() != stages.len() {
         return Err(Error::WorkspaceNotFilled {
             operation: "backward pass of a run of per-element stages (the chain changed since the forward pass)",
         });
     }
     let dy = logical_slice(dy, scratch);
-    first.resize(dy.len(), T::zero());
-    second.resize(dy.len(), T::zero());
+    if first.len() != dy.len() || second.len() != dy.len() {
+        first.resize(dy.len(), T::zero());
+        second.resize(dy.len(), T::zero());
+    }
     let dx = standard_slice_mut(dx, output.shape());
-    let stages = passes.len();
-    for (i, (passes, kept)) in passes.zip(kept.iter()).enumerate().rev() {
+    let count = stages.len();
+    for (i, (stage, kept)) in stages.iter().zip(kept.iter()).enumerate().rev() {
         // Stage i reads the change of its output (the run's, or what
         // stage i + 1 wrote) and writes the change of its input: the two
         // buffers take turns.
@@ -317,9 +429,18 @@ pub(crate) fn run_backward<'p, T: Real + 'p>(
         } else {
             (&**first, &mut **second)
         };
-        let from = if i + 1 == stages { dy } else { read };
+        let from = if i + 1 == count { dy } else { read };
         let into = if i == 0 { &mut *dx } else { write };
-        passes.backward_elements(kept, from, into)?;
+        match kept {
+            Some((id, buffers)) if *id == stage.identity => {
+                buffers.backward(from, into).map_err(|e| *e)?;
+            }
+            _ => {
+                return Err(Error::WorkspaceNotFilled {
+                    operation: "backward pass of a per-element stage of a run-time chain (the workspace was filled by another chain)",
+                });
+            }
+        }
     }
     Ok(())
 }
