@@ -14,7 +14,7 @@ use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
 use crate::space::{Real, dims_equal, shape_tuple, split_across_cores};
-use ndarray::{ArrayD, IxDyn};
+use ndarray::{ArrayD, Dimension, IxDyn};
 use std::sync::Arc;
 
 /// A scalar map applied to each element of an `ArrayD<T>`: the array map
@@ -30,7 +30,8 @@ impl<F: Compose> Compose for EachElement<F> {
 /// What a per-element stage's memo pass keeps: the scalar map's memo of
 /// every element, in logical order, and the shape they came from.
 pub(crate) struct EachElementMemo<M> {
-    shape: Vec<usize>,
+    // `IxDyn` holds up to four lengths inline: no allocation for the shape.
+    shape: IxDyn,
     memos: Vec<M>,
 }
 
@@ -58,11 +59,11 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
             *v = out;
             memos.push(memo);
         }
-        let shape = x.shape().to_vec();
+        let shape = x.raw_dim();
         Ok((y, EachElementMemo { shape, memos }))
     }
     fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        check_change(&memo.shape, dy)?;
+        check_change(memo.shape.slice(), dy)?;
         let mut dx = dy.clone();
         for (d, m) in dx.iter_mut().zip(&memo.memos) {
             *d = self.0.backward_memo(m, d)?;
