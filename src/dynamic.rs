@@ -171,14 +171,7 @@ impl<A: Space, B: Space> Boxed<A, B> {
         F: Map<A, Output = B> + Send + Sync + 'static,
         F::Memo: HeldBytes + 'static,
     {
-        let depth = map.boxed_depth() + 1;
-        if depth > Self::MAX_DEPTH {
-            return Err(Error::NestingTooDeep {
-                depth,
-                limit: Self::MAX_DEPTH,
-            });
-        }
-        Ok(Self::unchecked(map))
+        Self::shared(Arc::new(map))
     }
 
     /// [`new`](Self::new) for a map already shared, checked the same way.
