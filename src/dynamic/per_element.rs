@@ -326,7 +326,7 @@ fn standard_slice_mut<'a, T: Real>(a: &'a mut ArrayD<T>, shape: &[usize]) -> &'a
         .expect("an array in standard layout is one slice")
 }
 
-/// The reusing forward pass of a run of per-element stages (`passes`, in
+/// The reusing forward pass of a run of per-element stages (`stages`, in
 /// order, at least one) from `input`; the result stays in `work.output`.
 pub(crate) fn run_forward<T: Real>(
     stages: &[PerElementStage<T>],
