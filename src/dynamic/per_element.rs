@@ -32,12 +32,32 @@ impl<F: Compose> Compose for EachElement<F> {
 pub(crate) struct EachElementMemo<M> {
     // `IxDyn` holds up to four lengths inline: no allocation for the shape.
     shape: IxDyn,
-    memos: Vec<M>,
+    memos: ElementMemos<M>,
+}
+
+/// The memos of a per-element stage: one inline (a chain of scalar maps
+/// on one-element arrays, where an allocation per stage would cost more
+/// than the map), or one per element.
+enum ElementMemos<M> {
+    One(M),
+    Each(Vec<M>),
+}
+
+impl<M> ElementMemos<M> {
+    fn as_slice(&self) -> &[M] {
+        match self {
+            ElementMemos::One(memo) => std::slice::from_ref(memo),
+            ElementMemos::Each(memos) => memos,
+        }
+    }
 }
 
 impl<M: HeldBytes> HeldBytes for EachElementMemo<M> {
     fn held_bytes(&self) -> usize {
-        self.memos.held_bytes()
+        match &self.memos {
+            ElementMemos::One(memo) => memo.held_bytes(),
+            ElementMemos::Each(memos) => memos.held_bytes(),
+        }
     }
 }
 
@@ -45,31 +65,90 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
     type Output = ArrayD<T>;
     type Memo = EachElementMemo<F::Memo>;
     fn forward(&self, x: &ArrayD<T>) -> Result<ArrayD<T>> {
-        let mut y = x.clone();
-        for v in y.iter_mut() {
-            *v = self.0.forward(v)?;
-        }
-        Ok(y)
+        each_element(x, |v| self.0.forward(&v))
     }
     fn forward_memo(&self, x: &ArrayD<T>) -> Result<(ArrayD<T>, Self::Memo)> {
-        let mut y = x.clone();
-        let mut memos = Vec::with_capacity(x.len());
-        for v in y.iter_mut() {
-            let (out, memo) = self.0.forward_memo(v)?;
-            *v = out;
-            memos.push(memo);
-        }
         let shape = x.raw_dim();
+        if let Some(&v) = x.first()
+            && x.len() == 1
+        {
+            let (out, memo) = self.0.forward_memo(&v)?;
+            let y = with_only_element(x, out);
+            let memos = ElementMemos::One(memo);
+            return Ok((y, EachElementMemo { shape, memos }));
+        }
+        let mut memos = Vec::with_capacity(x.len());
+        let y = each_element(x, |v| {
+            let (out, memo) = self.0.forward_memo(&v)?;
+            memos.push(memo);
+            Ok(out)
+        })?;
+        let memos = ElementMemos::Each(memos);
         Ok((y, EachElementMemo { shape, memos }))
     }
     fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
         check_change(memo.shape.slice(), dy)?;
+        // As many memos as elements of `dy`: its shape was checked.
+        let (map, memos) = (&*self.0, memo.memos.as_slice());
+        if let ([m], Some(&g)) = (memos, dy.first()) {
+            return Ok(with_only_element(dy, map.backward_memo(m, &g)?));
+        }
         let mut dx = dy.clone();
-        for (d, m) in dx.iter_mut().zip(&memo.memos) {
-            *d = self.0.backward_memo(m, d)?;
+        // A plain loop over two slices: for a map whose backward pass
+        // cannot fail (a product, once inlined), it is vectorised.
+        match dx.as_slice_mut() {
+            Some(ds) => {
+                for (d, m) in ds.iter_mut().zip(memos) {
+                    *d = map.backward_memo(m, d)?;
+                }
+            }
+            None => {
+                for (d, m) in dx.iter_mut().zip(memos) {
+                    *d = map.backward_memo(m, d)?;
+                }
+            }
         }
         Ok(dx)
     }
+}
+
+/// A new array of `x`'s shape holding `f` of each element of `x`, called
+/// in logical order. Over the flat slice when `x` is in standard order, as
+/// it is between stages: the dynamic-dimension iterator steps a
+/// multi-index per element, which costs more than a cheap map itself.
+fn each_element<T: Real>(x: &ArrayD<T>, mut f: impl FnMut(T) -> Result<T>) -> Result<ArrayD<T>> {
+    if let Some(&v) = x.first()
+        && x.len() == 1
+    {
+        return Ok(with_only_element(x, f(v)?));
+    }
+    // A clone rather than a new array: it copies the shape and strides as
+    // they are, where building an `ArrayD` checks them again.
+    let mut y = x.clone();
+    match y.as_slice_mut() {
+        Some(ys) => {
+            for v in ys {
+                *v = f(*v)?;
+            }
+        }
+        None => {
+            for v in y.iter_mut() {
+                *v = f(*v)?;
+            }
+        }
+    }
+    Ok(y)
+}
+
+/// A copy of the one-element array `x` holding `v`. Written through
+/// `first_mut`: `fill` and slices check the layout, which for a dynamic
+/// dimension costs more than a scalar map.
+fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
+    let mut y = x.clone();
+    if let Some(only) = y.first_mut() {
+        *only = v;
+    }
+    y
 }
 
 fn check_change<T>(shape: &[usize], dy: &ArrayD<T>) -> Result<()> {
