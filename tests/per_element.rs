@@ -160,6 +160,36 @@ fn arrays_long_enough_to_split_across_cores_give_the_same_changes() {
 }
 
 #[test]
+fn slopes_that_overflow_leave_the_change_to_the_maps_own_backward_pass() {
+    // The backward passes multiply changes by each stage's slope
+    // `R[f](x, 1)`. Near 0 the slope of x^-2 overflows while its product
+    // with a small change does not: there the map's own backward pass
+    // (which divides step by step) must give the change, in both kinds of
+    // passes, and the other elements keep the products.
+    let inverse_square = Powi { coef: 1.0, n: -2 };
+    let mut chain = Chain::<f64>::new(&[3]);
+    chain.push_per_element("sin", Sin).unwrap();
+    chain
+        .push_per_element("inverse square", inverse_square)
+        .unwrap();
+    let x = ArrayD::from_shape_vec(IxDyn(&[3]), vec![1e-120, 0.5, -2.0]).unwrap();
+    let dy = ArrayD::from_shape_vec(IxDyn(&[3]), vec![1e-200, 1.0, -3.0]).unwrap();
+    let expected = ndarray::Zip::from(&x)
+        .and(&dy)
+        .map_collect(|&v: &f64, &d: &f64| {
+            let (s, _) = Sin.forward_memo(&v).unwrap();
+            Sin.backward(&v, &inverse_square.backward(&s, &d).unwrap())
+                .unwrap()
+        });
+    // -2 x^-3 dy at x = 1e-120, dy = 1e-200 (common practice, no source).
+    assert!((expected[0] / -2e160 - 1.0).abs() < 1e-12, "{expected}");
+    let mut work = Workspace::new();
+    let (_, dx) = reusing(&chain, &x, &dy, &mut work);
+    assert_eq!(dx, expected, "reusing passes");
+    assert_eq!(chain.backward(&x, &dy).unwrap(), expected, "memo passes");
+}
+
+#[test]
 fn wrong_changes_and_stale_workspaces_are_errors() {
     let mut chain = Chain::<f64>::new(&[2]);
     chain.push_per_element("sin", Sin).unwrap();
@@ -203,4 +233,52 @@ fn wrong_changes_and_stale_workspaces_are_errors() {
     other.forward_reusing(&x, &mut work).unwrap();
     other.backward_reusing(&x, &mut work, &x, &mut dx).unwrap();
     assert_eq!(dx, other.backward(&x, &x).unwrap());
+}
+
+/// `x -> 2x`, refusing inputs over 10: a map whose forward pass fails at
+/// some points and not at others.
+struct DoubleUpToTen;
+
+impl Compose for DoubleUpToTen {}
+
+impl Map<f64> for DoubleUpToTen {
+    type Output = f64;
+    type Memo = ();
+    fn forward_memo(&self, x: &f64) -> Result<(f64, ())> {
+        if *x > 10.0 {
+            return Err(Error::InvalidSetting {
+                name: "input of DoubleUpToTen",
+                value: x.to_string(),
+                reason: "over 10",
+            });
+        }
+        Ok((2.0 * x, ()))
+    }
+    fn backward_memo(&self, _: &(), dy: &f64) -> Result<f64> {
+        Ok(2.0 * dy)
+    }
+}
+
+#[test]
+fn a_forward_pass_that_failed_halfway_is_not_read_back() {
+    // The first stage's buffers are from the failed pass, the second's from
+    // the one before: the backward pass must refuse them, not mix them.
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain.push_per_element("exp", Exp).unwrap();
+    chain.push_per_element("double", DoubleUpToTen).unwrap();
+    let (x, dy) = (
+        ArrayD::from_elem(vec![1], 1.0),
+        ArrayD::from_elem(vec![1], 1.0),
+    );
+    let mut work = Workspace::new();
+    let mut dx = x.clone();
+    chain.forward_reusing(&x, &mut work).unwrap();
+    chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
+    assert_eq!(dx[0], 2.0 * 1.0_f64.exp());
+    let far = ArrayD::from_elem(vec![1], 3.0);
+    chain.forward_reusing(&far, &mut work).unwrap_err();
+    let err = chain
+        .backward_reusing(&far, &mut work, &dy, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
 }

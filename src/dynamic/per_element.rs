@@ -90,8 +90,10 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
         check_change(memo.shape.slice(), dy)?;
         // As many memos as elements of `dy`: its shape was checked.
         let (map, memos) = (&*self.0, memo.memos.as_slice());
+        // The same products as the reusing passes (see `change_at`).
+        let change = |m, d| change_at(map, m, slope_of(map, m), d);
         if let ([m], Some(&g)) = (memos, dy.first()) {
-            return Ok(with_only_element(dy, map.backward_memo(m, &g)?));
+            return Ok(with_only_element(dy, change(m, g)?));
         }
         let mut dx = dy.clone();
         // A plain loop over two slices: for a map whose backward pass
@@ -99,12 +101,12 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
         match dx.as_slice_mut() {
             Some(ds) => {
                 for (d, m) in ds.iter_mut().zip(memos) {
-                    *d = map.backward_memo(m, d)?;
+                    *d = change(m, *d)?;
                 }
             }
             None => {
                 for (d, m) in dx.iter_mut().zip(memos) {
-                    *d = map.backward_memo(m, d)?;
+                    *d = change(m, *d)?;
                 }
             }
         }
@@ -192,10 +194,15 @@ pub(crate) trait ElementPasses<T>: Send + Sync {
 /// that reads them: the pass over flat slices is one dynamic call, with no
 /// lookup of what the memos are.
 pub(crate) trait StageBuffers<T> {
-    /// `y[i] = f(x[i])`, keeping each element's memo.
-    fn forward(&mut self, x: &[T], y: &mut [T]) -> Boxed<()>;
-    /// `dx[i] = R[f](x[i], dy[i])` from the memos of the last forward pass.
-    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()>;
+    /// `y[i] = f(x[i])`, keeping each element's memo, and writing its slope
+    /// `R[f](x[i], 1)` into `slopes[i]` (NaN where that is not a finite
+    /// number). The reverse derivative of a scalar map is linear in the
+    /// change, so `R[f](x[i], d) = slopes[i] * d`: the run's backward pass
+    /// is then products, with no dynamic call.
+    fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()>;
+    /// `dx[i] = R[f](x[i], dy[i])` from the memos and `slopes` of the last
+    /// forward pass (see [`change_at`]).
+    fn backward(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Boxed<()>;
 }
 
 impl<T, F> ElementPasses<T> for EachElement<F>
@@ -231,11 +238,11 @@ where
     F: Map<T, Output = T> + Send + Sync,
     F::Memo: Send + Sync,
 {
-    fn forward(&mut self, x: &[T], y: &mut [T]) -> Boxed<()> {
-        self.forward_unboxed(x, y).map_err(Box::new)
+    fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()> {
+        self.forward_unboxed(x, y, slopes).map_err(Box::new)
     }
-    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()> {
-        self.backward_unboxed(dy, dx).map_err(Box::new)
+    fn backward(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Boxed<()> {
+        self.backward_unboxed(dy, dx, slopes).map_err(Box::new)
     }
 }
 
@@ -246,58 +253,93 @@ where
     F::Memo: Send + Sync,
 {
     #[inline]
-    fn forward_unboxed(&mut self, x: &[T], y: &mut [T]) -> Result<()> {
+    fn forward_unboxed(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Result<()> {
         let map = &*self.map;
         // One element (a chain of scalar maps): no loop to set up.
-        if let ([v], [out], [memo]) = (x, &mut *y, self.memos.as_mut_slice()) {
+        if let ([v], [out], [memo], [slope]) = (x, &mut *y, self.memos.as_mut_slice(), &mut *slopes)
+        {
             (*out, *memo) = map.forward_memo(v)?;
+            *slope = slope_of(map, memo);
             return Ok(());
         }
         if self.memos.len() != x.len() {
             // First pass, or another width: filled element by element.
             self.memos.clear();
-            for (out, v) in y.iter_mut().zip(x) {
+            for ((out, slope), v) in y.iter_mut().zip(slopes).zip(x) {
                 let (value, memo) = map.forward_memo(v)?;
-                *out = value;
+                (*out, *slope) = (value, slope_of(map, &memo));
                 self.memos.push(memo);
             }
             return Ok(());
         }
-        split_elements(
-            x,
-            y,
-            self.memos.as_mut_slice(),
-            &|x, y, memos: &mut [F::Memo]| {
-                for ((out, memo), v) in y.iter_mut().zip(memos).zip(x) {
-                    (*out, *memo) = map.forward_memo(v)?;
-                }
-                Ok(())
-            },
-        )
+        split_elements(x, y, (self.memos.as_mut_slice(), slopes), &|x,
+                                                                    y,
+                                                                    (
+            memos,
+            slopes,
+        ): (
+            &mut [F::Memo],
+            &mut [T],
+        )| {
+            for (((out, memo), slope), v) in y.iter_mut().zip(memos).zip(slopes).zip(x) {
+                (*out, *memo) = map.forward_memo(v)?;
+                *slope = slope_of(map, memo);
+            }
+            Ok(())
+        })
     }
     #[inline]
-    fn backward_unboxed(&self, dy: &[T], dx: &mut [T]) -> Result<()> {
-        if self.memos.len() != dy.len() {
+    fn backward_unboxed(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Result<()> {
+        if self.memos.len() != dy.len() || slopes.len() != dy.len() {
             return Err(Error::WorkspaceNotFilled {
                 operation: "backward pass of a per-element stage of a run-time chain",
             });
         }
         let map = &*self.map;
-        if let ([g], [d], [memo]) = (dy, &mut *dx, self.memos.as_slice()) {
-            *d = map.backward_memo(memo, g)?;
+        if let ([g], [d], [memo], [slope]) = (dy, &mut *dx, self.memos.as_slice(), slopes) {
+            *d = change_at(map, memo, *slope, *g)?;
             return Ok(());
         }
-        split_elements(
-            dy,
-            dx,
-            self.memos.as_slice(),
-            &|dy, dx, memos: &[F::Memo]| {
-                for ((d, memo), g) in dx.iter_mut().zip(memos).zip(dy) {
-                    *d = map.backward_memo(memo, g)?;
-                }
-                Ok(())
-            },
-        )
+        split_elements(dy, dx, (self.memos.as_slice(), slopes), &|dy,
+                                                                  dx,
+                                                                  (
+            memos,
+            slopes,
+        ): (
+            &[F::Memo],
+            &[T],
+        )| {
+            for (((d, memo), slope), g) in dx.iter_mut().zip(memos).zip(slopes).zip(dy) {
+                *d = change_at(map, memo, *slope, *g)?;
+            }
+            Ok(())
+        })
+    }
+}
+
+/// `R[f](x, 1)` from the memo of `f` at `x`, or NaN when that is an error
+/// or not finite: a slope that overflows while its products with changes
+/// need not (a power of a number near 0), or none at all. The backward
+/// pass then asks the map itself.
+#[inline]
+fn slope_of<T: Real, F: Map<T, Output = T>>(map: &F, memo: &F::Memo) -> T {
+    match map.backward_memo(memo, &T::one()) {
+        Ok(slope) if slope.is_finite() => slope,
+        _ => T::nan(),
+    }
+}
+
+/// `R[f](x, d)` as every pass of a per-element stage computes it: `slope *
+/// d` when `slope` ([`slope_of`]) is a number, else the map's own backward
+/// pass. For the catalogue's scalar maps, whose backward pass is that
+/// product, this is what the map gives, bit for bit; for a composite the
+/// product may differ in the last bit (it is associated differently).
+#[inline]
+fn change_at<T: Real, F: Map<T, Output = T>>(map: &F, memo: &F::Memo, slope: T, d: T) -> Result<T> {
+    if slope.is_nan() {
+        map.backward_memo(memo, &d)
+    } else {
+        Ok(slope * d)
     }
 }
 
@@ -362,6 +404,19 @@ impl<M: Sync> SplitAt for &[M] {
     }
 }
 
+impl SplitAt for () {
+    fn split(self, _: usize) -> (Self, Self) {
+        ((), ())
+    }
+}
+
+impl<A: SplitAt, B: SplitAt> SplitAt for (A, B) {
+    fn split(self, mid: usize) -> (Self, Self) {
+        let ((a, b), (c, d)) = (self.0.split(mid), self.1.split(mid));
+        ((a, c), (b, d))
+    }
+}
+
 /// A stage's buffers, tagged with the identity of the stage that made them.
 type Tagged<T> = (usize, Box<dyn StageBuffers<T>>);
 
@@ -374,12 +429,18 @@ pub(crate) struct RunWork<T> {
     scratch: Vec<T>,
     /// The outputs of every stage but the last, one after another.
     values: Vec<T>,
+    /// Every stage's slopes (see [`StageBuffers::forward`]), one stage
+    /// after another.
+    slopes: Vec<T>,
     /// Every stage's buffers, with the identity of the stage that made them.
     kept: Vec<Option<Tagged<T>>>,
     /// The last stage's output, read by the next stage or the caller.
     pub(crate) output: ArrayD<T>,
     /// The change being passed back, in two buffers used in turn.
     changes: [Vec<T>; 2],
+    /// Whether the last forward pass ran to the end (one that stopped at
+    /// an error leaves some stages' buffers from the pass before).
+    complete: bool,
 }
 
 impl<T: Real> Default for RunWork<T> {
@@ -387,9 +448,11 @@ impl<T: Real> Default for RunWork<T> {
         RunWork {
             scratch: Vec::new(),
             values: Vec::new(),
+            slopes: Vec::new(),
             kept: Vec::new(),
             output: ArrayD::zeros(IxDyn(&[0])),
             changes: [Vec::new(), Vec::new()],
+            complete: false,
         }
     }
 }
@@ -415,10 +478,14 @@ pub(crate) fn run_forward<T: Real>(
     let RunWork {
         scratch,
         values,
+        slopes,
         kept,
         output,
+        complete,
         ..
     } = work;
+    // Until every stage has run, the buffers mix two passes.
+    *complete = false;
     let x = logical_slice(input, scratch);
     let len = x.len();
     let count = stages.len();
@@ -426,6 +493,9 @@ pub(crate) fn run_forward<T: Real>(
     let between = len * count.saturating_sub(1);
     if values.len() != between {
         values.resize(between, T::zero());
+    }
+    if slopes.len() != len * count {
+        slopes.resize(len * count, T::zero());
     }
     if kept.len() != count {
         kept.resize_with(count, || None);
@@ -438,6 +508,7 @@ pub(crate) fn run_forward<T: Real>(
     let y = output.as_slice_mut().expect("made in standard layout here");
     for (i, (stage, kept)) in stages.iter().zip(kept.iter_mut()).enumerate() {
         // Stage i reads stage i - 1's output and writes its own.
+        let slopes = &mut slopes[i * len..(i + 1) * len];
         let (before, after) = values.split_at_mut(i * len);
         let from = if i == 0 { x } else { &before[(i - 1) * len..] };
         let into = if i + 1 == count {
@@ -451,9 +522,10 @@ pub(crate) fn run_forward<T: Real>(
             *kept = Some((stage.identity, stage.passes.buffers()));
         }
         if let Some((_, buffers)) = kept {
-            buffers.forward(from, into).map_err(|e| *e)?;
+            buffers.forward(from, into, slopes).map_err(|e| *e)?;
         }
     }
+    *complete = true;
     Ok(())
 }
 
@@ -482,25 +554,56 @@ pub(crate) fn run_backward<T: Real>(
 ) -> Result<()> {
     let RunWork {
         scratch,
+        slopes,
         kept,
         output,
         changes: [first, second],
+        complete,
         ..
     } = work;
     check_change(output.shape(), dy)?;
-    if kept.len() != stages.len() {
+    let filled = *complete
+        && kept.len() == stages.len()
+        && stages
+            .iter()
+            .zip(kept.iter())
+            .all(|(stage, kept)| matches!(kept, Some((id, _)) if *id == stage.identity));
+    if !filled {
         return Err(Error::WorkspaceNotFilled {
-            operation: "backward pass of a run of per-element stages (the chain changed since the forward pass)",
+            operation: "backward pass of a run of per-element stages (the workspace was filled by another chain, or the chain changed since)",
         });
     }
     let dy = logical_slice(dy, scratch);
+    let dx = standard_slice_mut(dx, output.shape());
+    // No early exit, so that the check is vectorised.
+    if !slopes.iter().fold(false, |nan, s| nan | s.is_nan()) {
+        // Every slope is a finite number: the change of the input is the
+        // change of the output times each stage's slope, last stage first,
+        // as each stage's own backward pass would multiply.
+        let len = dy.len();
+        if let ([g], [d]) = (dy, &mut *dx) {
+            // One element: the product in a register, not through memory.
+            *d = slopes.iter().rev().fold(*g, |d, s| *s * d);
+            return Ok(());
+        }
+        dx.copy_from_slice(dy);
+        for i in (0..stages.len()).rev() {
+            let stage_slopes = &slopes[i * len..(i + 1) * len];
+            split_elements(stage_slopes, dx, (), &|slopes, dx, ()| {
+                for (d, s) in dx.iter_mut().zip(slopes) {
+                    *d = *s * *d;
+                }
+                Ok(())
+            })?;
+        }
+        return Ok(());
+    }
     if first.len() != dy.len() || second.len() != dy.len() {
         first.resize(dy.len(), T::zero());
         second.resize(dy.len(), T::zero());
     }
-    let dx = standard_slice_mut(dx, output.shape());
     let count = stages.len();
-    for (i, (stage, kept)) in stages.iter().zip(kept.iter()).enumerate().rev() {
+    for (i, kept) in kept.iter().enumerate().rev() {
         // Stage i reads the change of its output (the run's, or what
         // stage i + 1 wrote) and writes the change of its input: the two
         // buffers take turns.
@@ -511,15 +614,10 @@ pub(crate) fn run_backward<T: Real>(
         };
         let from = if i + 1 == count { dy } else { read };
         let into = if i == 0 { &mut *dx } else { write };
-        match kept {
-            Some((id, buffers)) if *id == stage.identity => {
-                buffers.backward(from, into).map_err(|e| *e)?;
-            }
-            _ => {
-                return Err(Error::WorkspaceNotFilled {
-                    operation: "backward pass of a per-element stage of a run-time chain (the workspace was filled by another chain)",
-                });
-            }
+        // Checked above: every stage's own buffers.
+        if let Some((_, buffers)) = kept {
+            let slopes = &slopes[i * dy.len()..(i + 1) * dy.len()];
+            buffers.backward(from, into, slopes).map_err(|e| *e)?;
         }
     }
     Ok(())
