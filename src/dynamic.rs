@@ -725,15 +725,27 @@ impl<T: Real> Chain<T> {
     /// static composite of them, or your own).
     ///
     /// Consecutive per-element stages are the fast path of the reusing
-    /// passes ([`Map::forward_reusing`], [`Map::backward_reusing`]): they
-    /// run over flat slices, with one dynamic call per stage, where a stage
-    /// pushed by [`push_elementwise`](Self::push_elementwise) pays for
-    /// workspace lookups and dynamic-dimension bookkeeping that for small
-    /// arrays cost more than the map. The other passes apply the map element
-    /// by element. Every pass gives what the scalar map gives at each
-    /// element, bit for bit. Arrays of 131,072 elements or more are split
-    /// across the cores (with the `threads` feature), which is why the
-    /// map's memo must be `Send` and `Sync`.
+    /// passes ([`Map::forward_reusing`], [`Map::backward_reusing`]): the
+    /// forward pass runs over flat slices, with one dynamic call per stage,
+    /// where a stage pushed by [`push_elementwise`](Self::push_elementwise)
+    /// pays for workspace lookups and dynamic-dimension bookkeeping that for
+    /// small arrays cost more than the map. The other passes apply the map
+    /// element by element.
+    ///
+    /// The reverse derivative of a scalar map is linear in the change:
+    /// `R[f](x, d) = R[f](x, 1) d`. So every backward pass of a per-element
+    /// stage multiplies the change by the slope `R[f](x, 1)`, which the
+    /// forward pass keeps, and a run of such stages goes backward with no
+    /// dynamic call at all. For the catalogue's scalar maps, whose backward
+    /// pass is that product, this is what the map gives, bit for bit; for a
+    /// composite such as `Sin.then(Tanh)` it can differ in the last bit (the
+    /// products are associated differently). Where the slope is not a
+    /// finite number (a power near 0, whose slope overflows while its
+    /// product with a small change need not), the map's own backward pass
+    /// gives the change. All passes (reusing or not) compute the same
+    /// numbers. Arrays of 131,072 elements or more are split across the
+    /// cores (with the `threads` feature), which is why the map's memo must
+    /// be `Send` and `Sync`.
     ///
     /// ```
     /// use revdiff::{Chain, Compose, Map, Sin, Tanh, Workspace};
