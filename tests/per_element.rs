@@ -86,9 +86,10 @@ proptest! {
     #[test]
     fn per_element_stages_agree_with_array_stages_through_every_pass(
         kinds in proptest::collection::vec(kind(), 1..9),
-        width in 1usize..5,
-        xs in proptest::collection::vec(-2.0..2.0_f64, 4),
-        dys in proptest::collection::vec(-3.0..3.0_f64, 4),
+        // Short arrays, whose forward pass keeps slopes, and longer ones.
+        width in prop_oneof![1usize..5, 17usize..20],
+        xs in proptest::collection::vec(-2.0..2.0_f64, 20),
+        dys in proptest::collection::vec(-3.0..3.0_f64, 20),
     ) {
         let chain = chain_of(&kinds, width, true);
         let arrays = chain_of(&kinds, width, false);
@@ -166,27 +167,26 @@ fn slopes_that_overflow_leave_the_change_to_the_maps_own_backward_pass() {
     // with a small change does not: there the map's own backward pass
     // (which divides step by step) must give the change, in both kinds of
     // passes, and the other elements keep the products.
+    // Over a short array (whose forward pass keeps slopes) and a long one
+    // (whose backward pass computes them).
     let inverse_square = Powi { coef: 1.0, n: -2 };
-    let mut chain = Chain::<f64>::new(&[3]);
-    chain.push_per_element("sin", Sin).unwrap();
-    chain
-        .push_per_element("inverse square", inverse_square)
-        .unwrap();
-    let x = ArrayD::from_shape_vec(IxDyn(&[3]), vec![1e-120, 0.5, -2.0]).unwrap();
-    let dy = ArrayD::from_shape_vec(IxDyn(&[3]), vec![1e-200, 1.0, -3.0]).unwrap();
-    let expected = ndarray::Zip::from(&x)
-        .and(&dy)
-        .map_collect(|&v: &f64, &d: &f64| {
+    for n in [3, 40] {
+        let mut chain = Chain::<f64>::new(&[n]);
+        chain.push_per_element("sin", Sin).unwrap();
+        chain.push_per_element("inverse square", inverse_square).unwrap();
+        let x = ArrayD::from_shape_fn(IxDyn(&[n]), |i| [1e-120, 0.5, -2.0][i[0] % 3]);
+        let dy = ArrayD::from_shape_fn(IxDyn(&[n]), |i| [1e-200, 1.0, -3.0][i[0] % 3]);
+        let expected = ndarray::Zip::from(&x).and(&dy).map_collect(|&v: &f64, &d: &f64| {
             let (s, _) = Sin.forward_memo(&v).unwrap();
-            Sin.backward(&v, &inverse_square.backward(&s, &d).unwrap())
-                .unwrap()
+            Sin.backward(&v, &inverse_square.backward(&s, &d).unwrap()).unwrap()
         });
-    // -2 x^-3 dy at x = 1e-120, dy = 1e-200 (common practice, no source).
-    assert!((expected[0] / -2e160 - 1.0).abs() < 1e-12, "{expected}");
-    let mut work = Workspace::new();
-    let (_, dx) = reusing(&chain, &x, &dy, &mut work);
-    assert_eq!(dx, expected, "reusing passes");
-    assert_eq!(chain.backward(&x, &dy).unwrap(), expected, "memo passes");
+        // -2 x^-3 dy at x = 1e-120, dy = 1e-200 (common practice, no source).
+        assert!((expected[0] / -2e160 - 1.0).abs() < 1e-12, "{expected}");
+        let mut work = Workspace::new();
+        let (_, dx) = reusing(&chain, &x, &dy, &mut work);
+        assert_eq!(dx, expected, "reusing passes, {n} elements");
+        assert_eq!(chain.backward(&x, &dy).unwrap(), expected, "memo passes, {n} elements");
+    }
 }
 
 #[test]

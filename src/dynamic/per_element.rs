@@ -94,26 +94,13 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
         // As many memos as elements of `dy`: its shape was checked.
         let (map, memos) = (&*self.0, memo.memos.as_slice());
         // The same products as the reusing passes (see `change_at`).
-        let change = |m, d| change_at(map, m, slope_of(map, m), d);
-        if let ([m], Some(&g)) = (memos, dy.first()) {
-            return Ok(with_only_element(dy, change(m, g)?));
-        }
-        let mut dx = dy.clone();
-        // A plain loop over two slices: for a map whose backward pass
-        // cannot fail (a product, once inlined), it is vectorised.
-        match dx.as_slice_mut() {
-            Some(ds) => {
-                for (d, m) in ds.iter_mut().zip(memos) {
-                    *d = change(m, *d)?;
-                }
-            }
-            None => {
-                for (d, m) in dx.iter_mut().zip(memos) {
-                    *d = change(m, *d)?;
-                }
-            }
-        }
-        Ok(dx)
+        let mut memos = memos.iter();
+        each_element(dy, |d| match memos.next() {
+            Some(m) => change_at(map, m, slope_of(map, m), d),
+            None => Err(Error::ForeignMemo {
+                operation: "backward pass of a per-element stage of a run-time chain",
+            }),
+        })
     }
 }
 
@@ -197,15 +184,15 @@ pub(crate) trait ElementPasses<T>: Send + Sync {
 /// that reads them: the pass over flat slices is one dynamic call, with no
 /// lookup of what the memos are.
 pub(crate) trait StageBuffers<T> {
-    /// `y[i] = f(x[i])`, keeping each element's memo, and writing its slope
-    /// `R[f](x[i], 1)` into `slopes[i]` (NaN where that is not a finite
-    /// number). The reverse derivative of a scalar map is linear in the
+    /// `y[i] = f(x[i])`, keeping each element's memo, and, unless `slopes`
+    /// is empty, writing its slope `R[f](x[i], 1)` ([`slope_of`]) into
+    /// `slopes[i]`. The reverse derivative of a scalar map is linear in the
     /// change, so `R[f](x[i], d) = slopes[i] * d`: the run's backward pass
-    /// is then products, with no dynamic call.
+    /// is then products, with no dynamic call ([`through_slopes`]).
     fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()>;
-    /// `dx[i] = R[f](x[i], dy[i])` from the memos and `slopes` of the last
-    /// forward pass (see [`change_at`]).
-    fn backward(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Boxed<()>;
+    /// `dx[i] = R[f](x[i], dy[i])` from the memos of the last forward pass,
+    /// as [`change_at`] computes it.
+    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()>;
 }
 
 impl<T, F> ElementPasses<T> for EachElement<F>
@@ -244,8 +231,8 @@ where
     fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()> {
         self.forward_unboxed(x, y, slopes).map_err(Box::new)
     }
-    fn backward(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Boxed<()> {
-        self.backward_unboxed(dy, dx, slopes).map_err(Box::new)
+    fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()> {
+        self.backward_unboxed(dy, dx).map_err(Box::new)
     }
 }
 
@@ -268,78 +255,84 @@ where
         if self.memos.len() != x.len() {
             // First pass, or another width: filled element by element.
             self.memos.clear();
-            for ((out, slope), v) in y.iter_mut().zip(slopes).zip(x) {
+            for (out, v) in y.iter_mut().zip(x) {
                 let (value, memo) = map.forward_memo(v)?;
-                (*out, *slope) = (value, slope_of(map, &memo));
+                *out = value;
                 self.memos.push(memo);
             }
-            return Ok(());
-        }
-        split_elements(x, y, (self.memos.as_mut_slice(), slopes), &|x,
-                                                                    y,
-                                                                    (
-            memos,
-            slopes,
-        ): (
-            &mut [F::Memo],
-            &mut [T],
-        )| {
-            for (((out, memo), slope), v) in y.iter_mut().zip(memos).zip(slopes).zip(x) {
+        } else if slopes.is_empty() {
+            split_elements(
+                x,
+                y,
+                self.memos.as_mut_slice(),
+                &|x, y, memos: &mut [F::Memo]| {
+                    for ((out, memo), v) in y.iter_mut().zip(memos).zip(x) {
+                        (*out, *memo) = map.forward_memo(v)?;
+                    }
+                    Ok(())
+                },
+            )?;
+        } else {
+            // A short array (see `SLOPES_UP_TO`): not split across cores.
+            for (((out, memo), slope), v) in
+                y.iter_mut().zip(&mut self.memos).zip(&mut *slopes).zip(x)
+            {
                 (*out, *memo) = map.forward_memo(v)?;
                 *slope = slope_of(map, memo);
             }
-            Ok(())
-        })
+            return Ok(());
+        }
+        for (slope, memo) in slopes.iter_mut().zip(&self.memos) {
+            *slope = slope_of(map, memo);
+        }
+        Ok(())
     }
     #[inline]
-    fn backward_unboxed(&self, dy: &[T], dx: &mut [T], slopes: &[T]) -> Result<()> {
-        if self.memos.len() != dy.len() || slopes.len() != dy.len() {
+    fn backward_unboxed(&self, dy: &[T], dx: &mut [T]) -> Result<()> {
+        if self.memos.len() != dy.len() {
             return Err(Error::WorkspaceNotFilled {
                 operation: "backward pass of a per-element stage of a run-time chain",
             });
         }
         let map = &*self.map;
-        if let ([g], [d], [memo], [slope]) = (dy, &mut *dx, self.memos.as_slice(), slopes) {
-            *d = change_at(map, memo, *slope, *g)?;
+        // The slope of each element, then its product with the change, as
+        // the other passes compute it (see `change_at`).
+        let change = |memo, g| change_at(map, memo, slope_of(map, memo), g);
+        if let ([g], [d], [memo]) = (dy, &mut *dx, self.memos.as_slice()) {
+            *d = change(memo, *g)?;
             return Ok(());
         }
-        split_elements(dy, dx, (self.memos.as_slice(), slopes), &|dy,
-                                                                  dx,
-                                                                  (
-            memos,
-            slopes,
-        ): (
-            &[F::Memo],
-            &[T],
-        )| {
-            for (((d, memo), slope), g) in dx.iter_mut().zip(memos).zip(slopes).zip(dy) {
-                *d = change_at(map, memo, *slope, *g)?;
-            }
-            Ok(())
-        })
+        split_elements(
+            dy,
+            dx,
+            self.memos.as_slice(),
+            &|dy, dx, memos: &[F::Memo]| {
+                for ((d, memo), g) in dx.iter_mut().zip(memos).zip(dy) {
+                    *d = change(memo, *g)?;
+                }
+                Ok(())
+            },
+        )
     }
 }
 
-/// `R[f](x, 1)` from the memo of `f` at `x`, or NaN when that is an error
-/// or not finite: a slope that overflows while its products with changes
-/// need not (a power of a number near 0), or none at all. The backward
-/// pass then asks the map itself.
+/// `R[f](x, 1)` from the memo of `f` at `x`, or NaN when that is an
+/// error. Where it is not a finite number (a slope that overflows while
+/// its products with changes need not, as a power near 0), the backward
+/// passes ask the map itself ([`change_at`]).
 #[inline]
 fn slope_of<T: Real, F: Map<T, Output = T>>(map: &F, memo: &F::Memo) -> T {
-    match map.backward_memo(memo, &T::one()) {
-        Ok(slope) if slope.is_finite() => slope,
-        _ => T::nan(),
-    }
+    map.backward_memo(memo, &T::one()).unwrap_or(T::nan())
 }
 
 /// `R[f](x, d)` as every pass of a per-element stage computes it: `slope *
-/// d` when `slope` ([`slope_of`]) is a number, else the map's own backward
-/// pass. For the catalogue's scalar maps, whose backward pass is that
+/// d` when `slope` ([`slope_of`]) is a finite number, else the map's own
+/// backward pass. For the catalogue's scalar maps, whose backward pass is that
 /// product, this is what the map gives, bit for bit; for a composite the
 /// product may differ in the last bit (it is associated differently).
 #[inline]
 fn change_at<T: Real, F: Map<T, Output = T>>(map: &F, memo: &F::Memo, slope: T, d: T) -> Result<T> {
-    if slope.is_nan() {
+    if !slope.is_finite() {
         map.backward_memo(memo, &d)
     } else {
         Ok(slope * d)
@@ -404,19 +397,6 @@ impl<M: Send> SplitAt for &mut [M] {
 impl<M: Sync> SplitAt for &[M] {
     fn split(self, mid: usize) -> (Self, Self) {
         self.split_at(mid)
-    }
-}
-
-impl SplitAt for () {
-    fn split(self, _: usize) -> (Self, Self) {
-        ((), ())
-    }
-}
-
-impl<A: SplitAt, B: SplitAt> SplitAt for (A, B) {
-    fn split(self, mid: usize) -> (Self, Self) {
-        let ((a, b), (c, d)) = (self.0.split(mid), self.1.split(mid));
-        ((a, c), (b, d))
     }
 }
 
@@ -497,8 +477,9 @@ pub(crate) fn run_forward<T: Real>(
     if values.len() != between {
         values.resize(between, T::zero());
     }
-    if slopes.len() != len * count {
-        slopes.resize(len * count, T::zero());
+    let kept_slopes = if len <= SLOPES_UP_TO { len * count } else { 0 };
+    if slopes.len() != kept_slopes {
+        slopes.resize(kept_slopes, T::zero());
     }
     if kept.len() != count {
         kept.resize_with(count, || None);
@@ -511,7 +492,7 @@ pub(crate) fn run_forward<T: Real>(
     let y = output.as_slice_mut().expect("made in standard layout here");
     for (i, (stage, kept)) in stages.iter().zip(kept.iter_mut()).enumerate() {
         // Stage i reads stage i - 1's output and writes its own.
-        let slopes = &mut slopes[i * len..(i + 1) * len];
+        let slopes = slopes.get_mut(i * len..(i + 1) * len).unwrap_or_default();
         let (before, after) = values.split_at_mut(i * len);
         let from = if i == 0 { x } else { &before[(i - 1) * len..] };
         let into = if i + 1 == count {
@@ -530,6 +511,46 @@ pub(crate) fn run_forward<T: Real>(
     }
     *complete = true;
     Ok(())
+}
+
+/// The longest arrays for which the forward pass of a run keeps slopes.
+/// For short arrays the run's backward pass is then products, where a
+/// dynamic call per stage would cost as much as the stage's work. Over
+/// longer ones a call is small against a stage's work, and storing the
+/// slopes cost more than it saved (4 to 5 % of a pass pair of 8 sine
+/// stages over 256 elements): there each stage's backward pass computes
+/// the same slopes and products itself.
+const SLOPES_UP_TO: usize = 16;
+
+/// The change `dx` of a run's input from the change `dy` of its output
+/// (at most [`SLOPES_UP_TO`] elements): `dy` times every stage's slopes
+/// (stored one stage after another), last stage first, as each stage's
+/// own backward pass would multiply. False when a slope is not a finite
+/// number: then `dx` is to be overwritten through the stages' own backward
+/// passes.
+fn through_slopes<T: Real>(slopes: &[T], dy: &[T], dx: &mut [T]) -> bool {
+    let len = dy.len();
+    if let ([g], [d]) = (dy, &mut *dx) {
+        // One element: the product in a register, not through memory.
+        let (product, finite) = slopes.iter().rev().fold((*g, true), |(d, finite), s| {
+            (*s * d, finite & s.is_finite())
+        });
+        *d = product;
+        return finite;
+    }
+    if len == 0 {
+        return true;
+    }
+    dx.copy_from_slice(dy);
+    // The check rides along with the products: one pass over the slopes.
+    let mut finite = true;
+    for stage_slopes in slopes.chunks_exact(len).rev() {
+        for (d, s) in dx.iter_mut().zip(stage_slopes) {
+            finite &= s.is_finite();
+            *d = *s * *d;
+        }
+    }
+    finite
 }
 
 /// `a`'s elements in logical order: its own slice when it is in standard
@@ -578,27 +599,7 @@ pub(crate) fn run_backward<T: Real>(
     }
     let dy = logical_slice(dy, scratch);
     let dx = standard_slice_mut(dx, output.shape());
-    // No early exit, so that the check is vectorised.
-    if !slopes.iter().fold(false, |nan, s| nan | s.is_nan()) {
-        // Every slope is a finite number: the change of the input is the
-        // change of the output times each stage's slope, last stage first,
-        // as each stage's own backward pass would multiply.
-        let len = dy.len();
-        if let ([g], [d]) = (dy, &mut *dx) {
-            // One element: the product in a register, not through memory.
-            *d = slopes.iter().rev().fold(*g, |d, s| *s * d);
-            return Ok(());
-        }
-        dx.copy_from_slice(dy);
-        for i in (0..stages.len()).rev() {
-            let stage_slopes = &slopes[i * len..(i + 1) * len];
-            split_elements(stage_slopes, dx, (), &|slopes, dx, ()| {
-                for (d, s) in dx.iter_mut().zip(slopes) {
-                    *d = *s * *d;
-                }
-                Ok(())
-            })?;
-        }
+    if dy.len() <= SLOPES_UP_TO && through_slopes(slopes, dy, dx) {
         return Ok(());
     }
     if first.len() != dy.len() || second.len() != dy.len() {
@@ -619,8 +620,7 @@ pub(crate) fn run_backward<T: Real>(
         let into = if i == 0 { &mut *dx } else { write };
         // Checked above: every stage's own buffers.
         if let Some((_, buffers)) = kept {
-            let slopes = &slopes[i * dy.len()..(i + 1) * dy.len()];
-            buffers.backward(from, into, slopes).map_err(|e| *e)?;
+            buffers.backward(from, into).map_err(|e| *e)?;
         }
     }
     Ok(())
