@@ -734,9 +734,10 @@ impl<T: Real> Chain<T> {
     ///
     /// The reverse derivative of a scalar map is linear in the change:
     /// `R[f](x, d) = R[f](x, 1) d`. So every backward pass of a per-element
-    /// stage multiplies the change by the slope `R[f](x, 1)`, which the
-    /// forward pass keeps, and a run of such stages goes backward with no
-    /// dynamic call at all. For the catalogue's scalar maps, whose backward
+    /// stage multiplies the change by the slope `R[f](x, 1)`. On arrays of
+    /// at most 16 elements the forward pass keeps the slopes, and a run of
+    /// such stages goes backward with no dynamic call at all; on longer
+    /// ones each stage's backward pass computes them. For the catalogue's scalar maps, whose backward
     /// pass is that product, this is what the map gives, bit for bit; for a
     /// composite such as `Sin.then(Tanh)` it can differ in the last bit (the
     /// products are associated differently). Where the slope is not a

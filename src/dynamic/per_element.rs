@@ -8,10 +8,11 @@
 //! The chain's reusing passes run a run of consecutive per-element stages
 //! over flat slices instead: one dynamic call per stage in the forward
 //! pass, the values between stages in one buffer, and each stage's memos
-//! in a vector of the scalar map's own memo type. The forward pass also
-//! keeps each element's slope `R[f](x, 1)`; the reverse derivative of a
-//! scalar map being linear in the change, the backward pass of the whole
-//! run is then products of changes and slopes, with no dynamic call.
+//! in a vector of the scalar map's own memo type. On short arrays the
+//! forward pass also keeps each element's slope `R[f](x, 1)`; the reverse
+//! derivative of a scalar map being linear in the change, the backward
+//! pass of the whole run is then products of changes and slopes, with no
+//! dynamic call.
 
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
