@@ -173,19 +173,28 @@ fn slopes_that_overflow_leave_the_change_to_the_maps_own_backward_pass() {
     for n in [3, 40] {
         let mut chain = Chain::<f64>::new(&[n]);
         chain.push_per_element("sin", Sin).unwrap();
-        chain.push_per_element("inverse square", inverse_square).unwrap();
+        chain
+            .push_per_element("inverse square", inverse_square)
+            .unwrap();
         let x = ArrayD::from_shape_fn(IxDyn(&[n]), |i| [1e-120, 0.5, -2.0][i[0] % 3]);
         let dy = ArrayD::from_shape_fn(IxDyn(&[n]), |i| [1e-200, 1.0, -3.0][i[0] % 3]);
-        let expected = ndarray::Zip::from(&x).and(&dy).map_collect(|&v: &f64, &d: &f64| {
-            let (s, _) = Sin.forward_memo(&v).unwrap();
-            Sin.backward(&v, &inverse_square.backward(&s, &d).unwrap()).unwrap()
-        });
+        let expected = ndarray::Zip::from(&x)
+            .and(&dy)
+            .map_collect(|&v: &f64, &d: &f64| {
+                let (s, _) = Sin.forward_memo(&v).unwrap();
+                Sin.backward(&v, &inverse_square.backward(&s, &d).unwrap())
+                    .unwrap()
+            });
         // -2 x^-3 dy at x = 1e-120, dy = 1e-200 (common practice, no source).
         assert!((expected[0] / -2e160 - 1.0).abs() < 1e-12, "{expected}");
         let mut work = Workspace::new();
         let (_, dx) = reusing(&chain, &x, &dy, &mut work);
         assert_eq!(dx, expected, "reusing passes, {n} elements");
-        assert_eq!(chain.backward(&x, &dy).unwrap(), expected, "memo passes, {n} elements");
+        assert_eq!(
+            chain.backward(&x, &dy).unwrap(),
+            expected,
+            "memo passes, {n} elements"
+        );
     }
 }
 
