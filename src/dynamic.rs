@@ -26,9 +26,11 @@ use std::fmt;
 use std::sync::Arc;
 
 mod per_element;
+mod spare;
 use per_element::{
     EachElement, ElementPasses, PerElementStage, RunWork, run_backward, run_forward,
 };
+pub use spare::free_spare_workspaces;
 
 trait ErasedMap<A, B> {
     fn erased_forward(&self, x: &A) -> Result<B>;
@@ -341,6 +343,9 @@ pub struct Chain<T> {
     segments: Vec<Segment<T>>,
     /// How many of the segments are runs of per-element stages.
     run_count: usize,
+    /// Elements of the input and of every stage's output: what the values
+    /// between stages hold, for deciding whether to keep their buffers.
+    value_elements: usize,
     retention: Retention,
 }
 
@@ -391,6 +396,7 @@ impl<T: Real> Chain<T> {
             stages: Vec::new(),
             segments: Vec::new(),
             run_count: 0,
+            value_elements: input_shape.iter().product(),
             retention: Retention::All,
         }
     }
@@ -523,13 +529,7 @@ impl<T: Real> Chain<T> {
         dy: &ArrayD<T>,
         cost: &mut PassCost,
     ) -> Result<ArrayD<T>> {
-        if dy.shape() != self.output_shape.as_slice() {
-            return Err(Error::shape(
-                "output change of a chain",
-                shape_tuple(&self.output_shape),
-                shape_tuple(dy.shape()),
-            ));
-        }
+        self.check_output_change(dy)?;
         let n = self.stages.len();
         let mut held = Held::default();
         let d = match (memo, self.retention) {
@@ -707,6 +707,7 @@ impl<T: Real> Chain<T> {
             per_element: false,
         });
         self.segments.push(Segment::One(self.stages.len() - 1));
+        self.value_elements += output.iter().product::<usize>();
         self.output_shape = output;
         Ok(())
     }
@@ -784,6 +785,7 @@ impl<T: Real> Chain<T> {
             output: self.output_shape.clone(),
             per_element: true,
         });
+        self.value_elements += self.output_shape.iter().product::<usize>();
         match self.segments.last_mut() {
             Some(Segment::Run { stages, .. }) => stages.push(stage),
             _ => {
@@ -839,6 +841,17 @@ impl<T: Real> Chain<T> {
     /// The names of the stages, in order.
     pub fn stage_names(&self) -> Vec<&str> {
         self.stages.iter().map(|s| s.name.as_str()).collect()
+    }
+
+    fn check_output_change(&self, dy: &ArrayD<T>) -> Result<()> {
+        if crate::space::dims_equal(dy.shape(), &self.output_shape) {
+            return Ok(());
+        }
+        Err(Error::shape(
+            "output change of a chain",
+            shape_tuple(&self.output_shape),
+            shape_tuple(dy.shape()),
+        ))
     }
 
     fn check_input(&self, x: &ArrayD<T>) -> Result<()> {
@@ -917,6 +930,28 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     }
     fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
         self.backward_counted(memo, dy, &mut PassCost::default())
+    }
+    /// The reverse derivative. A chain that keeps every stage's memo
+    /// (`Retention::All`) and whose values between stages hold at most
+    /// 1 MiB runs its reusing passes in a workspace the thread keeps for
+    /// the next call ([`free_spare_workspaces`]): the same numbers as the
+    /// memo passes, without their allocation per stage.
+    fn backward(&self, x: &ArrayD<T>, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        // Bytes of values, changes and the per-element slopes.
+        let bytes = 3 * self.value_elements * std::mem::size_of::<T>();
+        if self.retention != Retention::All || self.stages.is_empty() || bytes > SPARE_BYTES {
+            let (_, memo) = self.forward_memo(x)?;
+            return self.backward_memo(&memo, dy);
+        }
+        self.check_output_change(dy)?;
+        spare::with_spare_workspace(self as *const Self as usize, |work| {
+            self.forward_reusing(x, work)?;
+            // A clone is cheaper to make than zeros (no strides to compute); every
+            // element is overwritten.
+            let mut dx = x.clone();
+            self.backward_reusing(x, work, dy, &mut dx)?;
+            Ok(dx)
+        })
     }
     // The reusing passes keep every stage's workspace, as `Retention::All`
     // keeps every memo; under another retention they are the memo passes,
@@ -1046,6 +1081,10 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
         Ok(())
     }
 }
+
+/// The largest chain, in bytes of values between stages, whose one-shot
+/// backward pass keeps its buffers for the next call.
+const SPARE_BYTES: usize = 1 << 20;
 
 /// What a [`Chain`]'s reusing passes keep: every stage's workspace, and a
 /// buffer for the change of every value between stages.

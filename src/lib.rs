@@ -73,7 +73,7 @@ pub use ndarray;
 pub use proptest;
 
 pub use combinators::*;
-pub use dynamic::{Boxed, BoxedMemo, Chain, ChainMemo, StageShape};
+pub use dynamic::{Boxed, BoxedMemo, Chain, ChainMemo, StageShape, free_spare_workspaces};
 pub use error::{Error, Result};
 pub use formula::{Formula, as_formula, input, input_at, parameter};
 pub use higher::{

@@ -92,8 +92,12 @@ fn not_filled(operation: &'static str) -> Error {
 
 impl Workspace {
     /// An empty workspace; the first forward pass fills it.
-    pub fn new() -> Self {
-        Self::default()
+    pub const fn new() -> Self {
+        Workspace {
+            output: None,
+            state: None,
+            scratch: None,
+        }
     }
 
     /// The output the last forward pass stored, if it is an `O`.

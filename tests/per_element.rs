@@ -78,6 +78,13 @@ fn reusing(
     (y, dx)
 }
 
+/// The input change through the memo passes, spelled out (`backward`
+/// itself may run the reusing passes in a kept workspace).
+fn memo_passes(chain: &Chain<f64>, x: &ArrayD<f64>, dy: &ArrayD<f64>) -> ArrayD<f64> {
+    let (_, memo) = chain.forward_memo(x).unwrap();
+    chain.backward_memo(&memo, dy).unwrap()
+}
+
 proptest! {
     #![proptest_config(ProptestConfig::with_cases(96))]
     /// Any mix of per-element, array and affine stages: the reusing passes,
@@ -102,13 +109,104 @@ proptest! {
 
         let expected_y = arrays.forward(&x).unwrap();
         let expected_dx = arrays.backward(&x, &dy).unwrap();
-        let memo_dx = chain.backward(&x, &dy).unwrap();
+        let memo_dx = memo_passes(&chain, &x, &dy);
         let tolerance = 1e-14 * largest(&expected_dx);
         prop_assert!(gap(&y, &expected_y) <= 1e-14 * largest(&expected_y), "outputs differ: {} against {}", y, expected_y);
         prop_assert_eq!(&chain.forward(&x).unwrap(), &y, "the plain forward pass differs");
         prop_assert!(gap(&dx, &expected_dx) <= tolerance, "reusing passes: {} against {}", dx, expected_dx);
         prop_assert!(gap(&memo_dx, &expected_dx) <= tolerance, "memo passes: {} against {}", memo_dx, expected_dx);
     }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(48))]
+    /// `backward` without a workspace of the caller's runs the reusing
+    /// passes in one the thread keeps: it must equal the memo passes bit for
+    /// bit whatever chains ran before it on this thread, including a chain
+    /// since dropped (whose address a new one may take) and a chain that
+    /// grew since its last call.
+    #[test]
+    fn one_shot_backward_passes_equal_the_memo_passes_whatever_ran_before(
+        first in proptest::collection::vec(kind(), 1..7),
+        second in proptest::collection::vec(kind(), 1..7),
+        widths in (prop_oneof![1usize..5, 17usize..20], prop_oneof![1usize..5, 17usize..20]),
+        xs in proptest::collection::vec(-2.0..2.0_f64, 20),
+    ) {
+        let at = |width: usize, scale: f64| {
+            ArrayD::from_shape_vec(IxDyn(&[width]), xs[..width].iter().map(|v| v * scale).collect()).unwrap()
+        };
+        let mut a = chain_of(&first, widths.0, true);
+        let (xa, dya) = (at(widths.0, 1.0), at(widths.0, -1.5));
+        let (xb, dyb) = (at(widths.1, 0.5), at(widths.1, 2.0));
+        for round in 0..3 {
+            // A new chain each round, likely at the address of the last.
+            let b = chain_of(&second, widths.1, round != 1);
+            prop_assert_eq!(a.backward(&xa, &dya).unwrap(), memo_passes(&a, &xa, &dya), "first chain, round {}", round);
+            prop_assert_eq!(b.backward(&xb, &dyb).unwrap(), memo_passes(&b, &xb, &dyb), "second chain, round {}", round);
+            // The second chain's stages, pushed onto the first when widths match.
+            if round == 0 && widths.0 == widths.1 {
+                for kind in &second {
+                    match kind {
+                        Kind::SinPerElement => a.push_per_element("sin", Sin),
+                        _ => a.push_elementwise("tanh", Tanh),
+                    }
+                    .unwrap();
+                }
+            }
+        }
+        // The same chain moved to another address.
+        let moved = Box::new(a);
+        prop_assert_eq!(moved.backward(&xa, &dya).unwrap(), memo_passes(&moved, &xa, &dya), "moved chain");
+    }
+}
+
+/// A stage that runs a whole chain of its own, through that chain's
+/// `backward`: a one-shot backward pass inside another.
+struct Inner(Chain<f64>);
+
+impl Compose for Inner {}
+
+impl Map<ArrayD<f64>> for Inner {
+    type Output = ArrayD<f64>;
+    type Memo = ArrayD<f64>;
+    fn forward_memo(&self, x: &ArrayD<f64>) -> Result<(ArrayD<f64>, ArrayD<f64>)> {
+        Ok((self.0.forward(x)?, x.clone()))
+    }
+    fn backward_memo(&self, x: &ArrayD<f64>, dy: &ArrayD<f64>) -> Result<ArrayD<f64>> {
+        self.0.backward(x, dy)
+    }
+}
+
+#[test]
+fn one_shot_backward_passes_nest_and_survive_failures() {
+    let mut inner = Chain::<f64>::new(&[2]);
+    inner.push_per_element("sin", Sin).unwrap();
+    inner.push_elementwise("tanh", Tanh).unwrap();
+    let mut outer = Chain::<f64>::new(&[2]);
+    outer.push_per_element("exp", Exp).unwrap();
+    outer.push_per_element("double", DoubleUpToTen).unwrap();
+    outer.push_elementwise("inner chain", Inner(inner)).unwrap();
+    let x = ndarray::arr1(&[0.3, -0.8]).into_dyn();
+    let dy = ndarray::arr1(&[1.0, -2.0]).into_dyn();
+    let expected = memo_passes(&outer, &x, &dy);
+    // The chain rule by hand at the first element: tanh(sin(2 exp x)).
+    let e2 = 2.0 * 0.3_f64.exp();
+    let by_hand = (1.0 - e2.sin().tanh().powi(2)) * e2.cos() * e2;
+    assert!(
+        (expected[0] - by_hand).abs() < 1e-14,
+        "{} against {by_hand}",
+        expected[0]
+    );
+    for _ in 0..3 {
+        assert_eq!(outer.backward(&x, &dy).unwrap(), expected);
+    }
+    // A forward pass that fails partway leaves the kept workspace half
+    // filled; the next call must not read the failed pass's values.
+    let far = ndarray::arr1(&[3.0, 0.0]).into_dyn();
+    assert!(outer.backward(&far, &dy).is_err());
+    assert_eq!(outer.backward(&x, &dy).unwrap(), expected);
+    free_spare_workspaces();
+    assert_eq!(outer.backward(&x, &dy).unwrap(), expected);
 }
 
 #[test]

@@ -1,5 +1,6 @@
 //! A run-time chain of per-element stages allocates nothing in its reusing
-//! passes once its workspace is filled. One test only: the counting
+//! passes once its workspace is filled, and its one-shot backward pass
+//! allocates only the array it returns. One test only: the counting
 //! allocator counts for the whole process.
 
 use ndarray::{ArrayD, IxDyn};
@@ -54,5 +55,17 @@ fn reusing_passes_allocate_nothing_after_the_first_call() {
     let allocations = ALLOCATIONS.load(Ordering::SeqCst) - before;
     assert_eq!(allocations, 0, "allocations in five reusing pass pairs");
     assert_eq!(dx, first);
-    assert_eq!(dx, chain.backward(&x, &dy).unwrap());
+
+    // The one-shot backward pass keeps its workspace on the thread: after
+    // its first call, the array it returns is its only allocation.
+    assert_eq!(chain.backward(&x, &dy).unwrap(), first);
+    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    for _ in 0..5 {
+        assert_eq!(chain.backward(&x, &dy).unwrap(), first);
+    }
+    let allocations = ALLOCATIONS.load(Ordering::SeqCst) - before;
+    assert_eq!(
+        allocations, 5,
+        "allocations in five one-shot backward passes"
+    );
 }
