@@ -2,9 +2,7 @@
 //! orders one to three; nesting; the cost of the first-order path; the
 //! dynamic forms.
 
-mod common;
-
-use common::check_orders;
+use crate::common::check_orders;
 use ndarray::{Array1, ArrayD};
 use proptest::prelude::*;
 use revdiff::*;

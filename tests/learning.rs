@@ -2,9 +2,7 @@
 //! loop and least squares, each against hand computations and the law
 //! checkers.
 
-mod common;
-
-use common::assert_close;
+use crate::common::assert_close;
 use ndarray::{Array1, Array2, array};
 use proptest::prelude::*;
 use revdiff::laws::strategies::{matrices, vectors};

@@ -1,9 +1,7 @@
 //! Learning checked against published references. Each check names its
 //! source beside it.
 
-mod common;
-
-use common::assert_close;
+use crate::common::assert_close;
 use ndarray::{Array1, Array2, array};
 use revdiff::*;
 

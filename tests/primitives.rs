@@ -3,9 +3,7 @@
 //! forward derivative against the finite-difference directional derivative,
 //! and the same at the second and third reverse derivatives.
 
-mod common;
-
-use common::check_orders;
+use crate::common::check_orders;
 use ndarray::{Array1, Array2};
 use proptest::prelude::*;
 use revdiff::*;
