@@ -844,26 +844,24 @@ impl<T: Real> Chain<T> {
     }
 
     fn check_output_change(&self, dy: &ArrayD<T>) -> Result<()> {
-        if crate::space::dims_equal(dy.shape(), &self.output_shape) {
-            return Ok(());
-        }
-        Err(Error::shape(
-            "output change of a chain",
-            shape_tuple(&self.output_shape),
-            shape_tuple(dy.shape()),
-        ))
+        expect_shape("output change of a chain", &self.output_shape, dy)
     }
 
     fn check_input(&self, x: &ArrayD<T>) -> Result<()> {
-        if crate::space::dims_equal(x.shape(), &self.input_shape) {
-            return Ok(());
-        }
-        Err(Error::shape(
-            "run-time chain, its input",
-            shape_tuple(&self.input_shape),
-            shape_tuple(x.shape()),
-        ))
+        expect_shape("run-time chain, its input", &self.input_shape, x)
     }
+}
+
+/// A shape mismatch naming `operation` unless `a` has shape `expected`.
+fn expect_shape<T>(operation: &'static str, expected: &[usize], a: &ArrayD<T>) -> Result<()> {
+    if crate::space::dims_equal(a.shape(), expected) {
+        return Ok(());
+    }
+    Err(Error::shape(
+        operation,
+        shape_tuple(expected),
+        shape_tuple(a.shape()),
+    ))
 }
 
 impl<T> Compose for Chain<T> {
