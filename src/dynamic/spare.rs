@@ -79,11 +79,11 @@ pub(crate) fn with_spare_workspace<R>(key: usize, passes: impl FnOnce(&mut Works
 /// passes of run-time chains; the next such call allocates them again.
 ///
 /// A [`Chain`](crate::Chain)'s [`backward`](crate::Map::backward) keeps the
-/// buffers of its passes for the next call on the same thread when the
-/// values between its stages hold at most 1 MiB in all (larger chains use
-/// the memo passes, whose allocations cost little beside their
-/// arithmetic), for at most four chains per thread. This returns that
-/// memory at once.
+/// buffers of its passes for the next call on the same thread when they
+/// hold at most 1 MiB (three numbers per value between its stages: the
+/// value, its change and a slope; larger chains use the memo passes, whose
+/// allocations cost little beside their arithmetic), for at most four
+/// chains per thread. This returns that memory at once.
 ///
 /// ```
 /// use revdiff::{Chain, Map, Sin, free_spare_workspaces};
