@@ -935,7 +935,9 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     /// value, its change and a slope; about 43,000 `f64` values) runs its
     /// reusing passes in a workspace the thread keeps for the next call
     /// ([`free_spare_workspaces`]): the same numbers as the memo passes,
-    /// without their allocation per stage.
+    /// without their allocation per stage. (A stage of your own pushed with
+    /// [`push`](Chain::push) keeps there, besides, whatever its reusing
+    /// passes keep.)
     fn backward(&self, x: &ArrayD<T>, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
         // Bytes of values, changes and the per-element slopes.
         let bytes = 3 * self.value_elements * std::mem::size_of::<T>();
@@ -1082,8 +1084,9 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     }
 }
 
-/// The largest chain, in bytes of values between stages, whose one-shot
-/// backward pass keeps its buffers for the next call.
+/// The most bytes of buffers (the values between stages, their changes
+/// and slopes) for which a chain's one-shot backward pass keeps them for
+/// the next call.
 const SPARE_BYTES: usize = 1 << 20;
 
 /// What a [`Chain`]'s reusing passes keep: every stage's workspace, and a
