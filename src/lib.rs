@@ -51,6 +51,7 @@
 
 pub mod bits;
 pub mod combinators;
+mod cores;
 pub mod dynamic;
 pub mod error;
 pub mod formula;
@@ -73,6 +74,7 @@ pub use ndarray;
 pub use proptest;
 
 pub use combinators::*;
+pub use cores::on_awake_cores;
 pub use dynamic::{Boxed, BoxedMemo, Chain, ChainMemo, StageShape, free_spare_workspaces};
 pub use error::{Error, Result};
 pub use formula::{Formula, as_formula, input, input_at, parameter};

@@ -11,6 +11,7 @@
 //! block of a larger matrix) go through ndarray's `general_mat_mul`, whose
 //! result is the same up to rounding.
 
+use crate::cores::{ProductSplit, product_split};
 use crate::space::Real;
 use faer::linalg::matmul::matmul;
 use faer::{Accum, MatMut, MatRef, Par};
@@ -21,14 +22,6 @@ use ndarray::{Array2, ArrayView2, ArrayViewMut2};
 pub(crate) trait Kernel: Real + faer::traits::ComplexField {}
 impl Kernel for f32 {}
 impl Kernel for f64 {}
-
-/// Products at least this large (`m * k * n`) split their output rows over
-/// the cores (with the `threads` feature). Below it one core is as fast:
-/// at 128 x 256 x 256 (2^23), two halves on two cores ran at 90-103
-/// GFLOP/s against 98-116 on one; at 1,024^3 they ran 1.7-1.9 times as
-/// fast.
-#[cfg(feature = "threads")]
-const SPLIT_FROM: usize = 1 << 24;
 
 /// `a b` into a new array, through [`Real::product_into`].
 pub(crate) fn product<T: Real>(a: ArrayView2<'_, T>, b: ArrayView2<'_, T>) -> Array2<T> {
@@ -104,7 +97,8 @@ fn as_faer<T>(v: ArrayView2<'_, T>) -> Option<MatRef<'_, T>> {
 }
 
 /// `c = alpha a b + beta c` on faer views, beta 0 or 1; large products
-/// split their output rows (and `a`'s) in halves, one per core.
+/// split their output rows (and `a`'s) in halves, one per core, from the
+/// size [`crate::cores`] gives for the calling thread.
 fn rows_product<T: Kernel>(
     alpha: T,
     a: MatRef<'_, T>,
@@ -112,19 +106,32 @@ fn rows_product<T: Kernel>(
     beta: T,
     c: MatMut<'_, T>,
 ) {
+    let (m, k, n) = (a.nrows(), a.ncols(), b.ncols());
+    rows_product_as(product_split(m, m * k * n), alpha, a, b, beta, c);
+}
+
+/// [`rows_product`] as `split` says.
+fn rows_product_as<T: Kernel>(
+    split: ProductSplit,
+    alpha: T,
+    a: MatRef<'_, T>,
+    b: MatRef<'_, T>,
+    beta: T,
+    c: MatMut<'_, T>,
+) {
+    #[cfg(not(feature = "threads"))]
+    let _ = split;
     #[cfg(feature = "threads")]
-    {
-        let (m, k, n) = (a.nrows(), a.ncols(), b.ncols());
-        if m >= 32 && m * k * n >= SPLIT_FROM && !crate::space::on_a_shard_thread() {
-            let half = m / 2;
-            let (a_top, a_bottom) = a.split_at_row(half);
-            let (c_top, c_bottom) = c.split_at_row_mut(half);
-            rayon::join(
-                || rows_product(alpha, a_top, b, beta, c_top),
-                || rows_product(alpha, a_bottom, b, beta, c_bottom),
-            );
-            return;
-        }
+    if split != ProductSplit::Whole {
+        let half = a.nrows() / 2;
+        let (a_top, a_bottom) = a.split_at_row(half);
+        let (c_top, c_bottom) = c.split_at_row_mut(half);
+        let each = |a: MatRef<'_, T>, c: MatMut<'_, T>| match split {
+            ProductSplit::HalvesOnce => rows_product_as(ProductSplit::Whole, alpha, a, b, beta, c),
+            _ => rows_product(alpha, a, b, beta, c),
+        };
+        rayon::join(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+        return;
     }
     // faer replaces the output or adds to it (beta 0 or 1; other betas
     // were applied to the output before).

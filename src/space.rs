@@ -687,55 +687,19 @@ impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
 /// so that the compiler can vectorise it (the training loop runs it over
 /// every gradient and every set of parameters).
 pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
-    values
-        .chunks(256)
-        .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))
+    let check = |values: &[T]| {
+        values
+            .chunks(256)
+            .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))
+    };
+    crate::cores::over_halves(values.len(), values, &check, |a, b| a & b)
 }
 
-/// Elementwise maps over arrays at least this long split across cores
-/// (with the `threads` feature): below it, handing work to other threads
-/// costs more than it saves (at 2^15 elements, `tanh` over a 128 x 256
-/// batch, an f32 training step ran at 42 GFLOP/s split against 62 not).
-#[cfg(feature = "threads")]
-const PARALLEL_FROM: usize = 1 << 17;
-
-#[cfg(feature = "threads")]
-thread_local! {
-    /// Set on the threads of sharded training, which already keep every
-    /// core busy: splitting their elementwise maps again only makes the
-    /// shards queue for the same pool's threads (on 2 cores, with one
-    /// thread per product, it took 2 shards from 1.2 to 1.5 times as fast
-    /// as one shard with split elementwise maps).
-    static ALREADY_PARALLEL: std::cell::Cell<bool> = const { std::cell::Cell::new(false) };
-}
-
-/// Marks the calling thread as one of several that already share the
-/// cores: elementwise maps on it stay on it.
-pub(crate) fn keep_maps_on_this_thread() {
-    #[cfg(feature = "threads")]
-    ALREADY_PARALLEL.with(|flag| flag.set(true));
-}
-
-/// Whether the calling thread is one of sharded training's, which keep
-/// their work (elementwise maps, matrix products) to themselves.
-#[cfg(feature = "threads")]
-#[inline]
-pub(crate) fn on_a_shard_thread() -> bool {
-    ALREADY_PARALLEL.with(std::cell::Cell::get)
-}
-
-/// Whether an elementwise map over `len` elements splits across cores.
+/// Whether an elementwise map over `len` elements splits across cores
+/// (see [`crate::cores`]).
 #[inline]
 pub(crate) fn split_across_cores(len: usize) -> bool {
-    #[cfg(feature = "threads")]
-    {
-        len >= PARALLEL_FROM && !on_a_shard_thread()
-    }
-    #[cfg(not(feature = "threads"))]
-    {
-        let _ = len;
-        false
-    }
+    crate::cores::split_elements(len)
 }
 
 impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {

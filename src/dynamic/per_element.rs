@@ -14,10 +14,11 @@
 //! pass of the whole run is then products of changes and slopes, with no
 //! dynamic call.
 
+use crate::cores::Halves;
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
-use crate::space::{Real, dims_equal, shape_tuple, split_across_cores};
+use crate::space::{Real, dims_equal, shape_tuple};
 use ndarray::{ArrayD, Dimension, IxDyn};
 use std::sync::Arc;
 
@@ -266,7 +267,7 @@ where
                 x,
                 y,
                 self.memos.as_mut_slice(),
-                &|x, y, memos: &mut [F::Memo]| {
+                &|x: &[T], y: &mut [T], memos: &mut [F::Memo]| {
                     for ((out, memo), v) in y.iter_mut().zip(memos).zip(x) {
                         (*out, *memo) = map.forward_memo(v)?;
                     }
@@ -307,7 +308,7 @@ where
             dy,
             dx,
             self.memos.as_slice(),
-            &|dy, dx, memos: &[F::Memo]| {
+            &|dy: &[T], dx: &mut [T], memos: &[F::Memo]| {
                 for ((d, memo), g) in dx.iter_mut().zip(memos).zip(dy) {
                     *d = change(memo, *g)?;
                 }
@@ -346,59 +347,15 @@ fn change_at<T: Real, F: Map<T, Output = T>>(map: &F, memo: &F::Memo, slope: T, 
 fn split_elements<T, K, P>(from: &[T], into: &mut [T], kept: K, pass: &P) -> Result<()>
 where
     T: Send + Sync,
-    K: SplitAt,
+    K: Halves,
     P: Fn(&[T], &mut [T], K) -> Result<()> + Sync,
 {
-    if split_across_cores(from.len()) {
-        return in_halves(from, into, kept, pass);
-    }
-    pass(from, into, kept)
-}
-
-/// [`split_elements`] on two cores; out of line, so that the common path
-/// (one core) keeps a small stack frame.
-#[inline(never)]
-fn in_halves<T, K, P>(from: &[T], into: &mut [T], kept: K, pass: &P) -> Result<()>
-where
-    T: Send + Sync,
-    K: SplitAt,
-    P: Fn(&[T], &mut [T], K) -> Result<()> + Sync,
-{
-    let mid = from.len() / 2;
-    let (from_a, from_b) = from.split_at(mid);
-    let (into_a, into_b) = into.split_at_mut(mid);
-    let (kept_a, kept_b) = kept.split(mid);
-    #[cfg(feature = "threads")]
-    {
-        let (a, b) = rayon::join(
-            || split_elements(from_a, into_a, kept_a, pass),
-            || split_elements(from_b, into_b, kept_b, pass),
-        );
-        a.and(b)
-    }
-    #[cfg(not(feature = "threads"))]
-    {
-        pass(from_a, into_a, kept_a)?;
-        pass(from_b, into_b, kept_b)
-    }
-}
-
-/// A slice of memos, shared or not, that can be cut in two for the halves
-/// of [`split_elements`].
-trait SplitAt: Sized + Send {
-    fn split(self, mid: usize) -> (Self, Self);
-}
-
-impl<M: Send> SplitAt for &mut [M] {
-    fn split(self, mid: usize) -> (Self, Self) {
-        self.split_at_mut(mid)
-    }
-}
-
-impl<M: Sync> SplitAt for &[M] {
-    fn split(self, mid: usize) -> (Self, Self) {
-        self.split_at(mid)
-    }
+    crate::cores::over_halves(
+        from.len(),
+        (from, into, kept),
+        &|(from, into, kept)| pass(from, into, kept),
+        Result::and,
+    )
 }
 
 /// A stage's buffers, tagged with the identity of the stage that made them.

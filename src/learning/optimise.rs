@@ -10,6 +10,7 @@
 //! positive and finite, a momentum or decay outside `[0, 1)`, or a
 //! non-positive epsilon is an [`Error::InvalidSetting`].
 
+use crate::cores::over_halves;
 use crate::error::{Error, Result};
 use crate::learning::schedule::{Schedule, fraction, positive};
 use crate::space::{Euclidean, Real, all_finite_slice};
@@ -511,16 +512,27 @@ impl<R: Real> Optimiser<R> for Adam<R> {
         let step = rate / correction1;
         let root_scale = R::one() / correction2.sqrt();
         let (keep1, keep2) = (R::one() - b1, R::one() - b2);
-        for (((p, g), m), v) in params
-            .iter_mut()
-            .zip(gradient)
-            .zip(m.iter_mut())
-            .zip(v.iter_mut())
-        {
-            *m = b1 * *m + keep1 * *g;
-            *v = b2 * *v + keep2 * *g * *g;
-            *p = *p - step * *m / (v.sqrt() * root_scale + epsilon);
-        }
+        // Every coordinate on its own: halves on two cores give the same
+        // numbers.
+        let update = |params: &mut [R], gradient: &[R], m: &mut [R], v: &mut [R]| {
+            for (((p, g), m), v) in params
+                .iter_mut()
+                .zip(gradient)
+                .zip(m.iter_mut())
+                .zip(v.iter_mut())
+            {
+                *m = b1 * *m + keep1 * *g;
+                *v = b2 * *v + keep2 * *g * *g;
+                *p = *p - step * *m / (v.sqrt() * root_scale + epsilon);
+            }
+        };
+        let halves = ((params, gradient), (m, v));
+        over_halves(
+            len,
+            halves,
+            &|((p, g), (m, v))| update(p, g, m, v),
+            |(), ()| (),
+        );
     }
     bookkeeping!();
 }

@@ -16,6 +16,8 @@ mod batches;
 mod bits;
 #[path = "../combinators.rs"]
 mod combinators;
+#[path = "../cores.rs"]
+mod cores;
 #[path = "../external_values.rs"]
 mod external_values;
 #[path = "../laws_catalogue.rs"]

@@ -1,0 +1,329 @@
+//! How the work of one thread spreads over the cores (the `threads`
+//! feature): which thread may split its products and elementwise maps, and
+//! from what size.
+//!
+//! Handing half of a product to another core pays only if that core is
+//! awake: a rayon thread that has gone to sleep takes longer to wake on a
+//! virtual machine than half of a training step's product takes (at 128 x
+//! 256 x 256, two halves on two cores ran at 90-117 GFLOP/s against 93-150
+//! on one). [`on_awake_cores`] runs a piece of work on a rayon thread while
+//! another rayon thread stands by, spinning and taking any half put up for
+//! it; there the same halves ran at 156-193 GFLOP/s. The training loop runs
+//! in it, so its products and elementwise maps split from much smaller
+//! sizes than elsewhere.
+
+#[cfg(feature = "threads")]
+use std::cell::Cell;
+
+/// What the calling thread does with work that could split.
+#[cfg(feature = "threads")]
+#[derive(Clone, Copy, PartialEq, Eq)]
+enum Spread {
+    /// Splits only large work (products of 2^24 multiply-adds, maps over
+    /// 2^17 elements): the other threads may be asleep.
+    Large,
+    /// Another thread stands by ([`on_awake_cores`]): splits from much
+    /// smaller sizes, in halves.
+    Awake,
+    /// Standing by for another thread's halves ([`on_awake_cores`]); splits
+    /// as [`Spread::Large`] does.
+    StandingBy,
+    /// One of several threads that already share the cores (sharded
+    /// training): keeps its work to itself. Splitting the shards' maps
+    /// again only made them queue for the same pool's threads (on 2 cores,
+    /// it took 2 shards from 1.5 to 1.2 times as fast as one shard).
+    Own,
+}
+
+#[cfg(feature = "threads")]
+thread_local! {
+    static SPREAD: Cell<Spread> = const { Cell::new(Spread::Large) };
+}
+
+#[cfg(feature = "threads")]
+fn spread() -> Spread {
+    SPREAD.with(Cell::get)
+}
+
+/// Marks the calling thread as one of several that already share the
+/// cores: its products and elementwise maps stay on it.
+pub(crate) fn keep_work_on_this_thread() {
+    #[cfg(feature = "threads")]
+    SPREAD.with(|s| s.set(Spread::Own));
+}
+
+/// Products of at least this many multiply-adds split their rows in two
+/// halves when another core stands by: about 10 to 20 microseconds of one
+/// core's work, against about a microsecond to hand a half over.
+#[cfg(feature = "threads")]
+const AWAKE_PRODUCT_FROM: usize = 1 << 20;
+
+/// Products of at least this many multiply-adds split their output rows
+/// anywhere else. At 1,024^3 two halves ran 1.7-1.9 times as fast.
+#[cfg(feature = "threads")]
+const PRODUCT_FROM: usize = 1 << 24;
+
+/// Elementwise maps over at least this many elements split when another
+/// core stands by.
+#[cfg(feature = "threads")]
+const AWAKE_ELEMENTS_FROM: usize = 1 << 14;
+
+/// Elementwise maps over at least this many elements split anywhere else:
+/// below it handing work to sleeping threads cost more than it saved (at
+/// 2^15 elements, `tanh` over a 128 x 256 batch, an f32 training step ran
+/// at 42 GFLOP/s split against 62 not).
+#[cfg(feature = "threads")]
+const ELEMENTS_FROM: usize = 1 << 17;
+
+/// How a product of `m` rows and `m * k * n` multiply-adds runs on the
+/// calling thread.
+#[derive(Clone, Copy, PartialEq, Eq, Debug)]
+#[cfg_attr(not(feature = "threads"), allow(dead_code))]
+pub(crate) enum ProductSplit {
+    /// On this thread.
+    Whole,
+    /// In two halves of rows, each of which may split again.
+    Halves,
+    /// In two halves of rows, each on one core as a whole.
+    HalvesOnce,
+}
+
+/// How a product of `m` rows and `multiply_adds` multiply-adds runs.
+#[inline]
+pub(crate) fn product_split(m: usize, multiply_adds: usize) -> ProductSplit {
+    #[cfg(feature = "threads")]
+    match spread() {
+        Spread::Large | Spread::StandingBy if m >= 32 && multiply_adds >= PRODUCT_FROM => {
+            return ProductSplit::Halves;
+        }
+        Spread::Awake if m >= 16 && multiply_adds >= AWAKE_PRODUCT_FROM => {
+            return ProductSplit::HalvesOnce;
+        }
+        _ => {}
+    }
+    let _ = (m, multiply_adds);
+    ProductSplit::Whole
+}
+
+/// Whether an elementwise map over `len` elements splits across cores.
+#[inline]
+pub(crate) fn split_elements(len: usize) -> bool {
+    #[cfg(feature = "threads")]
+    {
+        match spread() {
+            Spread::Large | Spread::StandingBy => len >= ELEMENTS_FROM,
+            Spread::Awake => len >= AWAKE_ELEMENTS_FROM,
+            Spread::Own => false,
+        }
+    }
+    #[cfg(not(feature = "threads"))]
+    {
+        let _ = len;
+        false
+    }
+}
+
+/// Slices of one length (and tuples of them) that can be cut in two at
+/// the same place, for the halves of [`over_halves`].
+pub(crate) trait Halves: Sized + Send {
+    /// The first `mid` elements, and the rest.
+    fn halves(self, mid: usize) -> (Self, Self);
+}
+
+impl<M: Send> Halves for &mut [M] {
+    fn halves(self, mid: usize) -> (Self, Self) {
+        self.split_at_mut(mid)
+    }
+}
+
+impl<M: Sync> Halves for &[M] {
+    fn halves(self, mid: usize) -> (Self, Self) {
+        self.split_at(mid)
+    }
+}
+
+impl<A: Halves, B: Halves> Halves for (A, B) {
+    fn halves(self, mid: usize) -> (Self, Self) {
+        let ((a1, a2), (b1, b2)) = (self.0.halves(mid), self.1.halves(mid));
+        ((a1, b1), (a2, b2))
+    }
+}
+
+impl<A: Halves, B: Halves, C: Halves> Halves for (A, B, C) {
+    fn halves(self, mid: usize) -> (Self, Self) {
+        let ((a1, a2), (b1, b2), (c1, c2)) =
+            (self.0.halves(mid), self.1.halves(mid), self.2.halves(mid));
+        ((a1, b1, c1), (a2, b2, c2))
+    }
+}
+
+/// Runs `pass` over `parts` (slices of `len` elements each), whole or in
+/// halves on two cores, as [`split_elements`] says, and joins the halves'
+/// answers with `join`; each half gets the same `pass`, so it must treat
+/// elements independently.
+#[inline]
+pub(crate) fn over_halves<K, R, P>(len: usize, parts: K, pass: &P, join: fn(R, R) -> R) -> R
+where
+    K: Halves,
+    R: Send,
+    P: Fn(K) -> R + Sync,
+{
+    if split_elements(len) {
+        return in_two(len, parts, pass, join);
+    }
+    pass(parts)
+}
+
+/// [`over_halves`] on two cores; out of line, so that the common path (one
+/// core) keeps a small stack frame.
+#[inline(never)]
+fn in_two<K, R, P>(len: usize, parts: K, pass: &P, join: fn(R, R) -> R) -> R
+where
+    K: Halves,
+    R: Send,
+    P: Fn(K) -> R + Sync,
+{
+    let mid = len / 2;
+    let (first, second) = parts.halves(mid);
+    #[cfg(feature = "threads")]
+    {
+        // Beside a standing-by core, halves once; elsewhere (large work,
+        // any number of cores) again while they are long enough.
+        let (a, b) = if spread() == Spread::Awake {
+            rayon::join(|| pass(first), || pass(second))
+        } else {
+            rayon::join(
+                || over_halves(mid, first, pass, join),
+                || over_halves(len - mid, second, pass, join),
+            )
+        };
+        join(a, b)
+    }
+    #[cfg(not(feature = "threads"))]
+    {
+        join(pass(first), pass(second))
+    }
+}
+
+/// Runs `work` on a thread of rayon's pool while another of its threads
+/// stands by for halves of matrix products and elementwise maps, and
+/// returns what `work` returns (a panic in `work` comes back as a panic).
+///
+/// [`Training::run`](crate::Training::run) runs in it. Call it around a
+/// training loop of your own (the reusing passes, an optimiser) to give
+/// that loop the same use of two cores: inside, products of 2^20
+/// multiply-adds or more (a 128 x 256 batch by a 256 x 256 matrix is 2^23)
+/// and elementwise maps and optimiser updates over 16,384 elements or more
+/// run in two halves, one per core; elsewhere only products of 2^24 and
+/// maps over 131,072 elements split, because a thread of the pool that has
+/// gone to sleep takes longer to wake than half of a smaller product takes.
+/// At 128 x 256 x 256 (f32), two halves ran at 156-193 GFLOP/s this way
+/// against 93-150 on one core and 90-137 handed to sleeping threads.
+///
+/// The thread standing by spins while it waits (after a millisecond
+/// without work it yields its core to other programs at every turn), so
+/// for the duration of `work` the program keeps two cores busy whatever it
+/// computes. The numbers are those of one core: every element of a product
+/// or a map is computed as it would be whole.
+///
+/// It runs `work` on the calling thread as it is without the `threads`
+/// feature, with fewer than two threads in rayon's pool, and when called
+/// from a thread of the pool, from inside another `on_awake_cores`, or
+/// from a shard of [`Training::run_sharded`](crate::Training::run_sharded).
+///
+/// # Example
+///
+/// A batch through an affine map, inside and outside: the same numbers.
+///
+/// ```
+/// use revdiff::{on_awake_cores, Affine, Map};
+/// use ndarray::{Array1, Array2};
+///
+/// let w = Array2::from_shape_fn((256, 256), |(i, j)| ((i + 2 * j) % 7) as f64 - 3.0);
+/// let input = ((w, Array1::zeros(256)), Array2::from_shape_fn((128, 256), |(i, j)| ((i * j) % 5) as f64));
+/// let alone = Affine.forward(&input)?;
+/// let beside = on_awake_cores(|| Affine.forward(&input))?;
+/// assert_eq!(alone, beside);
+/// # Ok::<(), revdiff::Error>(())
+/// ```
+pub fn on_awake_cores<R: Send>(work: impl FnOnce() -> R + Send) -> R {
+    #[cfg(feature = "threads")]
+    if spread() == Spread::Large
+        && rayon::current_thread_index().is_none()
+        && rayon::current_num_threads() >= 2
+    {
+        use std::sync::atomic::{AtomicBool, Ordering};
+        let stop = AtomicBool::new(false);
+        // Set however `work` ends, panics included, so that the thread
+        // standing by returns and the join below completes.
+        struct Stop<'a>(&'a AtomicBool, Spread);
+        impl Drop for Stop<'_> {
+            fn drop(&mut self) {
+                self.0.store(true, Ordering::Release);
+                SPREAD.with(|s| s.set(self.1));
+            }
+        }
+        // The join runs `work` on one of the pool's threads and offers the
+        // standing by to the others: the first that steals takes it (a
+        // thread steals the oldest job first, so this one, before any
+        // half). If none does, the thread of `work` runs it after `work`,
+        // when `stop` is set already, and it returns at once. Neither side
+        // allocates.
+        let (result, ()) = rayon::join(
+            || {
+                let _stop = Stop(&stop, spread());
+                SPREAD.with(|s| s.set(Spread::Awake));
+                work()
+            },
+            || stand_by(&stop),
+        );
+        return result;
+    }
+    work()
+}
+
+/// Takes rayon's jobs (the halves) until `stop` is set, spinning between
+/// them.
+#[cfg(feature = "threads")]
+fn stand_by(stop: &std::sync::atomic::AtomicBool) {
+    use std::sync::atomic::Ordering;
+    use std::time::{Duration, Instant};
+    // A thread in the middle of other work (another `on_awake_cores`, or
+    // standing by already) that steals this job while it waits does not
+    // stand by: it would hold up its own work until this one ends, and two
+    // such threads holding each other's would never end.
+    if spread() != Spread::Large {
+        return;
+    }
+    SPREAD.with(|s| s.set(Spread::StandingBy));
+    struct Back;
+    impl Drop for Back {
+        fn drop(&mut self) {
+            SPREAD.with(|s| s.set(Spread::Large));
+        }
+    }
+    let _back = Back;
+    let mut idle_since = Instant::now();
+    let mut idle_rounds = 0u32;
+    let mut drowsy = false;
+    while !stop.load(Ordering::Acquire) {
+        if let Some(rayon::Yield::Executed) = rayon::yield_now() {
+            (idle_rounds, drowsy) = (0, false);
+            continue;
+        }
+        if drowsy {
+            // A millisecond without work: other programs may have the core.
+            std::thread::yield_now();
+            continue;
+        }
+        if idle_rounds == 0 {
+            idle_since = Instant::now();
+        }
+        idle_rounds = idle_rounds.wrapping_add(1);
+        // The clock is read every 1,024 rounds only.
+        if idle_rounds.is_multiple_of(1024) {
+            drowsy = idle_since.elapsed() > Duration::from_millis(1);
+        }
+        std::hint::spin_loop();
+    }
+}

@@ -1,0 +1,137 @@
+//! Work beside a standing-by core (`on_awake_cores`, which `Training::run`
+//! runs in) gives the numbers of work on one core, and the standing-by
+//! thread is released however the work ends.
+
+use ndarray::{Array1, Array2};
+use revdiff::{
+    Adam, Affine, Compose, Error, Euclidean, Examples, MeanSquaredError, Optimiser, Parametrised,
+    Real, Tanh, Training, on_awake_cores,
+};
+
+/// Values without a pattern that makes sums exact (so that a different
+/// order of summation would show).
+fn values<T: Real>(rows: usize, cols: usize, seed: usize) -> Array2<T> {
+    Array2::from_shape_fn((rows, cols), |(i, j)| {
+        let t = ((i * 131 + j * 71 + seed * 17) as f64 * 0.7131).sin();
+        T::from(t).unwrap()
+    })
+}
+
+fn product<T: Real>(a: &Array2<T>, b: &Array2<T>) -> Array2<T> {
+    let mut c = Array2::zeros((a.nrows(), b.ncols()));
+    T::product_into(T::one(), a.view(), b.view(), T::zero(), c.view_mut());
+    c
+}
+
+fn same_products<T: Real>() {
+    // Large enough to split in halves beside a standing core (2^20
+    // multiply-adds and up), too small to split elsewhere (2^24), and an
+    // odd number of rows.
+    for (m, k, n) in [(128, 256, 256), (131, 100, 97), (16, 256, 256)] {
+        let (a, b) = (values::<T>(m, k, 1), values::<T>(k, n, 2));
+        let alone = product(&a, &b);
+        let beside = on_awake_cores(|| product(&a, &b));
+        assert_eq!(
+            alone, beside,
+            "{m} x {k} x {n} product beside a standing core"
+        );
+    }
+}
+
+#[test]
+fn products_beside_a_standing_core_are_those_of_one_core() {
+    same_products::<f64>();
+    same_products::<f32>();
+}
+
+/// A two-layer network's parameters.
+type Layers2 = ((Array2<f64>, Array1<f64>), (Array2<f64>, Array1<f64>));
+
+fn network_data() -> (Examples<f64>, Layers2) {
+    // 256 -> 128 (tanh) -> 3 on 512 rows, batches of 128: products of
+    // 2^22 multiply-adds and Adam over 32,768 weights, all of which split
+    // beside a standing core.
+    let x = values::<f64>(512, 256, 3);
+    let y = values::<f64>(512, 3, 4);
+    let start = (
+        (values::<f64>(128, 256, 5) * 0.05, Array1::zeros(128)),
+        (values::<f64>(3, 128, 6) * 0.1, Array1::zeros(3)),
+    );
+    (Examples::new(x, y).unwrap(), start)
+}
+
+#[test]
+fn training_beside_a_standing_core_gives_the_parameters_of_one_core() {
+    let (data, start) = network_data();
+    let model = Affine.then(Tanh).then_parametrised(Affine);
+    let training = Training::new(3, 128).unwrap().seed(9);
+    let train = || {
+        training
+            .run(
+                &model,
+                &MeanSquaredError,
+                &mut Adam::new(1e-3).unwrap(),
+                start.clone(),
+                &data,
+                |_| {},
+            )
+            .unwrap()
+    };
+    // From the test's thread: the run stands a second core by (when the
+    // pool has two threads). From a thread of a pool of one: it cannot.
+    let beside = train();
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .unwrap();
+    let alone = pool.install(train);
+    assert_eq!(beside.parameters, alone.parameters);
+    assert_eq!(beside.epoch_losses, alone.epoch_losses);
+    // And the training moved the parameters (the comparison is not of
+    // two copies of the start).
+    assert_ne!(alone.parameters, start);
+}
+
+#[test]
+fn a_panic_beside_a_standing_core_comes_back_and_releases_it() {
+    let caught = std::panic::catch_unwind(|| on_awake_cores(|| panic!("from the work")));
+    let message = caught.unwrap_err();
+    assert_eq!(message.downcast_ref::<&str>(), Some(&"from the work"));
+    // The standing-by thread was released: the pool still serves work,
+    // and a second call stands one by again.
+    let (a, b) = (values::<f64>(128, 256, 7), values::<f64>(256, 256, 8));
+    assert_eq!(on_awake_cores(|| product(&a, &b)), product(&a, &b));
+    // Nested calls run the inner work as it is.
+    assert_eq!(on_awake_cores(|| on_awake_cores(|| 7)), 7);
+}
+
+#[test]
+fn a_non_finite_value_is_found_in_either_half() {
+    // The finite checks of the training loop and of `update_in_place` run
+    // in halves beside a standing core: a NaN must be found wherever it is.
+    let n = 40_000;
+    on_awake_cores(|| {
+        let clean = Array1::from_elem(n, 0.5);
+        assert!(clean.all_finite());
+        for at in [0, n / 2 - 1, n / 2, n - 1] {
+            let mut bad = clean.clone();
+            bad[at] = f64::NAN;
+            assert!(!bad.all_finite(), "NaN at {at} of {n}");
+            let mut params = clean.clone();
+            let refused = Adam::new(0.1).unwrap().update_in_place(&mut params, &bad);
+            assert!(
+                matches!(refused, Err(Error::NonFinite { .. })),
+                "NaN at {at}: {refused:?}"
+            );
+            assert_eq!(params, clean, "a refused update changes nothing");
+        }
+        // And a clean update moves every coordinate, in both halves.
+        let mut params = clean.clone();
+        let mut adam = Adam::new(0.1).unwrap();
+        adam.update_in_place(&mut params, &Array1::from_elem(n, 2.0))
+            .unwrap();
+        // Adam's first step moves each coordinate by the rate times the
+        // sign of its gradient (common practice, no source).
+        assert!(params.iter().all(|&p| (p - 0.4).abs() < 1e-8));
+    });
+}
