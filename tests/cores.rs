@@ -135,3 +135,40 @@ fn a_non_finite_value_is_found_in_either_half() {
         assert!(params.iter().all(|&p| (p - 0.4).abs() < 1e-8));
     });
 }
+
+#[test]
+fn concurrent_training_runs_share_the_pool_and_agree() {
+    // Four runs at once from four threads of the test's own, ten times: their
+    // standing-by jobs and halves mix in one pool of rayon threads, which
+    // may steal one run's standing by while waiting inside another run.
+    // Every run must end, with the parameters of the same run made alone.
+    let (data, start) = network_data();
+    let model = Affine.then(Tanh).then_parametrised(Affine);
+    let run = |seed: u64| {
+        Training::new(2, 128)
+            .unwrap()
+            .seed(seed)
+            .run(
+                &model,
+                &MeanSquaredError,
+                &mut Adam::new(1e-3).unwrap(),
+                start.clone(),
+                &data,
+                |_| {},
+            )
+            .unwrap()
+            .parameters
+    };
+    let alone: Vec<_> = (0..4).map(run).collect();
+    // Several rounds: which thread steals what differs from round to round.
+    for round in 0..10 {
+        let together: Vec<_> = std::thread::scope(|scope| {
+            let threads: Vec<_> = (0..4).map(|seed| scope.spawn(move || run(seed))).collect();
+            threads.into_iter().map(|t| t.join().unwrap()).collect()
+        });
+        assert_eq!(alone, together, "round {round}");
+    }
+    // Different seeds shuffle differently: the runs are not one run four
+    // times.
+    assert_ne!(alone[0], alone[1]);
+}

@@ -401,7 +401,13 @@ impl<T: Real> Default for RunWork<T> {
 /// `a`'s elements as one slice in logical order; `a` is replaced by zeros
 /// of shape `shape` when it has another shape or is not in standard
 /// layout (then its contents are stale anyway).
+#[inline]
 fn standard_slice_mut<'a, T: Real>(a: &'a mut ArrayD<T>, shape: &[usize]) -> &'a mut [T] {
+    // One element (a chain of scalar maps): any strides will do, and
+    // ndarray's layout check costs more than the stage.
+    if shape.iter().product::<usize>() == 1 && dims_equal(a.shape(), shape) {
+        return std::slice::from_mut(a.first_mut().expect("one element"));
+    }
     if !dims_equal(a.shape(), shape) || !a.is_standard_layout() {
         *a = ArrayD::zeros(IxDyn(shape));
     }
@@ -442,12 +448,7 @@ pub(crate) fn run_forward<T: Real>(
     if kept.len() != count {
         kept.resize_with(count, || None);
     }
-    // The output is the run's own, made here in standard layout and never
-    // lent mutably, so only its shape needs a check.
-    if !dims_equal(output.shape(), input.shape()) {
-        *output = ArrayD::zeros(input.raw_dim());
-    }
-    let y = output.as_slice_mut().expect("made in standard layout here");
+    let y = standard_slice_mut(output, input.shape());
     for (i, (stage, kept)) in stages.iter().zip(kept.iter_mut()).enumerate() {
         // Stage i reads stage i - 1's output and writes its own.
         let slopes = slopes.get_mut(i * len..(i + 1) * len).unwrap_or_default();
@@ -513,7 +514,14 @@ fn through_slopes<T: Real>(slopes: &[T], dy: &[T], dx: &mut [T]) -> bool {
 
 /// `a`'s elements in logical order: its own slice when it is in standard
 /// layout, else a copy in `scratch`.
+#[inline]
 fn logical_slice<'a, T: Real>(a: &'a ArrayD<T>, scratch: &'a mut Vec<T>) -> &'a [T] {
+    // One element: any strides will do (see `standard_slice_mut`).
+    if a.len() == 1
+        && let Some(only) = a.first()
+    {
+        return std::slice::from_ref(only);
+    }
     match a.as_slice() {
         Some(elements) => elements,
         None => {
