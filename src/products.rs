@@ -130,7 +130,11 @@ fn rows_product_as<T: Kernel>(
             ProductSplit::HalvesOnce => rows_product_as(ProductSplit::Whole, alpha, a, b, beta, c),
             _ => rows_product(alpha, a, b, beta, c),
         };
-        rayon::join(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+        if split == ProductSplit::HalvesOnce {
+            crate::cores::beside(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+        } else {
+            rayon::join(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+        }
         return;
     }
     // faer replaces the output or adds to it (beta 0 or 1; other betas

@@ -473,11 +473,13 @@ impl Training {
     /// each gathers its own rows of the batch from the training data. A
     /// shard's matrix products and elementwise maps stay on its thread, so
     /// the shards, not the products, share the cores. On 2
-    /// cores, batch 1,024, 2 shards ran 1.65 to 2.05 times as fast as
-    /// one shard on one core, and 1.03 to 1.30 times as fast as
+    /// cores, batch 1,024, 2 shards ran 1.83 to 1.97 times as fast as
+    /// one shard on one core, and 0.96 to 1.08 times as fast as
     /// [`run`](Training::run) with the `threads` feature (whose products
-    /// at that batch split over the cores). Sharding pays on large batches:
-    /// at batch 128 the halves' products were too small to gain.
+    /// and elementwise maps split over the two cores beside a standing-by
+    /// thread, see [`on_awake_cores`](crate::on_awake_cores)): `run` uses
+    /// both cores as well at that size. Sharding is the form whose gradient
+    /// sum can go beyond one machine ([`GradientReduction`]).
     ///
     /// A shard's error stops the run like any other; a shard whose model
     /// panics stops it with
