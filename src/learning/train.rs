@@ -410,7 +410,7 @@ impl Training {
     /// with the `threads` feature it runs on a thread of rayon's pool while
     /// another stands by, so that the step's products and elementwise maps
     /// use two cores (an f32 step of the comparison example went from 58-79
-    /// to about 100-120 GFLOP/s). That is why the model and loss must be
+    /// to 96-120 GFLOP/s over six runs). That is why the model and loss must be
     /// `Sync`, and the optimiser, parameters and observer `Send`. The
     /// numbers are those of a run on one core.
     pub fn run<T, P, B, M, L, O, V>(
