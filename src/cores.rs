@@ -5,10 +5,10 @@
 //! Handing half of a product to another core pays only if that core is
 //! awake: a rayon thread that has gone to sleep takes longer to wake on a
 //! virtual machine than half of a training step's product takes (at 128 x
-//! 256 x 256, two halves on two cores ran at 90-117 GFLOP/s against 93-150
+//! 256 x 256, two halves on two cores ran at 90-137 GFLOP/s against 93-150
 //! on one). [`on_awake_cores`] runs a piece of work on a rayon thread while
 //! another rayon thread stands by, awake, taking any half put up for
-//! it; there the same halves ran at 156-193 GFLOP/s. The training loop runs
+//! it; there the same halves ran at 150-226 GFLOP/s. The training loop runs
 //! in it, so its products and elementwise maps split from much smaller
 //! sizes than elsewhere.
 
@@ -283,7 +283,7 @@ where
 /// run in two halves, one per core; elsewhere only products of 2^24 and
 /// maps over 131,072 elements split, because a thread of the pool that has
 /// gone to sleep takes longer to wake than half of a smaller product takes.
-/// At 128 x 256 x 256 (f32), two halves ran at 156-193 GFLOP/s this way
+/// At 128 x 256 x 256 (f32), two halves ran at 150-226 GFLOP/s this way
 /// against 93-150 on one core and 90-137 handed to sleeping threads.
 ///
 /// The thread standing by does not sleep while it waits: it yields its

@@ -5,7 +5,7 @@
 use ndarray::{Array1, Array2};
 use revdiff::{
     Adam, Affine, Compose, Error, Euclidean, Examples, MeanSquaredError, Optimiser, Parametrised,
-    Real, Tanh, Training, on_awake_cores,
+    Real, Tanh, Trained, Training, on_awake_cores,
 };
 
 /// Values without a pattern that makes sums exact (so that a different
@@ -60,23 +60,28 @@ fn network_data() -> (Examples<f64>, Layers2) {
     (Examples::new(x, y).unwrap(), start)
 }
 
+/// The network of [`network_data`] trained with Adam under mean squared
+/// error.
+fn trained(training: &Training, data: &Examples<f64>, start: &Layers2) -> Trained<Layers2, f64> {
+    let model = Affine.then(Tanh).then_parametrised(Affine);
+    let mut adam = Adam::new(1e-3).unwrap();
+    training
+        .run(
+            &model,
+            &MeanSquaredError,
+            &mut adam,
+            start.clone(),
+            data,
+            |_| {},
+        )
+        .unwrap()
+}
+
 #[test]
 fn training_beside_a_standing_core_gives_the_parameters_of_one_core() {
     let (data, start) = network_data();
-    let model = Affine.then(Tanh).then_parametrised(Affine);
     let training = Training::new(3, 128).unwrap().seed(9);
-    let train = || {
-        training
-            .run(
-                &model,
-                &MeanSquaredError,
-                &mut Adam::new(1e-3).unwrap(),
-                start.clone(),
-                &data,
-                |_| {},
-            )
-            .unwrap()
-    };
+    let train = || trained(&training, &data, &start);
     // From the test's thread: the run stands a second core by (when the
     // pool has two threads). From a thread of a pool of one: it cannot.
     let beside = train();
@@ -143,22 +148,8 @@ fn concurrent_training_runs_share_the_pool_and_agree() {
     // may steal one run's standing by while waiting inside another run.
     // Every run must end, with the parameters of the same run made alone.
     let (data, start) = network_data();
-    let model = Affine.then(Tanh).then_parametrised(Affine);
-    let run = |seed: u64| {
-        Training::new(2, 128)
-            .unwrap()
-            .seed(seed)
-            .run(
-                &model,
-                &MeanSquaredError,
-                &mut Adam::new(1e-3).unwrap(),
-                start.clone(),
-                &data,
-                |_| {},
-            )
-            .unwrap()
-            .parameters
-    };
+    let run =
+        |seed: u64| trained(&Training::new(2, 128).unwrap().seed(seed), &data, &start).parameters;
     let alone: Vec<_> = (0..4).map(run).collect();
     // Several rounds: which thread steals what differs from round to round.
     for round in 0..10 {

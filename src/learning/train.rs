@@ -410,9 +410,11 @@ impl Training {
     /// with the `threads` feature it runs on a thread of rayon's pool while
     /// another stands by, so that the step's products and elementwise maps
     /// use two cores (an f32 step of the comparison example went from 58-79
-    /// to 96-120 GFLOP/s over six runs). That is why the model and loss must be
-    /// `Sync`, and the optimiser, parameters and observer `Send`. The
-    /// numbers are those of a run on one core.
+    /// to 69-120 GFLOP/s over twelve runs). That is why the model and loss must be
+    /// `Sync`, and the optimiser, parameters and observer `Send`, and why
+    /// the observer may run on another thread than the caller's (what it
+    /// keeps in thread-local storage is that thread's). The numbers are
+    /// those of a run on one core.
     pub fn run<T, P, B, M, L, O, V>(
         &self,
         model: &M,
