@@ -692,7 +692,10 @@ pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
             .chunks(256)
             .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))
     };
-    crate::cores::over_halves(values.len(), values, &check, |a, b| a & b)
+    if crate::cores::standing_by() {
+        return crate::cores::over_halves(values.len(), values, &check, |a, b| a & b);
+    }
+    check(values)
 }
 
 /// Whether an elementwise map over `len` elements splits across cores
