@@ -126,14 +126,14 @@ fn rows_product_as<T: Kernel>(
         let half = a.nrows() / 2;
         let (a_top, a_bottom) = a.split_at_row(half);
         let (c_top, c_bottom) = c.split_at_row_mut(half);
-        let each = |a: MatRef<'_, T>, c: MatMut<'_, T>| match split {
-            ProductSplit::HalvesOnce => rows_product_as(ProductSplit::Whole, alpha, a, b, beta, c),
-            _ => rows_product(alpha, a, b, beta, c),
-        };
+        // Beside a standing core, two whole halves, watched for lateness;
+        // elsewhere halves that may split again.
+        let whole = |a, c| rows_product_as(ProductSplit::Whole, alpha, a, b, beta, c);
+        let again = |a, c| rows_product(alpha, a, b, beta, c);
         if split == ProductSplit::HalvesOnce {
-            crate::cores::beside(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+            crate::cores::beside(|| whole(a_top, c_top), || whole(a_bottom, c_bottom));
         } else {
-            rayon::join(|| each(a_top, c_top), || each(a_bottom, c_bottom));
+            rayon::join(|| again(a_top, c_top), || again(a_bottom, c_bottom));
         }
         return;
     }
