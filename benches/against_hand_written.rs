@@ -8,22 +8,22 @@ mod hand_written;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use hand_written::{
-    BATCH, LibraryGradient, Network, Params, data, library_model, library_training, start,
+    BATCH, LibraryGradient, Network, Params, WIDTHS, data, library_model, library_training, start,
 };
 use revdiff::Examples;
 use std::hint::black_box;
 
 fn training_step(c: &mut Criterion) {
     let model = library_model();
-    let (x, t) = data::<f64>(BATCH);
+    let (x, t) = data::<f64>(WIDTHS, BATCH);
     let examples = Examples::new(x.clone(), t.clone()).unwrap();
-    let p0: Params<f64> = start();
+    let p0: Params<f64> = start(WIDTHS);
 
     let mut group = c.benchmark_group("one training step, 256-256-256-10, batch 128, f64");
     group.bench_function("library", |b| {
-        b.iter(|| black_box(library_training(&model, 1, &p0, &examples, 1e-3)))
+        b.iter(|| black_box(library_training(&model, BATCH, 1, &p0, &examples, 1e-3)))
     });
-    let mut net = Network::new(&p0);
+    let mut net = Network::new(&p0, BATCH);
     group.bench_function("hand-written", |b| {
         b.iter(|| {
             black_box(net.gradient(&x, &t));
@@ -38,7 +38,7 @@ fn training_step(c: &mut Criterion) {
     group.bench_function("library", |b| {
         b.iter(|| black_box(buffers.run(&model, &input, &t)))
     });
-    let mut net = Network::new(&p0);
+    let mut net = Network::new(&p0, BATCH);
     group.bench_function("hand-written", |b| {
         b.iter(|| black_box(net.gradient(&x, &t)))
     });

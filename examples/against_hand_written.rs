@@ -4,7 +4,10 @@
 //! `measure<TAB>ratio<TAB>target<TAB>ok|over`.
 //!
 //! `cargo run --release --example against_hand_written` (add `-- quick` for
-//! fewer repetitions, as CI does).
+//! fewer repetitions, as CI does). The targets are set for one network and
+//! batch size; the same training and gradient ratios are also measured at
+//! four other sizes (`OTHER_WORKLOADS`), to show that they do not hold at
+//! one size only (`-- workloads` runs only those).
 
 #[path = "../benches/support/chains.rs"]
 mod chains;
@@ -16,8 +19,8 @@ mod hand_written;
 use chains::{double, sine_chains};
 
 use hand_written::{
-    BATCH, LibraryGradient, Network, Params, WIDTHS, data, library_model, library_training, start,
-    step_flops,
+    BATCH, LibraryGradient, MEASURED, Network, Params, WIDTHS, Workload, data, library_model,
+    library_training, start, step_flops,
 };
 use ndarray::{Array1, Array2, ArrayD};
 use rand::SeedableRng;
@@ -97,34 +100,57 @@ fn at_most(measure: impl Into<String>, value: f64, limit: f64, target: &'static 
 /// Steps per measured training run, and rows of data for it.
 const STEPS_PER_EPOCH: usize = 8;
 
-fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut Vec<Line>) {
+/// The training lines for workload `w`; `name` names the element type
+/// and, for a workload other than [`MEASURED`], the workload.
+fn training_lines<T: Real>(
+    name: &str,
+    w: Workload,
+    rounds: usize,
+    epochs: usize,
+    lines: &mut Vec<Line>,
+) {
+    let measured = w.widths == MEASURED.widths && w.batch == MEASURED.batch;
     let model = library_model();
-    let rows = BATCH * STEPS_PER_EPOCH;
-    let (x, t) = data::<T>(rows);
+    let batch = w.batch;
+    let rows = batch * STEPS_PER_EPOCH;
+    let (x, t) = data::<T>(w.widths, rows);
     let examples = Examples::new(x.clone(), t.clone()).unwrap();
-    let p0: Params<T> = start();
+    let p0: Params<T> = start(w.widths);
     let lr = T::from(1e-3).unwrap();
+    // A workload other than the measured one runs more epochs and
+    // repetitions when one run is short (up to 16 times, for about 5 ms a
+    // run), so that a timed stretch is not lost in the machine's noise.
+    let scale = if measured {
+        1
+    } else {
+        let once = Instant::now();
+        black_box(library_training(&model, batch, epochs, &p0, &examples, lr));
+        (0.005 / once.elapsed().as_secs_f64())
+            .round()
+            .clamp(1.0, 16.0) as usize
+    };
+    let (epochs, reps) = (epochs * scale, 5 * scale);
 
     // One training run of `epochs` epochs on each side.
     let library = || {
-        black_box(library_training(&model, epochs, &p0, &examples, lr));
+        black_box(library_training(&model, batch, epochs, &p0, &examples, lr));
     };
     let mut order: Vec<usize> = (0..rows).collect();
     let mut rng = StdRng::seed_from_u64(0);
-    let mut xb = Array2::<T>::zeros((BATCH, WIDTHS[0]));
-    let mut tb = Array2::<T>::zeros((BATCH, WIDTHS[3]));
+    let mut xb = Array2::<T>::zeros((batch, w.widths[0]));
+    let mut tb = Array2::<T>::zeros((batch, w.widths[3]));
     // Like the library's run, each run starts from the same parameters with
     // fresh buffers and optimiser state. `same_products`: the products
     // through the library's kernel instead of ndarray's.
     let mut by_hand = |same_products: bool| {
         let mut net = if same_products {
-            Network::with_library_products(&p0)
+            Network::with_library_products(&p0, batch)
         } else {
-            Network::new(&p0)
+            Network::new(&p0, batch)
         };
         for _ in 0..epochs {
             order.shuffle(&mut rng);
-            for chunk in order.chunks(BATCH) {
+            for chunk in order.chunks(batch) {
                 for (i, &r) in chunk.iter().enumerate() {
                     xb.row_mut(i).assign(&x.row(r));
                     tb.row_mut(i).assign(&t.row(r));
@@ -155,10 +181,10 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         1.05,
         "<= 1.05",
     ));
-    if name == "f32" {
-        let xb = x.slice(ndarray::s![..BATCH, ..]).to_owned();
-        let mut ndarray_net = Network::new(&p0);
-        let mut library_net = Network::with_library_products(&p0);
+    if name == "f32" && measured {
+        let xb = x.slice(ndarray::s![..batch, ..]).to_owned();
+        let mut ndarray_net = Network::new(&p0, batch);
+        let mut library_net = Network::with_library_products(&p0, batch);
         let (by_ndarray, by_library) = race(
             rounds,
             20,
@@ -167,31 +193,31 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         );
         println!(
             "f32 training step's matrix products alone: {:.1} GFLOP/s through the library's kernel, {:.1} through ndarray's threaded product",
-            step_flops() / by_library / 1e9,
-            step_flops() / by_ndarray / 1e9
+            step_flops(w) / by_library / 1e9,
+            step_flops(w) / by_ndarray / 1e9
         );
         println!(
             "f32 training step: library {:.1} GFLOP/s, hand-written {:.1} GFLOP/s (matrix products only)",
-            step_flops() * steps / lib / 1e9,
-            step_flops() * steps / hand / 1e9
+            step_flops(w) * steps / lib / 1e9,
+            step_flops(w) * steps / hand / 1e9
         );
         lines.push(Line {
             measure: "effective GFLOP/s of an f32 training step (matrix products)".into(),
-            value: step_flops() * steps / lib / 1e9,
+            value: step_flops(w) * steps / lib / 1e9,
             target: ">= 100",
-            ok: step_flops() * steps / lib / 1e9 >= 100.0,
+            ok: step_flops(w) * steps / lib / 1e9 >= 100.0,
         });
     }
 
     // The gradient alone, one batch.
-    let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
-    let tbatch: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
+    let xb: Array2<T> = x.slice(ndarray::s![..batch, ..]).to_owned();
+    let tbatch: Array2<T> = t.slice(ndarray::s![..batch, ..]).to_owned();
     let input = (p0.clone(), xb.clone());
     let mut buffers = LibraryGradient::new(&p0);
     let lib_gradient = || {
         black_box(buffers.run(&model, &input, &tbatch));
     };
-    let mut net = Network::new(&p0);
+    let mut net = Network::new(&p0, batch);
     let hand_gradient = || {
         black_box(net.gradient(&xb, &tbatch));
     };
@@ -205,7 +231,7 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
         let dp = &check_buffers.gradient;
         let (y, _) = Map::<(Params<T>, Array2<T>)>::forward_memo(&model, &input).unwrap();
         let l = MeanSquaredError.forward(&(y, tbatch.clone())).unwrap();
-        let mut check = Network::new(&p0);
+        let mut check = Network::new(&p0, batch);
         let hand_loss = check.gradient(&xb, &tbatch);
         let (a, b) = (dp.coordinates(), check.gradient_as_params().coordinates());
         let scale = b.iter().fold(T::zero(), |m, v| m.max(v.abs()));
@@ -223,17 +249,17 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
             "{name}: losses {l} and {hand_loss}"
         );
     }
-    let (lib, hand) = race(rounds, 5, lib_gradient, hand_gradient);
+    let (lib, hand) = race(rounds, reps, lib_gradient, hand_gradient);
     lines.push(at_most(
         format!("gradient {name}, library / hand-written"),
         lib / hand,
         1.05,
         "<= 1.05",
     ));
-    let mut same = Network::with_library_products(&p0);
+    let mut same = Network::with_library_products(&p0, batch);
     let (lib, hand) = race(
         rounds,
-        5,
+        reps,
         || {
             black_box(buffers.run(&model, &input, &tbatch));
         },
@@ -254,11 +280,11 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
     let mut forward_work = Workspace::new();
     let mut backward_work = Workspace::new();
     model.forward_split(p, xb, &mut backward_work).unwrap();
-    let dy = Array2::<T>::ones((BATCH, WIDTHS[3]));
+    let dy = Array2::<T>::ones((batch, w.widths[3]));
     let mut dp = p.zero_like();
     let (back, fwd) = race(
         rounds,
-        5,
+        reps,
         || {
             model
                 .backward_split(p, xb, &mut backward_work, &dy, &mut dp, None)
@@ -279,19 +305,19 @@ fn training_lines<T: Real>(name: &str, rounds: usize, epochs: usize, lines: &mut
 
     // Heap allocations per step after warm-up: the difference between runs
     // of two lengths, per extra step.
-    if name == "f64" {
+    if name == "f64" && measured {
         let count = |epochs: usize| {
             let before = ALLOCATIONS.load(Ordering::Relaxed);
-            black_box(library_training(&model, epochs, &p0, &examples, lr));
+            black_box(library_training(&model, batch, epochs, &p0, &examples, lr));
             ALLOCATIONS.load(Ordering::Relaxed) - before
         };
         let (short, long) = (count(1), count(3));
         let per_step = (long - short) as f64 / (2 * STEPS_PER_EPOCH) as f64;
         // The floor: ndarray's matrix kernel (matrixmultiply) allocates its
         // packing buffers inside every product, hand-written code included.
-        let mut net = Network::new(&p0);
-        let xb: Array2<T> = x.slice(ndarray::s![..BATCH, ..]).to_owned();
-        let tb: Array2<T> = t.slice(ndarray::s![..BATCH, ..]).to_owned();
+        let mut net = Network::new(&p0, batch);
+        let xb: Array2<T> = x.slice(ndarray::s![..batch, ..]).to_owned();
+        let tb: Array2<T> = t.slice(ndarray::s![..batch, ..]).to_owned();
         net.gradient(&xb, &tb);
         let before = ALLOCATIONS.load(Ordering::Relaxed);
         for _ in 0..4 {
@@ -614,14 +640,91 @@ fn second_order_lines(rounds: usize, lines: &mut Vec<Line>) {
     // The network on one row, summed to a scalar: the Hessian in the
     // parameters and the input together, along a direction of their shape.
     let model = library_model().then(revdiff::ElementReduction::sum());
-    let input: (Params<f64>, Array1<f64>) = (start::<f64>(), Array1::from_elem(WIDTHS[0], 0.3));
-    let direction = (start::<f64>(), Array1::from_elem(WIDTHS[0], -0.1));
+    let input: (Params<f64>, Array1<f64>) =
+        (start::<f64>(WIDTHS), Array1::from_elem(WIDTHS[0], 0.3));
+    let direction = (start::<f64>(WIDTHS), Array1::from_elem(WIDTHS[0], -0.1));
     lines.push(at_most(
         "Hessian-vector product / backward, the network on one row",
         hessian_ratio(rounds, 3, &model, &input, &direction),
         4.0,
         "<= 4",
     ));
+}
+
+/// Networks and batches other than the measured one, so that the
+/// training and gradient ratios are seen not to hold at one size only.
+const OTHER_WORKLOADS: [Workload; 4] = [
+    Workload {
+        widths: [32, 64, 64, 4],
+        batch: 16,
+    },
+    Workload {
+        widths: [16, 32, 32, 1],
+        batch: 512,
+    },
+    Workload {
+        widths: [64, 128, 128, 10],
+        batch: 64,
+    },
+    Workload {
+        widths: [512, 512, 256, 16],
+        batch: 32,
+    },
+];
+
+/// The training step and gradient ratios at [`OTHER_WORKLOADS`], f64 and
+/// f32: each printed, and for each measure one line with the worst of them.
+fn workload_lines(rounds: usize, epochs: usize, lines: &mut Vec<Line>) {
+    let mut each = Vec::new();
+    for w in OTHER_WORKLOADS {
+        let [a, b, c, d] = w.widths;
+        let sizes = format!("{a}-{b}-{c}-{d}, batch {}", w.batch);
+        training_lines::<f64>(&format!("f64 ({sizes})"), w, rounds, epochs, &mut each);
+        training_lines::<f32>(&format!("f32 ({sizes})"), w, rounds, epochs, &mut each);
+    }
+    for l in &each {
+        println!("  {}: {:.3} ({})", l.measure, l.value, l.target);
+    }
+    let same = " with the library's products";
+    let n = 2 * OTHER_WORKLOADS.len();
+    for (what, with_same, limit, target) in [
+        ("training step", false, 1.05, "<= 1.05"),
+        ("training step", true, 1.05, "<= 1.05"),
+        ("gradient", false, 1.05, "<= 1.05"),
+        ("gradient", true, 1.05, "<= 1.05"),
+        ("backward / forward", false, 2.2, "<= 2.2"),
+    ] {
+        let values: Vec<f64> = each
+            .iter()
+            .filter(|l| l.measure.starts_with(what) && l.measure.ends_with(same) == with_same)
+            .map(|l| l.value)
+            .collect();
+        let worst = values.iter().copied().fold(f64::NAN, f64::max);
+        let against = if what == "backward / forward" {
+            "library".to_string()
+        } else {
+            format!(
+                "library / hand-written{}",
+                if with_same { same } else { "" }
+            )
+        };
+        // The median says how the library does at other sizes; the worst
+        // also carries the noise of one measure in `n`.
+        if what != "backward / forward" {
+            lines.push(at_most(
+                format!("{what}, {against}, median of {n} other networks, batches and types"),
+                median(values),
+                limit,
+                target,
+            ));
+        }
+        lines.push(at_most(
+            format!("{what}, {against}, worst of {n} other networks, batches and types"),
+            worst,
+            limit,
+            target,
+        ));
+    }
 }
 
 /// Runs this program again and reads its answer. With `one_core`, one
@@ -648,9 +751,9 @@ fn sharded_speed_up(rounds: usize, one_core: bool) -> f64 {
 fn measure_shards(rounds: usize) {
     let model = library_model();
     let batch = 1024;
-    let (x, t) = data::<f64>(2 * batch);
+    let (x, t) = data::<f64>(WIDTHS, 2 * batch);
     let examples = Examples::new(x, t).unwrap();
-    let p0: Params<f64> = start();
+    let p0: Params<f64> = start(WIDTHS);
     // Five epochs of two steps each, so that the first step's filling of
     // buffers (and the start of the shards' threads) weighs little.
     let training = Training::new(5, batch).unwrap();
@@ -716,11 +819,19 @@ fn main() {
         }
         return;
     }
+    if args.iter().any(|a| a == "workloads") {
+        let mut lines = Vec::new();
+        workload_lines(7, 4, &mut lines);
+        for l in &lines {
+            println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
+        }
+        return;
+    }
     if args.iter().any(|a| a == "training") {
         // Only the training lines, as the full run measures them.
         let mut lines = Vec::new();
-        training_lines::<f64>("f64", 7, 4, &mut lines);
-        training_lines::<f32>("f32", 7, 4, &mut lines);
+        training_lines::<f64>("f64", MEASURED, 7, 4, &mut lines);
+        training_lines::<f32>("f32", MEASURED, 7, 4, &mut lines);
         for l in &lines {
             println!("{}\t{:.3}\t{}", l.measure, l.value, l.target);
         }
@@ -737,8 +848,10 @@ fn main() {
         WIDTHS[0], WIDTHS[1], WIDTHS[2], WIDTHS[3]
     );
     let mut lines = Vec::new();
-    training_lines::<f64>("f64", rounds, epochs, &mut lines);
-    training_lines::<f32>("f32", rounds, epochs, &mut lines);
+    training_lines::<f64>("f64", MEASURED, rounds, epochs, &mut lines);
+    training_lines::<f32>("f32", MEASURED, rounds, epochs, &mut lines);
+    println!("other networks and batches:");
+    workload_lines(rounds, epochs, &mut lines);
     chain_lines(rounds, &mut lines);
     second_order_lines(rounds, &mut lines);
     bits_lines(rounds, &mut lines);

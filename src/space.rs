@@ -687,10 +687,16 @@ impl<T: Real, D: Dimension + 'static> Euclidean<T> for Array<T, D> {
 /// so that the compiler can vectorise it (the training loop runs it over
 /// every gradient and every set of parameters).
 pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
+    // `v - v` is 0 for a finite `v` and NaN for an infinity or a NaN: two
+    // vector instructions per lane group, where `is_finite` takes four
+    // (checks of gradients were a tenth of a small network's step).
+    #[allow(clippy::eq_op)]
     let check = |values: &[T]| {
-        values
-            .chunks(256)
-            .all(|block| block.iter().fold(true, |ok, v| ok & v.is_finite()))
+        values.chunks(256).all(|block| {
+            block
+                .iter()
+                .fold(true, |ok, &v| ok & ((v - v) == T::zero()))
+        })
     };
     if crate::cores::standing_by() {
         return crate::cores::over_halves(values.len(), values, &check, |a, b| a & b);

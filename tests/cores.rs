@@ -163,3 +163,56 @@ fn concurrent_training_runs_share_the_pool_and_agree() {
     // times.
     assert_ne!(alone[0], alone[1]);
 }
+
+/// Finite values from every range a finite check must let through: zeros
+/// of both signs, subnormals, ordinary values and the largest magnitudes.
+fn finite_value<T: Real + std::fmt::Debug>() -> impl proptest::strategy::Strategy<Value = T> {
+    use proptest::prelude::*;
+    prop_oneof![
+        Just(T::zero()),
+        Just(-T::zero()),
+        Just(T::min_positive_value() / T::from(4.0).unwrap()),
+        Just(T::max_value()),
+        Just(T::min_value()),
+        (-1.0e6..1.0e6f64).prop_map(|v| T::from(v).unwrap()),
+    ]
+}
+
+fn finite_check_finds_what_is_not_finite<T: Real + std::fmt::Debug>(
+    values: Vec<T>,
+    at: usize,
+    which: usize,
+) {
+    let clean = Array1::from(values);
+    assert!(clean.all_finite(), "finite values refused: {clean:?}");
+    let mut bad = clean.clone();
+    let n = bad.len();
+    bad[at % n] = [T::nan(), T::infinity(), T::neg_infinity()][which];
+    assert!(
+        !bad.all_finite(),
+        "{:?} at {} not found",
+        bad[at % n],
+        at % n
+    );
+}
+
+proptest::proptest! {
+    #![proptest_config(proptest::prelude::ProptestConfig::with_cases(64))]
+    // Lengths across the check's blocks of 256 and its vector lanes.
+    #[test]
+    fn the_finite_check_finds_every_non_finite_value_f64(
+        values in proptest::collection::vec(finite_value::<f64>(), 1..700),
+        at in 0..700usize,
+        which in 0..3usize,
+    ) {
+        finite_check_finds_what_is_not_finite(values, at, which);
+    }
+    #[test]
+    fn the_finite_check_finds_every_non_finite_value_f32(
+        values in proptest::collection::vec(finite_value::<f32>(), 1..700),
+        at in 0..700usize,
+        which in 0..3usize,
+    ) {
+        finite_check_finds_what_is_not_finite(values, at, which);
+    }
+}

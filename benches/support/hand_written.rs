@@ -13,10 +13,24 @@ use ndarray::linalg::general_mat_mul;
 use ndarray::{Array1, Array2, ArrayView2, Zip};
 use revdiff::Real;
 
-/// Layer widths of the measured network: 256 -> 256 (tanh) -> 256 (tanh) -> 10.
-pub const WIDTHS: [usize; 4] = [256, 256, 256, 10];
-/// Rows per batch.
-pub const BATCH: usize = 128;
+/// The sizes of a measured network and its batches: layer widths
+/// `w0 -> w1 (tanh) -> w2 (tanh) -> w3`, and rows per batch.
+#[derive(Clone, Copy, Debug)]
+pub struct Workload {
+    pub widths: [usize; 4],
+    pub batch: usize,
+}
+
+/// The workload the targets are set for: 256 -> 256 (tanh) -> 256 (tanh)
+/// -> 10, batches of 128.
+pub const MEASURED: Workload = Workload {
+    widths: [256, 256, 256, 10],
+    batch: 128,
+};
+/// Layer widths of the measured network.
+pub const WIDTHS: [usize; 4] = MEASURED.widths;
+/// Rows per batch of the measured workload.
+pub const BATCH: usize = MEASURED.batch;
 
 /// One affine layer's weights `(out, in)` and bias `(out,)`.
 pub type Layer<T> = (Array2<T>, Array1<T>);
@@ -46,16 +60,17 @@ pub fn library_model() -> Mlp {
 }
 
 /// One library training run: `epochs` epochs of Adam (learning rate `lr`)
-/// on mean squared error, in batches of [`BATCH`] rows.
+/// on mean squared error, in batches of `batch` rows.
 pub fn library_training<T: Real>(
     model: &Mlp,
+    batch: usize,
     epochs: usize,
     start: &Params<T>,
     examples: &revdiff::Examples<T>,
     lr: T,
 ) -> revdiff::Trained<Params<T>, T> {
     let mut adam = revdiff::Adam::new(lr).unwrap();
-    revdiff::Training::new(epochs, BATCH)
+    revdiff::Training::new(epochs, batch)
         .unwrap()
         .run(
             model,
@@ -126,10 +141,11 @@ impl<T: Real> LibraryGradient<T> {
     }
 }
 
-/// Deterministic starting parameters, scaled by `1 / sqrt(fan in)`.
-pub fn start<T: Real>() -> Params<T> {
+/// Deterministic starting parameters for layer widths `widths`, scaled by
+/// `1 / sqrt(fan in)`.
+pub fn start<T: Real>(widths: [usize; 4]) -> Params<T> {
     let layer = |k: usize| -> Layer<T> {
-        let (out, inp) = (WIDTHS[k + 1], WIDTHS[k]);
+        let (out, inp) = (widths[k + 1], widths[k]);
         let scale = 1.0 / (inp as f64).sqrt();
         let w = Array2::from_shape_fn((out, inp), |(i, j)| {
             real::<T>(((i * 31 + j * 17 + k * 7) % 23) as f64 / 11.5 - 1.0) * real::<T>(scale)
@@ -142,12 +158,13 @@ pub fn start<T: Real>() -> Params<T> {
     ((layer(0), layer(1)), layer(2))
 }
 
-/// Deterministic data: `rows` inputs of width 256 and targets of width 10.
-pub fn data<T: Real>(rows: usize) -> (Array2<T>, Array2<T>) {
-    let x = Array2::from_shape_fn((rows, WIDTHS[0]), |(i, j)| {
+/// Deterministic data: `rows` inputs of width `widths[0]` and targets of
+/// width `widths[3]`.
+pub fn data<T: Real>(widths: [usize; 4], rows: usize) -> (Array2<T>, Array2<T>) {
+    let x = Array2::from_shape_fn((rows, widths[0]), |(i, j)| {
         real(((i * 13 + j * 29) % 37) as f64 / 18.5 - 1.0)
     });
-    let t = Array2::from_shape_fn((rows, WIDTHS[3]), |(i, j)| {
+    let t = Array2::from_shape_fn((rows, widths[3]), |(i, j)| {
         real(((i * 7 + j * 3) % 11) as f64 / 11.0)
     });
     (x, t)
@@ -186,9 +203,12 @@ fn mat_mul<T: Real>(
 }
 
 impl<T: Real> Network<T> {
-    pub fn new(p: &Params<T>) -> Self {
+    /// Buffers for batches of `batch` rows, starting from `p` (whose
+    /// shapes give the widths).
+    pub fn new(p: &Params<T>, batch: usize) -> Self {
         let ((l1, l2), l3) = p.clone();
         let params = [l1, l2, l3];
+        let outs = [0, 1, 2].map(|k| params[k].0.nrows());
         let grads = params
             .clone()
             .map(|(w, b)| (Array2::zeros(w.raw_dim()), Array1::zeros(b.len())));
@@ -196,9 +216,9 @@ impl<T: Real> Network<T> {
         Network {
             params,
             grads,
-            acts: [1, 2, 3].map(|k| Array2::zeros((BATCH, WIDTHS[k]))),
-            dacts: [1, 2].map(|k| Array2::zeros((BATCH, WIDTHS[k]))),
-            dy: Array2::zeros((BATCH, WIDTHS[3])),
+            acts: [0, 1, 2].map(|k| Array2::zeros((batch, outs[k]))),
+            dacts: [0, 1].map(|k| Array2::zeros((batch, outs[k]))),
+            dy: Array2::zeros((batch, outs[2])),
             adam_m: vec![T::zero(); n],
             adam_v: vec![T::zero(); n],
             steps: 0,
@@ -209,10 +229,10 @@ impl<T: Real> Network<T> {
     /// The same network with its products through the library's kernel
     /// (`Real::product_into`): what the code costs by hand with the same
     /// products as the library's.
-    pub fn with_library_products(p: &Params<T>) -> Self {
+    pub fn with_library_products(p: &Params<T>, batch: usize) -> Self {
         Network {
             library_products: true,
-            ..Network::new(p)
+            ..Network::new(p, batch)
         }
     }
 
@@ -264,7 +284,7 @@ impl<T: Real> Network<T> {
     fn gradient_pass(&mut self, x: &Array2<T>, targets: Option<&Array2<T>>) -> T {
         let elementwise = targets.is_some();
         self.forward_pass(x, elementwise);
-        let n: T = real((BATCH * WIDTHS[3]) as f64);
+        let n: T = real(self.dy.len() as f64);
         let mut total = T::zero();
         if let Some(t) = targets {
             Zip::from(&mut self.dy)
@@ -352,10 +372,10 @@ impl<T: Real> Network<T> {
 /// Floating-point operations of one training step (matrix products only):
 /// forward 2 n k m per layer, backward twice that (less the first layer's
 /// input change).
-pub fn step_flops() -> f64 {
+pub fn step_flops(w: Workload) -> f64 {
     let mut total = 0.0;
     for k in 0..3 {
-        let per = 2.0 * (BATCH * WIDTHS[k] * WIDTHS[k + 1]) as f64;
+        let per = 2.0 * (w.batch * w.widths[k] * w.widths[k + 1]) as f64;
         total += per * if k == 0 { 2.0 } else { 3.0 };
     }
     total
