@@ -103,22 +103,56 @@ fn elementwise_maps_reuse_their_output_and_read_the_input_again() {
     check(Softmax, &x, &dy);
 }
 
-#[test]
-fn the_mean_squared_error_reusing_passes_give_both_changes() {
-    let y = array![[1.0, 2.0], [0.5, -1.0]];
-    let t = array![[0.0, 2.5], [0.5, 1.0]];
+/// A loss's reusing passes, into one workspace over batches of 3, 2 and 3
+/// rows, give its memo passes' value and both changes, bit for bit.
+fn loss_reuses_and_agrees<L>(loss: L)
+where
+    L: SplitInput<Array2<f64>, Array2<f64>, Output = f64> + std::fmt::Debug,
+{
+    // Logits and targets in [0, 1], some logits far out (the losses'
+    // stable branches); every row a distribution for the cross-entropies.
+    let y = array![[800.0, -2.0, 0.5], [0.25, 1.5, -800.0], [3.0, -0.75, 2.0]];
+    let t = array![[0.5, 0.25, 0.25], [0.0, 1.0, 0.0], [0.2, 0.3, 0.5]];
     let mut work = Workspace::new();
-    let l = *MeanSquaredError.forward_split(&y, &t, &mut work).unwrap();
-    assert_eq!(
-        l,
-        MeanSquaredError.forward(&(y.clone(), t.clone())).unwrap()
+    let (mut dy, mut dt) = (Array2::zeros((0, 0)), Array2::zeros((0, 0)));
+    for rows in [3, 2, 3] {
+        let (y, t) = (
+            y.slice(ndarray::s![..rows, ..]).to_owned(),
+            t.slice(ndarray::s![..rows, ..]).to_owned(),
+        );
+        let value = *loss.forward_split(&y, &t, &mut work).unwrap();
+        let expected = loss.forward(&(y.clone(), t.clone())).unwrap();
+        assert_eq!(value.to_bits(), expected.to_bits(), "{loss:?}: value");
+        loss.backward_split(&y, &t, &mut work, &-1.5, &mut dy, Some(&mut dt))
+            .unwrap();
+        let (ey, et) = loss.backward(&(y.clone(), t.clone()), &-1.5).unwrap();
+        assert_eq!((&dy, &dt), (&ey, &et), "{loss:?}: changes at {rows} rows");
+        // Without the target's change, the prediction's is the same.
+        dy.fill(f64::NAN);
+        loss.backward_split(&y, &t, &mut work, &-1.5, &mut dy, None)
+            .unwrap();
+        assert_eq!(dy, ey, "{loss:?}: prediction change alone");
+    }
+    // A backward pass for predictions of another shape than the kept
+    // forward pass's is refused, not read out of bounds.
+    let other = Array2::zeros((5, 3));
+    let err = loss
+        .backward_split(&other, &other, &mut work, &1.0, &mut dy, None)
+        .unwrap_err();
+    assert!(
+        matches!(err, Error::ShapeMismatch { .. }),
+        "{loss:?}: {err}"
     );
-    let (mut dy, mut dt) = (Array2::zeros((2, 2)), Array2::zeros((2, 2)));
-    MeanSquaredError
-        .backward_split(&y, &t, &mut work, &2.0, &mut dy, Some(&mut dt))
-        .unwrap();
-    let (ey, et) = MeanSquaredError.backward(&(y, t), &2.0).unwrap();
-    assert_eq!((dy, dt), (ey, et));
+}
+
+#[test]
+fn every_loss_reuses_its_buffers_and_agrees_with_its_memo_passes() {
+    loss_reuses_and_agrees(MeanSquaredError);
+    loss_reuses_and_agrees(SquaredError::new());
+    loss_reuses_and_agrees(SquaredError::halved());
+    loss_reuses_and_agrees(LogitCrossEntropy);
+    loss_reuses_and_agrees(LogitBinaryCrossEntropy);
+    loss_reuses_and_agrees(Huber::new(0.5).unwrap());
 }
 
 #[test]

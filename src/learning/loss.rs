@@ -31,7 +31,7 @@ use crate::primitives::pointwise::{logistic, softplus};
 use crate::primitives::{
     Clamp, Dot, ElementReduction, LogSumExp, MulPair, Powi, Softplus, SubPair, dot,
 };
-use crate::space::{Real, same_shape};
+use crate::space::{Real, same_shape, shape_tuple};
 use crate::workspace::{SplitInput, Workspace, reshape_to};
 use ndarray::{Array, Axis, Dimension, Ix1, Zip};
 
@@ -171,15 +171,6 @@ fn real<T: Real>(v: f64) -> T {
     T::from(v).expect("every real type holds small constants")
 }
 
-/// Checks shapes and non-emptiness, and returns `y - t`.
-fn difference<T: Real, D: Dimension + 'static>(
-    operation: &'static str,
-    (y, t): &Pairs<T, D>,
-) -> Result<Array<T, D>> {
-    same_shape(operation, y, t)?;
-    Ok(y - t)
-}
-
 fn nonempty<T, D: Dimension + 'static>(operation: &'static str, y: &Array<T, D>) -> Result<()> {
     if y.is_empty() {
         Err(Error::Empty { operation })
@@ -188,12 +179,134 @@ fn nonempty<T, D: Dimension + 'static>(operation: &'static str, y: &Array<T, D>)
     }
 }
 
-/// The change `(s r dl, -s r dl)` shared by the squared errors and Huber,
-/// where `r` is the kept slope array.
-fn opposite_pair<T: Real, D: Dimension + 'static>(slope: &Array<T, D>, dl: T) -> Pairs<T, D> {
-    let d = slope * dl;
-    let neg = d.mapv(|v| -v);
-    (d, neg)
+/// What a loss keeps from its forward pass: the change of its inputs per
+/// unit change of its value, from which the backward pass scales the change
+/// for `dl`. One array (the prediction's slope `s`, the target's change
+/// being `-s`: the squared errors and Huber) or a pair (both changes: the
+/// cross-entropies).
+trait UnitChange<T: Real, D: Dimension>: Sized + 'static {
+    /// Zeros shaped for a prediction like `y`.
+    fn zeros_like(y: &Array<T, D>) -> Self;
+    /// The kept change of the prediction (its shape is the prediction's).
+    fn shaped(&self) -> &Array<T, D>;
+    /// Whether this was kept for a prediction of `y`'s shape.
+    fn fits(&self, y: &Array<T, D>) -> bool {
+        self.shaped().shape() == y.shape()
+    }
+    /// Overwrites `dy` (and `dt`, when given) with the changes for `dl`;
+    /// both already have the prediction's shape.
+    fn scale_into(&self, dl: T, dy: &mut Array<T, D>, dt: Option<&mut Array<T, D>>);
+}
+
+impl<T: Real, D: Dimension + 'static> UnitChange<T, D> for Array<T, D> {
+    fn zeros_like(y: &Array<T, D>) -> Self {
+        Array::zeros(y.raw_dim())
+    }
+    fn shaped(&self) -> &Array<T, D> {
+        self
+    }
+    fn scale_into(&self, dl: T, dy: &mut Array<T, D>, dt: Option<&mut Array<T, D>>) {
+        Zip::from(&mut *dy).and(self).for_each(|d, &s| *d = s * dl);
+        if let Some(dt) = dt {
+            Zip::from(dt).and(&*dy).for_each(|d, &v| *d = -v);
+        }
+    }
+}
+
+impl<T: Real, D: Dimension + 'static> UnitChange<T, D> for Pairs<T, D> {
+    fn zeros_like(y: &Array<T, D>) -> Self {
+        (Array::zeros(y.raw_dim()), Array::zeros(y.raw_dim()))
+    }
+    fn shaped(&self) -> &Array<T, D> {
+        &self.0
+    }
+    fn scale_into(&self, dl: T, dy: &mut Array<T, D>, dt: Option<&mut Array<T, D>>) {
+        Zip::from(&mut *dy)
+            .and(&self.0)
+            .for_each(|d, &s| *d = s * dl);
+        if let Some(dt) = dt {
+            Zip::from(dt).and(&self.1).for_each(|d, &s| *d = s * dl);
+        }
+    }
+}
+
+/// The forward arithmetic of a loss, shared by its memo passes (into new
+/// arrays) and its reusing passes (into the workspace's): the same numbers
+/// from both, bit for bit.
+trait LossPasses<T: Real, D: Dimension> {
+    /// What the forward pass keeps (the loss's memo).
+    type Kept: UnitChange<T, D>;
+    /// Checks the inputs, overwrites `kept` (shaped for `y` already) and
+    /// returns the loss.
+    fn fill(&self, y: &Array<T, D>, t: &Array<T, D>, kept: &mut Self::Kept) -> Result<T>;
+}
+
+/// `Map` and `SplitInput` for losses from their [`LossPasses`]: the reusing
+/// passes keep the changes per unit in the workspace and write the
+/// prediction change into the caller's array, so a training step allocates
+/// nothing for its loss after the first.
+macro_rules! loss_passes {
+    ($($loss:ty => $kept:ty),*) => {$(
+        impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for $loss {
+            type Output = T;
+            type Memo = $kept;
+            fn forward_memo(&self, (y, t): &Pairs<T, D>) -> Result<(T, Self::Memo)> {
+                let mut kept = UnitChange::zeros_like(y);
+                let value = self.fill(y, t, &mut kept)?;
+                Ok((value, kept))
+            }
+            fn backward_memo(&self, kept: &Self::Memo, dl: &T) -> Result<Pairs<T, D>> {
+                let (mut dy, mut dt) = <Pairs<T, D> as UnitChange<T, D>>::zeros_like(kept.shaped());
+                kept.scale_into(*dl, &mut dy, Some(&mut dt));
+                Ok((dy, dt))
+            }
+        }
+
+        impl<T: Real, D: Dimension + 'static> SplitInput<Array<T, D>, Array<T, D>> for $loss {
+            fn forward_split<'w>(
+                &self,
+                y: &Array<T, D>,
+                t: &Array<T, D>,
+                work: &'w mut Workspace,
+            ) -> Result<&'w T> {
+                let kept = work.state_or_insert_with(|| <$kept as UnitChange<T, D>>::zeros_like(y));
+                if !kept.fits(y) {
+                    *kept = UnitChange::zeros_like(y);
+                }
+                let value = self.fill(y, t, kept)?;
+                work.put_output(value);
+                work.output::<T>()
+            }
+            fn backward_split(
+                &self,
+                y: &Array<T, D>,
+                t: &Array<T, D>,
+                work: &mut Workspace,
+                dl: &T,
+                dy: &mut Array<T, D>,
+                dt: Option<&mut Array<T, D>>,
+            ) -> Result<()> {
+                let kept = work.state::<$kept>()?;
+                if !kept.fits(y) {
+                    return Err(Error::shape(
+                        "loss (predictions against the kept forward pass)",
+                        shape_tuple(kept.shaped().shape()),
+                        shape_tuple(y.shape()),
+                    ));
+                }
+                // Both changes have the prediction's shape, which the
+                // forward pass found equal to the targets'.
+                let _ = t;
+                reshape_to(dy, y);
+                let dt = dt.map(|dt| {
+                    reshape_to(dt, y);
+                    dt
+                });
+                kept.scale_into(*dl, dy, dt);
+                Ok(())
+            }
+        }
+    )*};
 }
 
 /// `(y, t) -> c |y - t|^2` as a composite.
@@ -272,113 +385,69 @@ impl<T: Real> Huber<T> {
     }
 }
 
-impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for SquaredError {
-    type Output = T;
-    type Memo = Array<T, D>;
-    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
-        let r = difference("squared error", input)?;
-        let value = r.fold(T::zero(), |acc, &v| acc + v * v) * self.factor::<T>();
-        Ok((value, r * (real::<T>(2.0) * self.factor::<T>())))
-    }
-    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
-        Ok(opposite_pair(slope, *dl))
+loss_passes!(
+    SquaredError => Array<T, D>,
+    MeanSquaredError => Array<T, D>,
+    LogitCrossEntropy => Pairs<T, D>,
+    LogitBinaryCrossEntropy => Pairs<T, D>,
+    Huber<T> => Array<T, D>
+);
+
+/// Writes `slope(y_i - t_i)` into `kept` and returns the sum of
+/// `value(y_i - t_i)` (in logical order), after checking the shapes: the
+/// squared errors and Huber.
+fn residual_passes<T: Real, D: Dimension + 'static>(
+    operation: &'static str,
+    y: &Array<T, D>,
+    t: &Array<T, D>,
+    kept: &mut Array<T, D>,
+    value: impl Fn(T) -> T,
+    slope: impl Fn(T) -> T,
+) -> Result<T> {
+    same_shape(operation, y, t)?;
+    let mut total = T::zero();
+    Zip::from(kept).and(y).and(t).for_each(|s, &a, &b| {
+        let r = a - b;
+        total = total + value(r);
+        *s = slope(r);
+    });
+    Ok(total)
+}
+
+impl<T: Real, D: Dimension + 'static> LossPasses<T, D> for SquaredError {
+    /// The slope `2c (y - t)`.
+    type Kept = Array<T, D>;
+    fn fill(&self, y: &Array<T, D>, t: &Array<T, D>, kept: &mut Array<T, D>) -> Result<T> {
+        let c = self.factor::<T>();
+        let twice = real::<T>(2.0) * c;
+        let sum = residual_passes("squared error", y, t, kept, |r| r * r, |r| r * twice)?;
+        Ok(sum * c)
     }
 }
 
-impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for MeanSquaredError {
-    type Output = T;
-    type Memo = Array<T, D>;
-    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
-        let r = difference("mean squared error", input)?;
-        nonempty("mean squared error", &r)?;
-        let n: T = real(r.len() as f64);
-        let value = r.fold(T::zero(), |acc, &v| acc + v * v) / n;
-        Ok((value, r * (real::<T>(2.0) / n)))
-    }
-    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
-        Ok(opposite_pair(slope, *dl))
-    }
-}
-
-/// The residuals go into a buffer kept in the workspace, and the
-/// prediction change into the caller's: no allocation after the first call,
-/// and the same arithmetic, in the same order, as the memo passes.
-impl<T: Real, D: Dimension + 'static> SplitInput<Array<T, D>, Array<T, D>> for MeanSquaredError {
-    fn forward_split<'w>(
-        &self,
-        y: &Array<T, D>,
-        t: &Array<T, D>,
-        work: &'w mut Workspace,
-    ) -> Result<&'w T> {
+impl<T: Real, D: Dimension + 'static> LossPasses<T, D> for MeanSquaredError {
+    /// The slope `2 (y - t) / n`.
+    type Kept = Array<T, D>;
+    fn fill(&self, y: &Array<T, D>, t: &Array<T, D>, kept: &mut Array<T, D>) -> Result<T> {
         let operation = "mean squared error";
         same_shape(operation, y, t)?;
         nonempty(operation, y)?;
-        let r = work.state_or_insert_with(|| y.clone());
-        if r.raw_dim() != y.raw_dim() {
-            *r = y.clone();
-        }
-        Zip::from(&mut *r)
-            .and(y)
-            .and(t)
-            .for_each(|r, &a, &b| *r = a - b);
-        let n: T = real(r.len() as f64);
-        let value = r.fold(T::zero(), |acc, &v| acc + v * v) / n;
-        work.put_output(value);
-        work.output::<T>()
-    }
-    fn backward_split(
-        &self,
-        y: &Array<T, D>,
-        t: &Array<T, D>,
-        work: &mut Workspace,
-        dl: &T,
-        dy: &mut Array<T, D>,
-        dt: Option<&mut Array<T, D>>,
-    ) -> Result<()> {
-        let r = work.state::<Array<T, D>>()?;
-        same_shape(
-            "mean squared error (predictions against the kept forward pass)",
-            y,
-            r,
-        )?;
-        let (n, dl): (T, T) = (real(r.len() as f64), *dl);
+        let n: T = real(y.len() as f64);
         let c = real::<T>(2.0) / n;
-        reshape_to(dy, y);
-        Zip::from(&mut *dy).and(r).for_each(|d, &r| *d = r * c * dl);
-        if let Some(dt) = dt {
-            reshape_to(dt, t);
-            Zip::from(dt).and(&*dy).for_each(|d, &v| *d = -v);
-        }
-        Ok(())
+        let sum = residual_passes(operation, y, t, kept, |r| r * r, |r| r * c)?;
+        Ok(sum / n)
     }
 }
 
-/// The other losses keep their memo passes.
-macro_rules! split_by_memo {
-    ($($loss:ty),*) => {$(
-        impl<T: Real, D: Dimension + 'static> SplitInput<Array<T, D>, Array<T, D>> for $loss {}
-    )*};
-}
-split_by_memo!(
-    SquaredError,
-    LogitCrossEntropy,
-    LogitBinaryCrossEntropy,
-    Huber<T>
-);
-
-impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitCrossEntropy {
-    type Output = T;
+impl<T: Real, D: Dimension + 'static> LossPasses<T, D> for LogitCrossEntropy {
     /// `(sum(t) softmax(z) - t, logsumexp(z) - z)` per row: the change per unit `dl`.
-    type Memo = Pairs<T, D>;
-    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
-        let (z, t) = input;
+    type Kept = Pairs<T, D>;
+    fn fill(&self, z: &Array<T, D>, t: &Array<T, D>, (dz, dt): &mut Pairs<T, D>) -> Result<T> {
         same_shape("cross-entropy on logits", z, t)?;
         nonempty("cross-entropy on logits", z)?;
         // Each lane along the last axis is one example's logits: a vector is
         // one example, the rows of a matrix are a batch, whose losses add.
         let last = Axis(z.ndim() - 1);
-        let mut dz = Array::zeros(z.raw_dim());
-        let mut dt = Array::zeros(z.raw_dim());
         let mut value = T::zero();
         for (((zl, tl), mut dzl), mut dtl) in z
             .lanes(last)
@@ -403,52 +472,43 @@ impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitCrossEntropy {
                 .and(&zl)
                 .for_each(|d, &zi| *d = lse - zi);
         }
-        Ok((value, (dz, dt)))
-    }
-    fn backward_memo(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
-        Ok((dz * *dl, dt * *dl))
+        Ok(value)
     }
 }
 
-impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for LogitBinaryCrossEntropy {
-    type Output = T;
+impl<T: Real, D: Dimension + 'static> LossPasses<T, D> for LogitBinaryCrossEntropy {
     /// `(sigmoid(z) - t, -z)`: the change per unit `dl`.
-    type Memo = Pairs<T, D>;
-    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Pairs<T, D>)> {
-        let (z, t) = input;
+    type Kept = Pairs<T, D>;
+    fn fill(&self, z: &Array<T, D>, t: &Array<T, D>, (dz, dt): &mut Pairs<T, D>) -> Result<T> {
         same_shape("binary cross-entropy on logits", z, t)?;
-        let value = Zip::from(z)
+        let mut value = T::zero();
+        Zip::from(dz)
+            .and(dt)
+            .and(z)
             .and(t)
-            .fold(T::zero(), |acc, &zi, &ti| acc + softplus(zi) - ti * zi);
-        let dz = Zip::from(z)
-            .and(t)
-            .map_collect(|&zi, &ti| logistic(zi) - ti);
-        Ok((value, (dz, z.mapv(|v| -v))))
-    }
-    fn backward_memo(&self, (dz, dt): &Pairs<T, D>, dl: &T) -> Result<Pairs<T, D>> {
-        Ok((dz * *dl, dt * *dl))
+            .for_each(|dz, dt, &zi, &ti| {
+                value = value + softplus(zi) - ti * zi;
+                *dz = logistic(zi) - ti;
+                *dt = -zi;
+            });
+        Ok(value)
     }
 }
 
-impl<T: Real, D: Dimension + 'static> Map<Pairs<T, D>> for Huber<T> {
-    type Output = T;
+impl<T: Real, D: Dimension + 'static> LossPasses<T, D> for Huber<T> {
     /// The clamped difference.
-    type Memo = Array<T, D>;
-    fn forward_memo(&self, input: &Pairs<T, D>) -> Result<(T, Array<T, D>)> {
-        let r = difference("huber loss", input)?;
+    type Kept = Array<T, D>;
+    fn fill(&self, y: &Array<T, D>, t: &Array<T, D>, kept: &mut Array<T, D>) -> Result<T> {
         let d = self.delta;
         let half: T = real(0.5);
-        let value = r.fold(T::zero(), |acc, &v| {
-            acc + if v.abs() <= d {
-                half * v * v
+        let value = |r: T| {
+            if r.abs() <= d {
+                half * r * r
             } else {
-                d * (v.abs() - half * d)
+                d * (r.abs() - half * d)
             }
-        });
-        Ok((value, r.mapv(|v| v.max(-d).min(d))))
-    }
-    fn backward_memo(&self, slope: &Array<T, D>, dl: &T) -> Result<Pairs<T, D>> {
-        Ok(opposite_pair(slope, *dl))
+        };
+        residual_passes("huber loss", y, t, kept, value, |r| r.max(-d).min(d))
     }
 }
 

@@ -1,0 +1,161 @@
+//! A training step allocates nothing once its buffers are filled, whatever
+//! the loss, the optimiser and the kind of model (a static composite or a
+//! model assembled at run time). One test only: the counting allocator
+//! counts for the whole process.
+
+use ndarray::{Array1, Array2};
+use revdiff::*;
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::sync::atomic::{AtomicUsize, Ordering};
+
+struct Counting;
+static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
+
+// A global allocator needs `unsafe impl`; this one only forwards to the
+// system allocator and counts the allocations.
+#[allow(unsafe_code)]
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        unsafe { System.dealloc(ptr, layout) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
+/// Allocations per step after the first epoch, counted between the
+/// observer's calls at the end of the first epoch and at the last step of
+/// a run of 5 epochs of 4 steps (what the run sets up before its first
+/// step, and rayon's own bookkeeping for starting a run, fall outside).
+fn per_step<P, M, L, O>(model: &M, loss: &L, optimiser: impl Fn() -> O, start: &P) -> f64
+where
+    P: Euclidean<f64> + Send,
+    M: SplitInput<P, Array2<f64>, Output = Array2<f64>> + Sync,
+    L: SplitInput<Array2<f64>, Array2<f64>, Output = f64> + Sync,
+    O: Optimiser<f64> + Send,
+{
+    let x = Array2::from_shape_fn((32, 5), |(i, j)| ((i * 7 + j * 3) % 11) as f64 / 11.0 - 0.5);
+    // Rows that are distributions, for the cross-entropies.
+    let t = Array2::from_shape_fn((32, 3), |(i, j)| [0.2, 0.3, 0.5][(i + j) % 3]);
+    let data = Examples::new(x, t).unwrap();
+    let mut seen = Vec::with_capacity(20);
+    let mut o = optimiser();
+    let run = Training::new(5, 8)
+        .unwrap()
+        .run(model, loss, &mut o, start.clone(), &data, |_| {
+            seen.push(ALLOCATIONS.load(Ordering::SeqCst));
+        })
+        .unwrap();
+    assert!(run.epoch_losses.iter().all(|l| l.is_finite()));
+    assert_eq!(seen.len(), 20, "one observer call per step");
+    (seen[19] - seen[3]) as f64 / 16.0
+}
+
+fn each_optimiser<P, M, L>(what: &str, model: &M, loss: &L, start: &P)
+where
+    P: Euclidean<f64> + Send,
+    M: SplitInput<P, Array2<f64>, Output = Array2<f64>> + Sync,
+    L: SplitInput<Array2<f64>, Array2<f64>, Output = f64> + Sync,
+{
+    let counts = [
+        (
+            "gradient descent",
+            per_step(model, loss, || GradientDescent::new(0.01).unwrap(), start),
+        ),
+        (
+            "momentum",
+            per_step(model, loss, || Momentum::new(0.01, 0.9).unwrap(), start),
+        ),
+        (
+            "Nesterov",
+            per_step(model, loss, || Nesterov::new(0.01, 0.9).unwrap(), start),
+        ),
+        (
+            "Adagrad",
+            per_step(model, loss, || Adagrad::new(0.01).unwrap(), start),
+        ),
+        (
+            "RMSProp",
+            per_step(model, loss, || RmsProp::new(0.01).unwrap(), start),
+        ),
+        (
+            "Adam",
+            per_step(model, loss, || Adam::new(0.01).unwrap(), start),
+        ),
+    ];
+    for (optimiser, count) in counts {
+        assert_eq!(count, 0.0, "{what}, {optimiser}: allocations per step");
+    }
+}
+
+fn each_loss<P, M>(what: &str, model: &M, start: &P)
+where
+    P: Euclidean<f64> + Send,
+    M: SplitInput<P, Array2<f64>, Output = Array2<f64>> + Sync,
+{
+    each_optimiser(
+        &format!("{what}, mean squared error"),
+        model,
+        &MeanSquaredError,
+        start,
+    );
+    each_optimiser(
+        &format!("{what}, squared error"),
+        model,
+        &SquaredError::halved(),
+        start,
+    );
+    each_optimiser(
+        &format!("{what}, cross-entropy"),
+        model,
+        &LogitCrossEntropy,
+        start,
+    );
+    let binary = &LogitBinaryCrossEntropy;
+    each_optimiser(
+        &format!("{what}, binary cross-entropy"),
+        model,
+        binary,
+        start,
+    );
+    each_optimiser(
+        &format!("{what}, Huber"),
+        model,
+        &Huber::new(0.5).unwrap(),
+        start,
+    );
+}
+
+#[test]
+fn training_steps_allocate_nothing_after_the_first() {
+    let layer = |out: usize, inp: usize| {
+        let w = Array2::from_shape_fn((out, inp), |(i, j)| ((i * 3 + j) % 5) as f64 * 0.1 - 0.2);
+        (w, Array1::zeros(out))
+    };
+    let fixed = Affine
+        .then(Relu)
+        .then_parametrised(Affine.then(Sigmoid))
+        .then_parametrised(Affine);
+    let start = ((layer(8, 5), layer(8, 8)), layer(3, 8));
+    each_loss("static model", &fixed, &start);
+
+    let assembled = Layers::<f64>::new(5)
+        .unwrap()
+        .affine(8)
+        .unwrap()
+        .elementwise("tanh", Tanh)
+        .affine(8)
+        .unwrap()
+        .elementwise("softplus", Softplus)
+        .affine(3)
+        .unwrap();
+    each_loss(
+        "run-time model",
+        &assembled,
+        &assembled.initial_parameters(3),
+    );
+}
