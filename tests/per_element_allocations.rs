@@ -5,27 +5,9 @@
 
 use ndarray::{ArrayD, IxDyn};
 use revdiff::{Chain, Compose, Exp, Map, Sin, Tanh, Workspace};
-use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering};
-
-struct Counting;
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
-// A global allocator needs `unsafe impl`; this one only forwards to the
-// system allocator and counts the allocations.
-#[allow(unsafe_code)]
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        unsafe { System.alloc(layout) }
-    }
-    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
-        unsafe { System.dealloc(ptr, layout) }
-    }
-}
-
-#[global_allocator]
-static GLOBAL: Counting = Counting;
+#[path = "common/allocation_count.rs"]
+mod allocation_count;
+use allocation_count::allocations;
 
 #[test]
 fn reusing_passes_allocate_nothing_after_the_first_call() {
@@ -47,25 +29,22 @@ fn reusing_passes_allocate_nothing_after_the_first_call() {
     chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
     let first = dx.clone();
 
-    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    let before = allocations();
     for _ in 0..5 {
         chain.forward_reusing(&x, &mut work).unwrap();
         chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
     }
-    let allocations = ALLOCATIONS.load(Ordering::SeqCst) - before;
-    assert_eq!(allocations, 0, "allocations in five reusing pass pairs");
+    let made = allocations() - before;
+    assert_eq!(made, 0, "allocations in five reusing pass pairs");
     assert_eq!(dx, first);
 
     // The one-shot backward pass keeps its workspace on the thread: after
     // its first call, the array it returns is its only allocation.
     assert_eq!(chain.backward(&x, &dy).unwrap(), first);
-    let before = ALLOCATIONS.load(Ordering::SeqCst);
+    let before = allocations();
     for _ in 0..5 {
         assert_eq!(chain.backward(&x, &dy).unwrap(), first);
     }
-    let allocations = ALLOCATIONS.load(Ordering::SeqCst) - before;
-    assert_eq!(
-        allocations, 5,
-        "allocations in five one-shot backward passes"
-    );
+    let made = allocations() - before;
+    assert_eq!(made, 5, "allocations in five one-shot backward passes");
 }

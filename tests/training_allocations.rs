@@ -5,27 +5,9 @@
 
 use ndarray::{Array1, Array2};
 use revdiff::*;
-use std::alloc::{GlobalAlloc, Layout, System};
-use std::sync::atomic::{AtomicUsize, Ordering};
-
-struct Counting;
-static ALLOCATIONS: AtomicUsize = AtomicUsize::new(0);
-
-// A global allocator needs `unsafe impl`; this one only forwards to the
-// system allocator and counts the allocations.
-#[allow(unsafe_code)]
-unsafe impl GlobalAlloc for Counting {
-    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
-        ALLOCATIONS.fetch_add(1, Ordering::SeqCst);
-        unsafe { System.alloc(layout) }
-    }
-    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
-        unsafe { System.dealloc(ptr, layout) }
-    }
-}
-
-#[global_allocator]
-static GLOBAL: Counting = Counting;
+#[path = "common/allocation_count.rs"]
+mod allocation_count;
+use allocation_count::allocations;
 
 /// Allocations per step after the first epoch, counted between the
 /// observer's calls at the end of the first epoch and at the last step of
@@ -47,7 +29,7 @@ where
     let run = Training::new(5, 8)
         .unwrap()
         .run(model, loss, &mut o, start.clone(), &data, |_| {
-            seen.push(ALLOCATIONS.load(Ordering::SeqCst));
+            seen.push(allocations());
         })
         .unwrap();
     assert!(run.epoch_losses.iter().all(|l| l.is_finite()));
