@@ -903,6 +903,44 @@ fn early_stopping_ends_the_run_and_returns_the_best_validation_parameters() {
     );
 }
 
+#[test]
+fn the_validation_loss_is_the_mean_loss_of_the_held_out_rows() {
+    // Forty copies of one example: whichever rows are held out (ten, in
+    // batches of 3, 3, 3 and 1, whose losses are weighted by their row
+    // counts), their mean loss is that example's loss at the epoch's
+    // parameters, computed here on its own.
+    let x = Array2::from_elem((40, 2), 0.5);
+    let t = Array2::from_elem((40, 1), 2.0);
+    let data = Examples::new(x, t).unwrap();
+    let mut seen = Vec::new();
+    Training::new(4, 3)
+        .unwrap()
+        .stop_early(0.25, 10)
+        .unwrap()
+        .run(
+            &Affine,
+            &MeanSquaredError,
+            &mut GradientDescent::new(0.01).unwrap(),
+            (array![[0.1, -0.3]], array![0.2]),
+            &data,
+            |p| {
+                if let Some(v) = p.validation_loss {
+                    seen.push((v, p.parameters.clone()));
+                }
+            },
+        )
+        .unwrap();
+    assert_eq!(seen.len(), 4);
+    for (v, (w, b)) in seen {
+        let y: f64 = w[[0, 0]] * 0.5 + w[[0, 1]] * 0.5 + b[0];
+        let expected = (y - 2.0) * (y - 2.0);
+        assert!(
+            (v - expected).abs() <= 1e-12 * expected,
+            "{v} against {expected}"
+        );
+    }
+}
+
 // ---------------------------------------------------------------- least squares
 
 /// ((b0, b1), x) -> b0 + b1 x.

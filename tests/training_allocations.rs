@@ -1,6 +1,7 @@
 //! A training step allocates nothing once its buffers are filled, whatever
 //! the loss, the optimiser and the kind of model (a static composite or a
-//! model assembled at run time). One test only: the counting allocator
+//! model assembled at run time), with or without held-out rows whose loss
+//! ends every epoch. One test only: the counting allocator
 //! counts for the whole process.
 
 use ndarray::{Array1, Array2};
@@ -9,11 +10,19 @@ use revdiff::*;
 mod allocation_count;
 use allocation_count::allocations;
 
-/// Allocations per step after the first epoch, counted between the
-/// observer's calls at the end of the first epoch and at the last step of
-/// a run of 5 epochs of 4 steps (what the run sets up before its first
-/// step, and rayon's own bookkeeping for starting a run, fall outside).
-fn per_step<P, M, L, O>(model: &M, loss: &L, optimiser: impl Fn() -> O, start: &P) -> f64
+/// Allocations per step after the first two epochs, counted between the
+/// observer's calls at the end of the second epoch and at the last step of
+/// a run of 5 epochs in batches of 8 rows (what the run sets up before its
+/// first step, and rayon's own bookkeeping for starting a run, fall
+/// outside). With `hold_out`, a quarter of the rows are held out for early
+/// stopping, and the end of every epoch computes their loss.
+fn per_step<P, M, L, O>(
+    model: &M,
+    loss: &L,
+    optimiser: impl Fn() -> O,
+    start: &P,
+    hold_out: bool,
+) -> f64
 where
     P: Euclidean<f64> + Send,
     M: SplitInput<P, Array2<f64>, Output = Array2<f64>> + Sync,
@@ -26,15 +35,25 @@ where
     let data = Examples::new(x, t).unwrap();
     let mut seen = Vec::with_capacity(20);
     let mut o = optimiser();
-    let run = Training::new(5, 8)
-        .unwrap()
+    let mut training = Training::new(5, 8).unwrap();
+    if hold_out {
+        // A stall longer than the run: it runs all 5 epochs.
+        training = training.stop_early(0.25, 10).unwrap();
+    }
+    let run = training
         .run(model, loss, &mut o, start.clone(), &data, |_| {
             seen.push(allocations());
         })
         .unwrap();
     assert!(run.epoch_losses.iter().all(|l| l.is_finite()));
-    assert_eq!(seen.len(), 20, "one observer call per step");
-    (seen[19] - seen[3]) as f64 / 16.0
+    assert_eq!(run.validation_losses.len(), if hold_out { 5 } else { 0 });
+    let per_epoch = if hold_out { 3 } else { 4 };
+    assert_eq!(seen.len(), 5 * per_epoch, "one observer call per step");
+    // From the observer's call at the end of the second epoch: the end of
+    // the first, after that call, makes the kept copy of the best
+    // parameters.
+    let counted = seen.len() - 2 * per_epoch;
+    (seen[seen.len() - 1] - seen[2 * per_epoch - 1]) as f64 / counted as f64
 }
 
 fn each_optimiser<P, M, L>(what: &str, model: &M, loss: &L, start: &P)
@@ -46,27 +65,49 @@ where
     let counts = [
         (
             "gradient descent",
-            per_step(model, loss, || GradientDescent::new(0.01).unwrap(), start),
+            per_step(
+                model,
+                loss,
+                || GradientDescent::new(0.01).unwrap(),
+                start,
+                false,
+            ),
         ),
         (
             "momentum",
-            per_step(model, loss, || Momentum::new(0.01, 0.9).unwrap(), start),
+            per_step(
+                model,
+                loss,
+                || Momentum::new(0.01, 0.9).unwrap(),
+                start,
+                false,
+            ),
         ),
         (
             "Nesterov",
-            per_step(model, loss, || Nesterov::new(0.01, 0.9).unwrap(), start),
+            per_step(
+                model,
+                loss,
+                || Nesterov::new(0.01, 0.9).unwrap(),
+                start,
+                false,
+            ),
         ),
         (
             "Adagrad",
-            per_step(model, loss, || Adagrad::new(0.01).unwrap(), start),
+            per_step(model, loss, || Adagrad::new(0.01).unwrap(), start, false),
         ),
         (
             "RMSProp",
-            per_step(model, loss, || RmsProp::new(0.01).unwrap(), start),
+            per_step(model, loss, || RmsProp::new(0.01).unwrap(), start, false),
         ),
         (
             "Adam",
-            per_step(model, loss, || Adam::new(0.01).unwrap(), start),
+            per_step(model, loss, || Adam::new(0.01).unwrap(), start, false),
+        ),
+        (
+            "Adam, with held-out rows",
+            per_step(model, loss, || Adam::new(0.01).unwrap(), start, true),
         ),
     ];
     for (optimiser, count) in counts {

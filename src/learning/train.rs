@@ -607,8 +607,8 @@ impl Training {
         T: Real,
         P: Euclidean<T>,
         B: Space,
-        M: Map<(P, Array2<T>), Output = B>,
-        L: Map<(B, Array2<T>), Output = T>,
+        M: SplitInput<P, Array2<T>, Output = B>,
+        L: SplitInput<B, Array2<T>, Output = T>,
         O: Optimiser<T>,
         V: ObserverVerdict,
     {
@@ -617,13 +617,23 @@ impl Training {
         let kept_start = start.clone();
         let mut epoch_snapshot = start.clone();
         let mut batch = Batch::new(train);
+        // The held-out rows' buffers, kept from epoch to epoch.
+        let mut held_out = validation.map(|valid| {
+            let rows: Vec<usize> = (0..valid.len()).collect();
+            (
+                Batch::new(valid),
+                Array2::zeros((0, valid.inputs.ncols())),
+                rows,
+            )
+        });
         // The gradient's buffer, overwritten every step.
         let mut grad = start.zero_like();
         let mut input: (P, Array2<T>) = (start, Array2::zeros((0, train.inputs.ncols())));
         let mut order: Vec<usize> = (0..train.len()).collect();
         let mut steps_taken = 0;
         let mut epoch_losses = Vec::with_capacity(self.epochs);
-        let mut validation_losses = Vec::new();
+        let mut validation_losses =
+            Vec::with_capacity(if validation.is_some() { self.epochs } else { 0 });
         let mut best: Option<(T, P)> = None;
         let mut since_best = 0;
         let mut stopped_early = false;
@@ -687,8 +697,11 @@ impl Training {
 
                 let epoch_finished = b + 1 == batches;
                 let mut validation_loss = None;
-                if let (true, Some(valid)) = (epoch_finished, validation) {
-                    match mean_loss(model, loss, &input.0, valid, self.batch_size) {
+                if let (true, Some(valid), Some((buffers, inputs, rows))) =
+                    (epoch_finished, validation, held_out.as_mut())
+                {
+                    let size = self.batch_size;
+                    match buffers.mean_loss(model, loss, &input.0, valid, rows, size, inputs) {
                         Ok(v) if v.is_finite() => validation_loss = Some(v),
                         Ok(_) => return Err(fail(diverged("validation loss"), input, false)),
                         Err(e) => return Err(fail(e, input, false)),
@@ -707,7 +720,18 @@ impl Training {
                 if let Some(v) = validation_loss {
                     validation_losses.push(v);
                     if best.as_ref().is_none_or(|(b, _)| v < *b) {
-                        best = Some((v, input.0.clone()));
+                        // Into the kept copy when there is one: a copy,
+                        // not an allocation, at every improvement.
+                        let copied = match &mut best {
+                            Some((b, p)) => {
+                                *b = v;
+                                p.copy_from(&input.0).is_ok()
+                            }
+                            None => false,
+                        };
+                        if !copied {
+                            best = Some((v, input.0.clone()));
+                        }
                         since_best = 0;
                     } else {
                         since_best += 1;
@@ -864,6 +888,38 @@ impl<T: Real> Batch<T> {
         loss.backward_split(y, &self.targets, &mut self.loss_work, &T::one(), dy, None)?;
         model.backward_split(p, x, &mut self.model_work, dy, gradient, None)?;
         Ok(l)
+    }
+
+    /// The mean loss per row over `rows` of `data` (all of them, in order),
+    /// in batches of `batch_size` gathered into `inputs`: each batch's loss
+    /// weighted by its row count, as [`mean_loss`] computes it, through this
+    /// batch's workspaces (forward passes only) rather than new arrays and a
+    /// copy of the parameters.
+    #[allow(clippy::too_many_arguments)]
+    fn mean_loss<P, B, M, L>(
+        &mut self,
+        model: &M,
+        loss: &L,
+        params: &P,
+        data: &Examples<T>,
+        rows: &[usize],
+        batch_size: usize,
+        inputs: &mut Array2<T>,
+    ) -> Result<T>
+    where
+        P: Space,
+        B: Space,
+        M: SplitInput<P, Array2<T>, Output = B>,
+        L: SplitInput<B, Array2<T>, Output = T>,
+    {
+        let mut total = T::zero();
+        for chunk in rows.chunks(batch_size) {
+            self.gather(data, chunk, inputs);
+            let y = model.forward_split(params, inputs, &mut self.model_work)?;
+            let l = *loss.forward_split(y, &self.targets, &mut self.loss_work)?;
+            total = total + l * count::<T>(chunk.len());
+        }
+        Ok(total / count::<T>(rows.len()))
     }
 }
 
