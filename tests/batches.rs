@@ -292,6 +292,32 @@ fn examples_read_from_csv_and_bad_files_say_where() {
 }
 
 #[test]
+fn row_blocks_join_and_cut_into_kept_buffers() {
+    let a = Array2::from_shape_fn((3, 2), |(i, j)| (i * 2 + j) as f64);
+    let b = Array2::from_shape_fn((2, 2), |(i, j)| 10.0 + (i * 2 + j) as f64);
+    let joined = Array2::join_rows(&[a.clone(), b.clone()]).unwrap();
+    // A buffer of the joined shape is overwritten in its own memory.
+    let mut kept = Array2::from_elem((5, 2), f64::NAN);
+    let at = kept.as_ptr();
+    Array2::join_rows_into(&[a.clone(), b.clone()], &mut kept).unwrap();
+    assert_eq!((&kept, kept.as_ptr()), (&joined, at));
+    // One of another shape is replaced.
+    let mut other = Array2::zeros((4, 2));
+    Array2::join_rows_into(&[a.clone(), b.clone()], &mut other).unwrap();
+    assert_eq!(other, joined);
+    // Parts of different widths are an error either way.
+    let wide = Array2::<f64>::zeros((1, 3));
+    assert!(Array2::join_rows_into(&[a.clone(), wide], &mut kept).is_err());
+    // Blocks of rows, into a fitting buffer and into one of another shape.
+    let mut block = Array2::from_elem((2, 2), f64::NAN);
+    let at = block.as_ptr();
+    joined.row_block_into(1, 3, &mut block);
+    assert_eq!((&block, block.as_ptr()), (&joined.row_block(1, 3), at));
+    joined.row_block_into(2, 5, &mut block);
+    assert_eq!(block, joined.slice(ndarray::s![2..5, ..]));
+}
+
+#[test]
 fn sharded_gradients_equal_unsharded_ones() {
     let (model, start) = small_network();
     let data = wave(37);

@@ -13,7 +13,7 @@ use rand::seq::SliceRandom;
 use std::borrow::Cow;
 use std::fmt;
 use std::ops::ControlFlow;
-use std::sync::{Mutex, RwLock, mpsc};
+use std::sync::{Mutex, MutexGuard, RwLock, mpsc};
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
@@ -483,12 +483,11 @@ impl Training {
     /// both cores as well at that size. Sharding is the form whose gradient
     /// sum can go beyond one machine ([`GradientReduction`]).
     ///
-    /// Unlike `run`, a sharded step still allocates a few arrays: each
-    /// shard's output is copied to this thread (the loss needs the whole
-    /// batch's), joined, and the output change is sent back in row blocks
-    /// (8 allocations per step with 2 shards, a small network, measured);
-    /// beside the model's passes at the sizes where sharding pays, that is
-    /// small.
+    /// Each shard's output is copied to this thread (the loss needs the
+    /// whole batch's) and joined, and the output change goes back in row
+    /// blocks, all through buffers kept from step to step: with up to 9
+    /// shards a step allocates nothing once the buffers are filled (beyond
+    /// that, two lists of references per step).
     ///
     /// A shard's error stops the run like any other; a shard whose model
     /// panics stops it with
@@ -554,8 +553,11 @@ impl Training {
             let mut answers = Vec::with_capacity(shards);
             let mut threads = Vec::with_capacity(shards);
             for slot in &slots {
-                let (job_tx, job_rx) = mpsc::channel();
-                let (answer_tx, answer_rx) = mpsc::channel();
+                // One job and one answer at a time each way: bounded
+                // channels, whose one slot is allocated here, not per
+                // message.
+                let (job_tx, job_rx) = mpsc::sync_channel(1);
+                let (answer_tx, answer_rx) = mpsc::sync_channel(1);
                 jobs.push(job_tx);
                 answers.push(answer_rx);
                 let shared = &shared;
@@ -572,6 +574,9 @@ impl Training {
                 slots: &slots,
                 ranges: Vec::with_capacity(shards),
                 outputs: Vec::with_capacity(shards),
+                spare_outputs: (0..shards).map(|_| None).collect(),
+                joined: None,
+                spare_changes: (0..shards).map(|_| None).collect(),
             };
             let result = self.run_core(
                 model,
@@ -933,8 +938,10 @@ impl<T: Real> Batch<T> {
 /// What the training thread asks of a shard's thread.
 enum ToShard<B> {
     /// The forward pass on the batch's rows `start..end` (positions in the
-    /// shared list of row numbers), gathered by the shard itself.
-    Forward(usize, usize),
+    /// shared list of row numbers), gathered by the shard itself, its
+    /// output copied into the buffer sent along (the last step's, when
+    /// there is one).
+    Forward(usize, usize, Option<B>),
     /// The backward pass for this change of the shard's output.
     Backward(B),
 }
@@ -943,8 +950,9 @@ enum ToShard<B> {
 enum FromShard<B> {
     /// Its output (a copy: the loss needs the whole batch's).
     Output(Result<B>),
-    /// Its gradient is in its slot.
-    Done(Result<()>),
+    /// Its gradient is in its slot; the change it was sent comes back, as
+    /// the buffer for the next step's.
+    Done(Result<()>, Option<B>),
 }
 
 fn poisoned() -> Error {
@@ -961,7 +969,7 @@ fn shard_worker<T, P, B, M>(
     shared: &RwLock<(P, Vec<usize>)>,
     slot: &Mutex<P>,
     jobs: mpsc::Receiver<ToShard<B>>,
-    answers: mpsc::Sender<FromShard<B>>,
+    answers: mpsc::SyncSender<FromShard<B>>,
 ) where
     T: Real,
     P: Euclidean<T>,
@@ -973,16 +981,26 @@ fn shard_worker<T, P, B, M>(
     let mut rows = Array2::<T>::zeros((0, 0));
     while let Ok(job) = jobs.recv() {
         let answer = match job {
-            ToShard::Forward(start, end) => FromShard::Output((|| {
+            ToShard::Forward(start, end, buffer) => FromShard::Output((|| {
                 let shared = shared.read().map_err(|_| poisoned())?;
                 gather_rows(&train.inputs, &shared.1[start..end], &mut rows);
-                Ok(model.forward_split(&shared.0, &rows, &mut work)?.clone())
+                let y = model.forward_split(&shared.0, &rows, &mut work)?;
+                Ok(match buffer {
+                    Some(mut kept) => {
+                        kept.assign_from(y);
+                        kept
+                    }
+                    None => y.clone(),
+                })
             })()),
-            ToShard::Backward(dy) => FromShard::Done((|| {
-                let shared = shared.read().map_err(|_| poisoned())?;
-                let mut gradient = slot.lock().map_err(|_| poisoned())?;
-                model.backward_split(&shared.0, &rows, &mut work, &dy, &mut gradient, None)
-            })()),
+            ToShard::Backward(dy) => {
+                let done = (|| {
+                    let shared = shared.read().map_err(|_| poisoned())?;
+                    let mut gradient = slot.lock().map_err(|_| poisoned())?;
+                    model.backward_split(&shared.0, &rows, &mut work, &dy, &mut gradient, None)
+                })();
+                FromShard::Done(done, Some(dy))
+            }
         };
         if answers.send(answer).is_err() {
             return;
@@ -993,12 +1011,19 @@ fn shard_worker<T, P, B, M>(
 /// The shards' threads, as the training thread sees them.
 struct ShardPool<'s, T, P, B> {
     train: &'s Examples<T>,
-    jobs: Vec<mpsc::Sender<ToShard<B>>>,
+    jobs: Vec<mpsc::SyncSender<ToShard<B>>>,
     answers: Vec<mpsc::Receiver<FromShard<B>>>,
     shared: &'s RwLock<(P, Vec<usize>)>,
     slots: &'s [Mutex<P>],
     ranges: Vec<(usize, usize)>,
     outputs: Vec<B>,
+    /// Buffers kept from step to step, so that a step allocates nothing:
+    /// each shard's output (lent to it with its forward job), their join,
+    /// and each shard's block of the output change; one per shard, in
+    /// order, so that each gets back the shape it had.
+    spare_outputs: Vec<Option<B>>,
+    joined: Option<B>,
+    spare_changes: Vec<Option<B>>,
 }
 
 impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
@@ -1006,7 +1031,7 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
     fn answer(&self, k: usize) -> FromShard<B> {
         self.answers[k]
             .recv()
-            .unwrap_or_else(|_| FromShard::Done(Err(panicked())))
+            .unwrap_or_else(|_| FromShard::Done(Err(panicked()), None))
     }
 
     /// Sends `job` to shard `k`; an error when its thread is gone.
@@ -1076,7 +1101,8 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
                 .filter(|(a, b)| a < b),
         );
         for (k, &(a, b)) in self.ranges.iter().enumerate() {
-            self.send(k, ToShard::Forward(a, b))?;
+            let buffer = self.spare_outputs.get_mut(k).and_then(Option::take);
+            self.send(k, ToShard::Forward(a, b, buffer))?;
         }
         // Every answer is collected, even after a failure, so that none is
         // left to be read as the next step's.
@@ -1085,36 +1111,44 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         for k in 0..self.ranges.len() {
             match self.answer(k) {
                 FromShard::Output(Ok(y)) => self.outputs.push(y),
-                FromShard::Output(Err(e)) | FromShard::Done(Err(e)) => {
+                FromShard::Output(Err(e)) | FromShard::Done(Err(e), _) => {
                     failure = failure.or(Some(e));
                 }
-                FromShard::Done(Ok(())) => failure = failure.or(Some(panicked())),
+                FromShard::Done(Ok(()), _) => failure = failure.or(Some(panicked())),
             }
         }
         if let Some(e) = failure {
             return Err(e);
         }
-        let y = B::join_rows(&self.outputs)?;
-        let l = *loss.forward_split(&y, &batch.targets, &mut batch.loss_work)?;
+        match &mut self.joined {
+            Some(joined) => B::join_rows_into(&self.outputs, joined)?,
+            None => self.joined = Some(B::join_rows(&self.outputs)?),
+        }
+        // The outputs are copied: their buffers serve the next step.
+        for (spare, y) in self.spare_outputs.iter_mut().zip(self.outputs.drain(..)) {
+            *spare = Some(y);
+        }
+        let y = self.joined.as_ref().expect("just joined");
+        let l = *loss.forward_split(y, &batch.targets, &mut batch.loss_work)?;
         let dy = batch
             .prediction_change
             .output_or_insert_with(|| y.zero_like());
-        reshape_to(dy, &y);
-        loss.backward_split(
-            &y,
-            &batch.targets,
-            &mut batch.loss_work,
-            &T::one(),
-            dy,
-            None,
-        )?;
+        reshape_to(dy, y);
+        loss.backward_split(y, &batch.targets, &mut batch.loss_work, &T::one(), dy, None)?;
         for (k, &(a, b)) in self.ranges.iter().enumerate() {
-            self.send(k, ToShard::Backward(dy.row_block(a, b)))?;
+            let block = match self.spare_changes.get_mut(k).and_then(Option::take) {
+                Some(mut kept) => {
+                    dy.row_block_into(a, b, &mut kept);
+                    kept
+                }
+                None => dy.row_block(a, b),
+            };
+            self.send(k, ToShard::Backward(block))?;
         }
         for k in 0..self.ranges.len() {
             match self.answer(k) {
-                FromShard::Done(Ok(())) => {}
-                FromShard::Done(Err(e)) | FromShard::Output(Err(e)) => {
+                FromShard::Done(Ok(()), kept) => self.spare_changes[k] = kept,
+                FromShard::Done(Err(e), _) | FromShard::Output(Err(e)) => {
                     failure = failure.or(Some(e));
                 }
                 FromShard::Output(Ok(_)) => failure = failure.or(Some(panicked())),
@@ -1133,16 +1167,40 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
         gradient: &mut P,
         reduction: &mut R,
     ) -> Result<()> {
-        let mut guards = self.slots[..self.ranges.len()]
-            .iter()
-            .map(|slot| slot.lock().map_err(|_| poisoned()))
-            .collect::<Result<Vec<_>>>()?;
-        let (first, rest) = guards
-            .split_first_mut()
+        let (first, rest) = self.slots[..self.ranges.len()]
+            .split_first()
             .expect("a batch has at least one row, so one shard");
-        let others: Vec<&P> = rest.iter().map(|g| &**g).collect();
-        reduction.reduce(first, &others)?;
-        gradient.copy_from(first)
+        let mut first = first.lock().map_err(|_| poisoned())?;
+        // The other shards' gradients are lent to `reduction` as a slice
+        // of references: built on the stack for up to `ON_STACK` shards (no
+        // allocation per step), in vectors beyond.
+        const ON_STACK: usize = 8;
+        if rest.len() > ON_STACK {
+            let guards = rest
+                .iter()
+                .map(|slot| slot.lock().map_err(|_| poisoned()))
+                .collect::<Result<Vec<_>>>()?;
+            let others: Vec<&P> = guards.iter().map(|g| &**g).collect();
+            reduction.reduce(&mut first, &others)?;
+            return gradient.copy_from(&first);
+        }
+        let mut guards: [Option<MutexGuard<'_, P>>; ON_STACK] = std::array::from_fn(|_| None);
+        for (guard, slot) in guards.iter_mut().zip(rest) {
+            *guard = Some(slot.lock().map_err(|_| poisoned())?);
+        }
+        match guards[0].as_deref() {
+            None => reduction.reduce(&mut first, &[])?,
+            Some(any) => {
+                let mut others: [&P; ON_STACK] = [any; ON_STACK];
+                for (other, guard) in others.iter_mut().zip(&guards) {
+                    if let Some(g) = guard.as_deref() {
+                        *other = g;
+                    }
+                }
+                reduction.reduce(&mut first, &others[..rest.len()])?;
+            }
+        }
+        gradient.copy_from(&first)
     }
 }
 
@@ -1153,6 +1211,17 @@ pub trait RowBlocks: Sized {
     fn join_rows(parts: &[Self]) -> Result<Self>;
     /// Rows `start..end`.
     fn row_block(&self, start: usize, end: usize) -> Self;
+    /// [`join_rows`](RowBlocks::join_rows) into `into`, in its memory when
+    /// it has the joined shape (the default makes a new value).
+    fn join_rows_into(parts: &[Self], into: &mut Self) -> Result<()> {
+        *into = Self::join_rows(parts)?;
+        Ok(())
+    }
+    /// [`row_block`](RowBlocks::row_block) into `into`, in its memory when
+    /// it has the block's shape (the default makes a new value).
+    fn row_block_into(&self, start: usize, end: usize, into: &mut Self) {
+        *into = self.row_block(start, end);
+    }
 }
 
 impl<T: Real, D: ndarray::RemoveAxis> RowBlocks for ndarray::Array<T, D> {
@@ -1163,6 +1232,31 @@ impl<T: Real, D: ndarray::RemoveAxis> RowBlocks for ndarray::Array<T, D> {
     }
     fn row_block(&self, start: usize, end: usize) -> Self {
         self.slice_axis(Axis(0), Slice::from(start..end)).to_owned()
+    }
+    fn join_rows_into(parts: &[Self], into: &mut Self) -> Result<()> {
+        let rows: usize = parts.iter().map(|p| p.len_of(Axis(0))).sum();
+        let fits = parts.iter().all(|p| p.shape()[1..] == into.shape()[1..])
+            && into.len_of(Axis(0)) == rows;
+        if !fits {
+            *into = Self::join_rows(parts)?;
+            return Ok(());
+        }
+        let mut at = 0;
+        for part in parts {
+            let n = part.len_of(Axis(0));
+            into.slice_axis_mut(Axis(0), Slice::from(at..at + n))
+                .assign(part);
+            at += n;
+        }
+        Ok(())
+    }
+    fn row_block_into(&self, start: usize, end: usize, into: &mut Self) {
+        let block = self.slice_axis(Axis(0), Slice::from(start..end));
+        if into.shape() == block.shape() {
+            into.assign(&block);
+        } else {
+            *into = block.to_owned();
+        }
     }
 }
 
