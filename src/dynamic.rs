@@ -273,7 +273,9 @@ enum Segment<T> {
     One(usize),
     Run {
         first: usize,
-        stages: Vec<PerElementStage<T>>,
+        /// Shared with the workspaces filled for them, which tell their
+        /// own stages by the address (see `RunWork`).
+        stages: Arc<[PerElementStage<T>]>,
     },
 }
 
@@ -787,11 +789,16 @@ impl<T: Real> Chain<T> {
         });
         self.value_elements += self.output_shape.iter().product::<usize>();
         match self.segments.last_mut() {
-            Some(Segment::Run { stages, .. }) => stages.push(stage),
+            Some(Segment::Run { stages, .. }) => {
+                // A new run of stages, with new buffers' identity.
+                let mut grown = stages.to_vec();
+                grown.push(stage);
+                *stages = grown.into();
+            }
             _ => {
                 self.segments.push(Segment::Run {
                     first: k,
-                    stages: vec![stage],
+                    stages: Arc::new([stage]),
                 });
                 self.run_count += 1;
             }
@@ -853,15 +860,24 @@ impl<T: Real> Chain<T> {
 }
 
 /// A shape mismatch naming `operation` unless `a` has shape `expected`.
-fn expect_shape<T>(operation: &'static str, expected: &[usize], a: &ArrayD<T>) -> Result<()> {
+/// Inline: it runs on every pass of a chain, where a call would cost more
+/// than the comparison.
+#[inline]
+pub(crate) fn expect_shape<T>(
+    operation: &'static str,
+    expected: &[usize],
+    a: &ArrayD<T>,
+) -> Result<()> {
     if crate::space::dims_equal(a.shape(), expected) {
         return Ok(());
     }
-    Err(Error::shape(
-        operation,
-        shape_tuple(expected),
-        shape_tuple(a.shape()),
-    ))
+    Err(shape_mismatch(operation, expected, a.shape()))
+}
+
+#[cold]
+#[inline(never)]
+fn shape_mismatch(operation: &'static str, expected: &[usize], found: &[usize]) -> Error {
+    Error::shape(operation, shape_tuple(expected), shape_tuple(found))
 }
 
 impl<T> Compose for Chain<T> {

@@ -383,9 +383,115 @@ fn a_forward_pass_that_failed_halfway_is_not_read_back() {
     chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
     assert_eq!(dx[0], 2.0 * 1.0_f64.exp());
     let far = ArrayD::from_elem(vec![1], 3.0);
-    chain.forward_reusing(&far, &mut work).unwrap_err();
+    // The stage's own error, not a NaN or another error.
+    let err = chain.forward_reusing(&far, &mut work).unwrap_err();
+    assert!(
+        matches!(
+            err,
+            Error::InvalidSetting {
+                reason: "over 10",
+                ..
+            }
+        ),
+        "{err}"
+    );
     let err = chain
         .backward_reusing(&far, &mut work, &dy, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+}
+
+/// `x -> x` below 1, NaN from 1 on, never an error; slope 1 below 1, NaN
+/// from 1 on: a map that gives NaN as a value.
+struct NanFromOne;
+
+impl Compose for NanFromOne {}
+
+impl Map<f64> for NanFromOne {
+    type Output = f64;
+    type Memo = f64;
+    fn forward_memo(&self, x: &f64) -> Result<(f64, f64)> {
+        Ok(if *x < 1.0 {
+            (*x, 1.0)
+        } else {
+            (f64::NAN, f64::NAN)
+        })
+    }
+    fn backward_memo(&self, slope: &f64, dy: &f64) -> Result<f64> {
+        Ok(slope * dy)
+    }
+}
+
+#[test]
+fn a_nan_a_stage_gives_is_a_value_over_one_element_too() {
+    // One element goes from stage to stage in a register, where a NaN may
+    // stand for an error; a NaN the map gives must come out as the memo
+    // passes give it, and the stages after it must run.
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain.push_per_element("nan from one", NanFromOne).unwrap();
+    chain.push_per_element("exp", Exp).unwrap();
+    let mut work = Workspace::new();
+    for v in [0.5, 2.0, 0.25] {
+        let x = ArrayD::from_elem(vec![1], v);
+        let dy = ArrayD::from_elem(vec![1], 1.0);
+        let y = chain.forward_reusing(&x, &mut work).unwrap().clone();
+        let mut dx = x.clone();
+        chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
+        let (y_memo, memo) = chain.forward_memo(&x).unwrap();
+        let dx_memo = chain.backward_memo(&memo, &dy).unwrap();
+        if v < 1.0 {
+            assert_eq!((y[0], dx[0]), (v.exp(), v.exp()));
+        } else {
+            assert!(y[0].is_nan() && dx[0].is_nan(), "{y} {dx}");
+        }
+        assert_eq!(y[0].to_bits(), y_memo[0].to_bits());
+        assert_eq!(dx[0].to_bits(), dx_memo[0].to_bits());
+    }
+}
+
+#[test]
+fn clones_of_a_chain_share_its_buffers_and_a_grown_chain_refills_them() {
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain.push_per_element("sin", Sin).unwrap();
+    chain.push_per_element("exp", Exp).unwrap();
+    let twin = chain.clone();
+    let (x, dy) = (
+        ArrayD::from_elem(vec![1], 0.4),
+        ArrayD::from_elem(vec![1], -1.5),
+    );
+    let mut work = Workspace::new();
+    let mut dx = x.clone();
+    // Filled by one, read back by its clone: the same stages.
+    chain.forward_reusing(&x, &mut work).unwrap();
+    twin.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
+    let by_hand = -1.5 * 0.4_f64.sin().exp() * 0.4_f64.cos();
+    assert!(
+        (dx[0] - by_hand).abs() < 1e-15,
+        "{} against {by_hand}",
+        dx[0]
+    );
+    // Grown after the forward pass: the workspace is stale for it.
+    chain.push_per_element("sin", Sin).unwrap();
+    let err = chain
+        .backward_reusing(&x, &mut work, &dy, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    // Its own forward pass refills it; the clone's is then stale in turn.
+    chain.forward_reusing(&x, &mut work).unwrap();
+    chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
+    assert_eq!(dx, chain.backward(&x, &dy).unwrap());
+    let err = twin
+        .backward_reusing(&x, &mut work, &dy, &mut dx)
+        .unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    // A chain of the same make (one run of three per-element stages) but
+    // other maps: its stages did not fill the workspace.
+    let mut other = Chain::<f64>::new(&[1]);
+    for _ in 0..3 {
+        other.push_per_element("exp", Exp).unwrap();
+    }
+    let err = other
+        .backward_reusing(&x, &mut work, &dy, &mut dx)
         .unwrap_err();
     assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
 }

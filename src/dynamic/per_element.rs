@@ -15,10 +15,11 @@
 //! dynamic call.
 
 use crate::cores::Halves;
+use crate::dynamic::expect_shape;
 use crate::error::{Error, Result};
 use crate::map::{Compose, Map};
 use crate::memory::HeldBytes;
-use crate::space::{Real, dims_equal, shape_tuple};
+use crate::space::{Real, dims_equal};
 use ndarray::{ArrayD, Dimension, IxDyn};
 use std::sync::Arc;
 
@@ -92,7 +93,7 @@ impl<T: Real, F: Map<T, Output = T>> Map<ArrayD<T>> for EachElement<F> {
         Ok((y, EachElementMemo { shape, memos }))
     }
     fn backward_memo(&self, memo: &Self::Memo, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
-        check_change(memo.shape.slice(), dy)?;
+        expect_shape(OUTPUT_CHANGE, memo.shape.slice(), dy)?;
         // As many memos as elements of `dy`: its shape was checked.
         let (map, memos) = (&*self.0, memo.memos.as_slice());
         // The same products as the reusing passes (see `change_at`).
@@ -145,16 +146,10 @@ fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
     y
 }
 
-fn check_change<T>(shape: &[usize], dy: &ArrayD<T>) -> Result<()> {
-    if dims_equal(dy.shape(), shape) {
-        return Ok(());
-    }
-    Err(Error::shape(
-        "backward pass of a per-element stage of a run-time chain (its output change)",
-        shape_tuple(shape),
-        shape_tuple(dy.shape()),
-    ))
-}
+/// What a shape mismatch of the change of a per-element stage's output
+/// names.
+const OUTPUT_CHANGE: &str =
+    "backward pass of a per-element stage of a run-time chain (its output change)";
 
 /// A per-element stage as a chain holds it: its passes, and their
 /// identity, read once here rather than through a dynamic call per pass.
@@ -192,6 +187,13 @@ pub(crate) trait StageBuffers<T> {
     /// change, so `R[f](x[i], d) = slopes[i] * d`: the run's backward pass
     /// is then products, with no dynamic call ([`through_slopes`]).
     fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()>;
+    /// [`forward`](Self::forward) on one element, `(f(x), slope)` returned
+    /// in registers: a chain of scalar maps then passes its value from
+    /// stage to stage without a trip through memory. A NaN value may stand
+    /// for an error, which the caller gets by running `forward` on the
+    /// element again (a map is a function of its input: it fails again, or
+    /// gives the NaN again).
+    fn forward_one(&mut self, x: T) -> (T, T);
     /// `dx[i] = R[f](x[i], dy[i])` from the memos of the last forward pass,
     /// as [`change_at`] computes it.
     fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()>;
@@ -232,6 +234,19 @@ where
 {
     fn forward(&mut self, x: &[T], y: &mut [T], slopes: &mut [T]) -> Boxed<()> {
         self.forward_unboxed(x, y, slopes).map_err(Box::new)
+    }
+    fn forward_one(&mut self, x: T) -> (T, T) {
+        let map = &*self.map;
+        // No branch between the value and the memo: a map that computes
+        // both from one call (`sin_cos`) keeps them together.
+        let [kept] = self.memos.as_mut_slice() else {
+            return self.forward_first_one(x);
+        };
+        let Ok((y, memo)) = map.forward_memo(&x) else {
+            return (T::nan(), T::nan());
+        };
+        *kept = memo;
+        (y, slope_of(map, kept))
     }
     fn backward(&self, dy: &[T], dx: &mut [T]) -> Boxed<()> {
         self.backward_unboxed(dy, dx).map_err(Box::new)
@@ -288,6 +303,19 @@ where
             *slope = slope_of(map, memo);
         }
         Ok(())
+    }
+    /// [`StageBuffers::forward_one`] when the memos do not hold one
+    /// element (the first pass, or another width before).
+    #[cold]
+    fn forward_first_one(&mut self, x: T) -> (T, T) {
+        let map = &*self.map;
+        self.memos.clear();
+        let Ok((y, memo)) = map.forward_memo(&x) else {
+            return (T::nan(), T::nan());
+        };
+        let slope = slope_of(map, &memo);
+        self.memos.push(memo);
+        (y, slope)
     }
     #[inline]
     fn backward_unboxed(&self, dy: &[T], dx: &mut [T]) -> Result<()> {
@@ -373,8 +401,13 @@ pub(crate) struct RunWork<T> {
     /// Every stage's slopes (see [`StageBuffers::forward`]), one stage
     /// after another.
     slopes: Vec<T>,
-    /// Every stage's buffers, with the identity of the stage that made them.
-    kept: Vec<Option<Tagged<T>>>,
+    /// Every stage's buffers, with the identity of the stage that made
+    /// them, for the stages in `filled_for`.
+    kept: Vec<Tagged<T>>,
+    /// The stages whose buffers `kept` holds: checked once per pass (an
+    /// address comparison, sound because this holds the stages alive)
+    /// rather than stage by stage.
+    filled_for: Option<Arc<[PerElementStage<T>]>>,
     /// The last stage's output, read by the next stage or the caller.
     pub(crate) output: ArrayD<T>,
     /// The change being passed back, in two buffers used in turn.
@@ -391,6 +424,7 @@ impl<T: Real> Default for RunWork<T> {
             values: Vec::new(),
             slopes: Vec::new(),
             kept: Vec::new(),
+            filled_for: None,
             output: ArrayD::zeros(IxDyn(&[0])),
             changes: [Vec::new(), Vec::new()],
             complete: false,
@@ -405,7 +439,13 @@ impl<T: Real> Default for RunWork<T> {
 fn standard_slice_mut<'a, T: Real>(a: &'a mut ArrayD<T>, shape: &[usize]) -> &'a mut [T] {
     // One element (a chain of scalar maps): any strides will do, and
     // ndarray's layout check costs more than the stage.
-    if shape.iter().product::<usize>() == 1 && dims_equal(a.shape(), shape) {
+    let shape_of_a = a.shape();
+    let one_element = shape_of_a.len() == shape.len()
+        && shape_of_a
+            .iter()
+            .zip(shape)
+            .fold(true, |one, (p, q)| one & (*p == 1) & (*q == 1));
+    if one_element {
         return std::slice::from_mut(a.first_mut().expect("one element"));
     }
     if !dims_equal(a.shape(), shape) || !a.is_standard_layout() {
@@ -418,7 +458,7 @@ fn standard_slice_mut<'a, T: Real>(a: &'a mut ArrayD<T>, shape: &[usize]) -> &'a
 /// The reusing forward pass of a run of per-element stages (`stages`, in
 /// order, at least one) from `input`; the result stays in `work.output`.
 pub(crate) fn run_forward<T: Real>(
-    stages: &[PerElementStage<T>],
+    stages: &Arc<[PerElementStage<T>]>,
     input: &ArrayD<T>,
     work: &mut RunWork<T>,
 ) -> Result<()> {
@@ -427,12 +467,20 @@ pub(crate) fn run_forward<T: Real>(
         values,
         slopes,
         kept,
+        filled_for,
         output,
         complete,
         ..
     } = work;
     // Until every stage has run, the buffers mix two passes.
     *complete = false;
+    if !filled_for
+        .as_ref()
+        .is_some_and(|filled| Arc::ptr_eq(filled, stages))
+    {
+        fit_buffers(stages, kept);
+        *filled_for = Some(Arc::clone(stages));
+    }
     let x = logical_slice(input, scratch);
     let len = x.len();
     let count = stages.len();
@@ -445,11 +493,13 @@ pub(crate) fn run_forward<T: Real>(
     if slopes.len() != kept_slopes {
         slopes.resize(kept_slopes, T::zero());
     }
-    if kept.len() != count {
-        kept.resize_with(count, || None);
-    }
     let y = standard_slice_mut(output, input.shape());
-    for (i, (stage, kept)) in stages.iter().zip(kept.iter_mut()).enumerate() {
+    if let ([v], [out]) = (x, &mut *y) {
+        *out = through_one(kept, slopes, *v)?;
+        *complete = true;
+        return Ok(());
+    }
+    for (i, (_, buffers)) in kept.iter_mut().enumerate() {
         // Stage i reads stage i - 1's output and writes its own.
         let slopes = slopes.get_mut(i * len..(i + 1) * len).unwrap_or_default();
         let (before, after) = values.split_at_mut(i * len);
@@ -459,17 +509,42 @@ pub(crate) fn run_forward<T: Real>(
         } else {
             &mut after[..len]
         };
-        // Buffers made by another stage (a workspace that served another
-        // chain) are replaced.
-        if !matches!(kept, Some((id, _)) if *id == stage.identity) {
-            *kept = Some((stage.identity, stage.passes.buffers()));
-        }
-        if let Some((_, buffers)) = kept {
-            buffers.forward(from, into, slopes).map_err(|e| *e)?;
-        }
+        buffers.forward(from, into, slopes).map_err(|e| *e)?;
     }
     *complete = true;
     Ok(())
+}
+
+/// `kept` made to hold one set of buffers per stage of `stages`, in order:
+/// those a stage made before stay (at the same place), others are made.
+#[cold]
+fn fit_buffers<T>(stages: &[PerElementStage<T>], kept: &mut Vec<Tagged<T>>) {
+    let mut old = std::mem::take(kept).into_iter();
+    for stage in stages {
+        let buffers = match old.next() {
+            Some((id, buffers)) if id == stage.identity => buffers,
+            _ => stage.passes.buffers(),
+        };
+        kept.push((stage.identity, buffers));
+    }
+}
+
+/// The forward pass of a run over one element `v` (a chain of scalar
+/// maps): the value goes from stage to stage in a register, each stage's
+/// slope into `slopes` (one per stage). Returns the run's output.
+fn through_one<T: Real>(kept: &mut [Tagged<T>], slopes: &mut [T], mut v: T) -> Result<T> {
+    for ((_, buffers), slope) in kept.iter_mut().zip(slopes) {
+        let (mut y, mut s) = buffers.forward_one(v);
+        if y.is_nan() {
+            // An error, or a NaN the map gives: the slice pass tells which.
+            let (mut out, mut at) = ([T::zero()], [T::zero()]);
+            buffers.forward(&[v], &mut out, &mut at).map_err(|e| *e)?;
+            (y, s) = (out[0], at[0]);
+        }
+        *slope = s;
+        v = y;
+    }
+    Ok(v)
 }
 
 /// The longest arrays for which the forward pass of a run keeps slopes.
@@ -537,7 +612,7 @@ fn logical_slice<'a, T: Real>(a: &'a ArrayD<T>, scratch: &'a mut Vec<T>) -> &'a 
 /// (reshaped to the input's shape when it has another, or is not in
 /// standard layout).
 pub(crate) fn run_backward<T: Real>(
-    stages: &[PerElementStage<T>],
+    stages: &Arc<[PerElementStage<T>]>,
     work: &mut RunWork<T>,
     dy: &ArrayD<T>,
     dx: &mut ArrayD<T>,
@@ -546,18 +621,17 @@ pub(crate) fn run_backward<T: Real>(
         scratch,
         slopes,
         kept,
+        filled_for,
         output,
         changes: [first, second],
         complete,
         ..
     } = work;
-    check_change(output.shape(), dy)?;
+    expect_shape(OUTPUT_CHANGE, output.shape(), dy)?;
     let filled = *complete
-        && kept.len() == stages.len()
-        && stages
-            .iter()
-            .zip(kept.iter())
-            .all(|(stage, kept)| matches!(kept, Some((id, _)) if *id == stage.identity));
+        && filled_for
+            .as_ref()
+            .is_some_and(|filled| Arc::ptr_eq(filled, stages));
     if !filled {
         return Err(Error::WorkspaceNotFilled {
             operation: "backward pass of a run of per-element stages (the workspace was filled by another chain, or the chain changed since)",
@@ -573,7 +647,7 @@ pub(crate) fn run_backward<T: Real>(
         second.resize(dy.len(), T::zero());
     }
     let count = stages.len();
-    for (i, kept) in kept.iter().enumerate().rev() {
+    for (i, (_, buffers)) in kept.iter().enumerate().rev() {
         // Stage i reads the change of its output (the run's, or what
         // stage i + 1 wrote) and writes the change of its input: the two
         // buffers take turns.
@@ -584,10 +658,7 @@ pub(crate) fn run_backward<T: Real>(
         };
         let from = if i + 1 == count { dy } else { read };
         let into = if i == 0 { &mut *dx } else { write };
-        // Checked above: every stage's own buffers.
-        if let Some((_, buffers)) = kept {
-            buffers.backward(from, into).map_err(|e| *e)?;
-        }
+        buffers.backward(from, into).map_err(|e| *e)?;
     }
     Ok(())
 }
