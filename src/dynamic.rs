@@ -790,7 +790,8 @@ impl<T: Real> Chain<T> {
         self.value_elements += self.output_shape.iter().product::<usize>();
         match self.segments.last_mut() {
             Some(Segment::Run { stages, .. }) => {
-                // A new run of stages, with new buffers' identity.
+                // A new list, so that workspaces filled for the shorter
+                // run (which they tell by its address) are refitted.
                 let mut grown = stages.to_vec();
                 grown.push(stage);
                 *stages = grown.into();

@@ -8,7 +8,9 @@
 //! The chain's reusing passes run a run of consecutive per-element stages
 //! over flat slices instead: one dynamic call per stage in the forward
 //! pass, the values between stages in one buffer, and each stage's memos
-//! in a vector of the scalar map's own memo type. On short arrays the
+//! in a vector of the scalar map's own memo type (over one element the
+//! value goes from stage to stage in a register, with no buffer between
+//! them: a chain of scalar maps). On short arrays the
 //! forward pass also keeps each element's slope `R[f](x, 1)`; the reverse
 //! derivative of a scalar map being linear in the change, the backward
 //! pass of the whole run is then products of changes and slopes, with no
