@@ -521,13 +521,13 @@ pub(crate) fn run_forward<T: Real>(
 /// those a stage made before stay (at the same place), others are made.
 #[cold]
 fn fit_buffers<T>(stages: &[PerElementStage<T>], kept: &mut Vec<Tagged<T>>) {
-    let mut old = std::mem::take(kept).into_iter();
-    for stage in stages {
-        let buffers = match old.next() {
-            Some((id, buffers)) if id == stage.identity => buffers,
-            _ => stage.passes.buffers(),
-        };
-        kept.push((stage.identity, buffers));
+    kept.truncate(stages.len());
+    for (i, stage) in stages.iter().enumerate() {
+        match kept.get_mut(i) {
+            Some((id, _)) if *id == stage.identity => {}
+            Some(other) => *other = (stage.identity, stage.passes.buffers()),
+            None => kept.push((stage.identity, stage.passes.buffers())),
+        }
     }
 }
 
