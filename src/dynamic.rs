@@ -28,7 +28,8 @@ use std::sync::Arc;
 mod per_element;
 mod spare;
 use per_element::{
-    EachElement, ElementPasses, PerElementStage, RunWork, run_backward, run_forward,
+    EachElement, ElementPasses, PerElementStage, RunWork, one_shot_one, run_backward, run_forward,
+    with_only_element,
 };
 pub use spare::free_spare_workspaces;
 
@@ -955,7 +956,24 @@ impl<T: Real> Map<ArrayD<T>> for Chain<T> {
     /// without their allocation per stage. (A stage of your own pushed with
     /// [`push`](Chain::push) keeps there, besides, whatever its reusing
     /// passes keep.)
+    ///
+    /// A chain of scalar maps (only stages pushed with
+    /// [`push_per_element`](Chain::push_per_element), over one-element
+    /// arrays) needs no workspace at all: one sweep through the stages
+    /// keeps each stage's slope on the stack and multiplies the change by
+    /// them, last stage first, as the other passes do.
     fn backward(&self, x: &ArrayD<T>, dy: &ArrayD<T>) -> Result<ArrayD<T>> {
+        if let [Segment::Run { stages, .. }] = self.segments.as_slice()
+            && x.len() == 1
+        {
+            self.check_input(x)?;
+            self.check_output_change(dy)?;
+            if let (Some(&v), Some(&g)) = (x.first(), dy.first())
+                && let Some(d) = one_shot_one(stages, v, g)
+            {
+                return Ok(with_only_element(x, d));
+            }
+        }
         // Bytes of values, changes and the per-element slopes.
         let bytes = 3 * self.value_elements * std::mem::size_of::<T>();
         if self.retention != Retention::All || self.stages.is_empty() || bytes > SPARE_BYTES {

@@ -495,3 +495,113 @@ fn clones_of_a_chain_share_its_buffers_and_a_grown_chain_refills_them() {
         .unwrap_err();
     assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
 }
+
+/// A chain of scalar maps: `count` per-element stages, in turn a sine, a
+/// hyperbolic tangent, a static composite and a power.
+fn scalar_chain(count: usize, shape: &[usize]) -> Chain<f64> {
+    let mut chain = Chain::<f64>::new(shape);
+    for k in 0..count {
+        match k % 4 {
+            0 => chain.push_per_element("sin", Sin),
+            1 => chain.push_per_element("tanh", Tanh),
+            2 => chain.push_per_element("sin exp", Sin.then(Exp)),
+            _ => chain.push_per_element("cube", Powi { coef: 0.5, n: 3 }),
+        }
+        .unwrap();
+    }
+    chain
+}
+
+#[test]
+fn the_one_shot_backward_pass_of_a_chain_of_scalar_maps_equals_the_memo_passes() {
+    // Over one element the one-shot pass sweeps the stages once, keeping
+    // their slopes on the stack (in a vector past 32 stages): bit for bit
+    // the memo passes' numbers, at every depth and on either side of 32.
+    for count in [1, 2, 8, 31, 32, 33, 70] {
+        for shape in [&[1][..], &[1, 1]] {
+            let chain = scalar_chain(count, shape);
+            for (v, d) in [(0.3, 1.0), (-1.2, -2.5), (0.9, 1e-3)] {
+                let x = ArrayD::from_elem(IxDyn(shape), v);
+                let dy = ArrayD::from_elem(IxDyn(shape), d);
+                let dx = chain.backward(&x, &dy).unwrap();
+                assert_eq!(dx.shape(), shape);
+                assert_eq!(
+                    dx.first().unwrap().to_bits(),
+                    memo_passes(&chain, &x, &dy).first().unwrap().to_bits(),
+                    "{count} stages, shape {shape:?}, x = {v}"
+                );
+            }
+        }
+    }
+    // The chain rule by hand for two stages: cos(x) (1 - tanh(sin x)^2) dy.
+    let chain = scalar_chain(2, &[1]);
+    let dx = chain
+        .backward(
+            &ArrayD::from_elem(IxDyn(&[1]), 0.7),
+            &ArrayD::from_elem(IxDyn(&[1]), -2.0),
+        )
+        .unwrap();
+    let by_hand = 0.7_f64.cos() * (1.0 - 0.7_f64.sin().tanh().powi(2)) * -2.0;
+    assert!(
+        (dx[0] - by_hand).abs() < 1e-15,
+        "{} against {by_hand}",
+        dx[0]
+    );
+}
+
+#[test]
+fn the_one_shot_backward_pass_of_a_chain_of_scalar_maps_reports_what_a_stage_reports() {
+    let one = |v: f64| ArrayD::from_elem(IxDyn(&[1]), v);
+    // A stage's own error.
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain.push_per_element("exp", Exp).unwrap();
+    chain.push_per_element("double", DoubleUpToTen).unwrap();
+    let err = chain.backward(&one(3.0), &one(1.0)).unwrap_err();
+    assert!(
+        matches!(
+            err,
+            Error::InvalidSetting {
+                reason: "over 10",
+                ..
+            }
+        ),
+        "{err}"
+    );
+    assert_eq!(
+        chain.backward(&one(1.0), &one(1.0)).unwrap()[0],
+        2.0 * 1.0_f64.exp()
+    );
+    // A NaN a stage gives is a value, and the stages after it run.
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain.push_per_element("nan from one", NanFromOne).unwrap();
+    chain.push_per_element("exp", Exp).unwrap();
+    assert!(chain.backward(&one(2.0), &one(1.0)).unwrap()[0].is_nan());
+    assert_eq!(
+        chain.backward(&one(0.5), &one(1.0)).unwrap()[0],
+        0.5_f64.exp()
+    );
+    // A slope that overflows where its product with the change does not:
+    // the map's own backward pass gives the change.
+    let inverse_square = Powi { coef: 1.0, n: -2 };
+    let mut chain = Chain::<f64>::new(&[1]);
+    chain
+        .push_per_element("inverse square", inverse_square)
+        .unwrap();
+    chain.push_per_element("sin", Sin).unwrap();
+    let dx = chain.backward(&one(1e-120), &one(1e-200)).unwrap();
+    let (s, _) = inverse_square.forward_memo(&1e-120_f64).unwrap();
+    let expected: f64 = inverse_square
+        .backward(&1e-120, &Sin.backward(&s, &1e-200).unwrap())
+        .unwrap();
+    assert!(expected.is_finite() && expected != 0.0, "{expected}");
+    assert_eq!(dx[0], expected);
+    // Changes and inputs of the wrong shape.
+    let err = chain
+        .backward(&one(0.5), &ArrayD::from_elem(IxDyn(&[1, 1]), 1.0))
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+    let err = chain
+        .backward(&ArrayD::from_elem(IxDyn(&[1, 1]), 0.5), &one(1.0))
+        .unwrap_err();
+    assert!(matches!(err, Error::ShapeMismatch { .. }), "{err}");
+}

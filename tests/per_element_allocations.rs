@@ -47,4 +47,28 @@ fn reusing_passes_allocate_nothing_after_the_first_call() {
     }
     let made = allocations() - before;
     assert_eq!(made, 5, "allocations in five one-shot backward passes");
+
+    // A chain of scalar maps (per-element stages over one element) needs
+    // no workspace: from its first call, the array it returns is its only
+    // allocation up to 32 stages, and a vector of slopes is the one more
+    // past that.
+    for (count, per_call) in [(8, 1), (32, 1), (33, 2)] {
+        let mut scalar = Chain::<f64>::new(&[1]);
+        for _ in 0..count {
+            scalar.push_per_element("sin", Sin).unwrap();
+        }
+        let (x, dy) = (
+            ArrayD::from_elem(IxDyn(&[1]), 0.4),
+            ArrayD::from_elem(IxDyn(&[1]), 1.0),
+        );
+        let before = allocations();
+        let dx = scalar.backward(&x, &dy).unwrap();
+        let made = allocations() - before;
+        assert_eq!(
+            made, per_call,
+            "allocations in the first one-shot backward pass of {count} stages"
+        );
+        let (_, memo) = scalar.forward_memo(&x).unwrap();
+        assert_eq!(dx, scalar.backward_memo(&memo, &dy).unwrap());
+    }
 }

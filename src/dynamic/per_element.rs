@@ -140,7 +140,7 @@ fn each_element<T: Real>(x: &ArrayD<T>, mut f: impl FnMut(T) -> Result<T>) -> Re
 /// A copy of the one-element array `x` holding `v`. Written through
 /// `first_mut`: `fill` and slices check the layout, which for a dynamic
 /// dimension costs more than a scalar map.
-fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
+pub(crate) fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
     let mut y = x.clone();
     if let Some(only) = y.first_mut() {
         *only = v;
@@ -177,6 +177,10 @@ pub(crate) trait ElementPasses<T>: Send + Sync {
     /// scalar map, which the buffers keep alive, so that no other map can
     /// take the address while they exist.
     fn identity(&self) -> usize;
+    /// `(f(x), R[f](x, 1))` on one element, keeping nothing: the one-shot
+    /// backward pass of a chain of scalar maps ([`one_shot_one`]). A NaN
+    /// value may stand for an error, as in [`StageBuffers::forward_one`].
+    fn value_and_slope(&self, x: T) -> (T, T);
 }
 
 /// A per-element stage's memos between its reusing passes, with the map
@@ -215,6 +219,13 @@ where
     }
     fn identity(&self) -> usize {
         Arc::as_ptr(&self.0) as *const () as usize
+    }
+    fn value_and_slope(&self, x: T) -> (T, T) {
+        let map = &*self.0;
+        match map.forward_memo(&x) {
+            Ok((y, memo)) => (y, slope_of(map, &memo)),
+            Err(_) => (T::nan(), T::nan()),
+        }
     }
 }
 
@@ -547,6 +558,40 @@ fn through_one<T: Real>(kept: &mut [Tagged<T>], slopes: &mut [T], mut v: T) -> R
         v = y;
     }
     Ok(v)
+}
+
+/// How many slopes [`one_shot_one`] keeps on the stack; a longer run
+/// keeps them in one vector.
+const SLOPES_ON_STACK: usize = 32;
+
+/// The change of the input of a run of per-element stages over one element
+/// `x` (a chain of scalar maps) from the change `dy` of its output, in one
+/// sweep that keeps nothing but the stages' slopes: the one-shot backward
+/// pass, with no workspace. The products are those of the other passes
+/// ([`through_slopes`]), last stage first, so the numbers are the same bit
+/// for bit. `None` when a value is NaN (which may stand for an error) or a
+/// slope is not a finite number: the passes that keep each stage's memo
+/// then tell the error, or compute the change through the map's own
+/// backward pass ([`change_at`]).
+pub(crate) fn one_shot_one<T: Real>(stages: &[PerElementStage<T>], x: T, dy: T) -> Option<T> {
+    let mut on_stack = [T::zero(); SLOPES_ON_STACK];
+    let mut on_heap = Vec::new();
+    let slopes = match on_stack.get_mut(..stages.len()) {
+        Some(slopes) => slopes,
+        None => {
+            on_heap.resize(stages.len(), T::zero());
+            &mut on_heap[..]
+        }
+    };
+    let mut v = x;
+    for (stage, slope) in stages.iter().zip(slopes.iter_mut()) {
+        let (y, s) = stage.passes.value_and_slope(v);
+        if y.is_nan() || !s.is_finite() {
+            return None;
+        }
+        (v, *slope) = (y, s);
+    }
+    Some(slopes.iter().rev().fold(dy, |d, s| *s * d))
 }
 
 /// The longest arrays for which the forward pass of a run keeps slopes.
