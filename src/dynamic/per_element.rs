@@ -140,7 +140,7 @@ fn each_element<T: Real>(x: &ArrayD<T>, mut f: impl FnMut(T) -> Result<T>) -> Re
 /// A copy of the one-element array `x` holding `v`. Written through
 /// `first_mut`: `fill` and slices check the layout, which for a dynamic
 /// dimension costs more than a scalar map.
-pub(crate) fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
+fn with_only_element<T: Real>(x: &ArrayD<T>, v: T) -> ArrayD<T> {
     let mut y = x.clone();
     if let Some(only) = y.first_mut() {
         *only = v;
