@@ -14,7 +14,9 @@
 //! forward pass also keeps each element's slope `R[f](x, 1)`; the reverse
 //! derivative of a scalar map being linear in the change, the backward
 //! pass of the whole run is then products of changes and slopes, with no
-//! dynamic call.
+//! dynamic call. The one-shot backward pass of a chain of scalar maps
+//! ([`one_shot_one`]) needs no buffers at all: one sweep through the stages
+//! keeps their slopes on the stack.
 
 use crate::cores::Halves;
 use crate::dynamic::expect_shape;

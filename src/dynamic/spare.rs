@@ -83,7 +83,9 @@ pub(crate) fn with_spare_workspace<R>(key: usize, passes: impl FnOnce(&mut Works
 /// hold at most 1 MiB (three numbers per value between its stages: the
 /// value, its change and a slope; larger chains use the memo passes, whose
 /// allocations cost little beside their arithmetic), for at most four
-/// chains per thread. This returns that memory at once.
+/// chains per thread. This returns that memory at once. (A chain of
+/// scalar maps over one-element arrays keeps nothing there: its one-shot
+/// backward pass sweeps its stages with their slopes on the stack.)
 ///
 /// ```
 /// use revdiff::{Chain, Map, Sin, free_spare_workspaces};
