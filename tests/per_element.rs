@@ -366,6 +366,20 @@ impl Map<f64> for DoubleUpToTen {
     }
 }
 
+/// `err` is the error [`DoubleUpToTen`] gives, and not another.
+fn assert_is_over_ten(err: &Error) {
+    assert!(
+        matches!(
+            err,
+            Error::InvalidSetting {
+                reason: "over 10",
+                ..
+            }
+        ),
+        "{err}"
+    );
+}
+
 #[test]
 fn a_forward_pass_that_failed_halfway_is_not_read_back() {
     // The first stage's buffers are from the failed pass, the second's from
@@ -385,16 +399,7 @@ fn a_forward_pass_that_failed_halfway_is_not_read_back() {
     let far = ArrayD::from_elem(vec![1], 3.0);
     // The stage's own error, not a NaN or another error.
     let err = chain.forward_reusing(&far, &mut work).unwrap_err();
-    assert!(
-        matches!(
-            err,
-            Error::InvalidSetting {
-                reason: "over 10",
-                ..
-            }
-        ),
-        "{err}"
-    );
+    assert_is_over_ten(&err);
     let err = chain
         .backward_reusing(&far, &mut work, &dy, &mut dx)
         .unwrap_err();
@@ -557,16 +562,7 @@ fn the_one_shot_backward_pass_of_a_chain_of_scalar_maps_reports_what_a_stage_rep
     chain.push_per_element("exp", Exp).unwrap();
     chain.push_per_element("double", DoubleUpToTen).unwrap();
     let err = chain.backward(&one(3.0), &one(1.0)).unwrap_err();
-    assert!(
-        matches!(
-            err,
-            Error::InvalidSetting {
-                reason: "over 10",
-                ..
-            }
-        ),
-        "{err}"
-    );
+    assert_is_over_ten(&err);
     assert_eq!(
         chain.backward(&one(1.0), &one(1.0)).unwrap()[0],
         2.0 * 1.0_f64.exp()
