@@ -85,6 +85,34 @@ fn memo_passes(chain: &Chain<f64>, x: &ArrayD<f64>, dy: &ArrayD<f64>) -> ArrayD<
     chain.backward_memo(&memo, dy).unwrap()
 }
 
+/// `chain`'s reusing backward pass refuses `work`: no forward pass of its
+/// own filled it.
+fn assert_refused(
+    chain: &Chain<f64>,
+    x: &ArrayD<f64>,
+    work: &mut Workspace,
+    dy: &ArrayD<f64>,
+    dx: &mut ArrayD<f64>,
+) {
+    let err = chain.backward_reusing(x, work, dy, dx).unwrap_err();
+    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+}
+
+/// [`assert_refused`], then `chain`'s own forward pass refills `work`,
+/// after which its reusing passes give what its `backward` gives.
+fn assert_refused_then_refilled(
+    chain: &Chain<f64>,
+    x: &ArrayD<f64>,
+    work: &mut Workspace,
+    dy: &ArrayD<f64>,
+    dx: &mut ArrayD<f64>,
+) {
+    assert_refused(chain, x, work, dy, dx);
+    chain.forward_reusing(x, work).unwrap();
+    chain.backward_reusing(x, work, dy, dx).unwrap();
+    assert_eq!(*dx, chain.backward(x, dy).unwrap());
+}
+
 proptest! {
     #![proptest_config(ProptestConfig::with_cases(96))]
     /// Any mix of per-element, array and affine stages: the reusing passes,
@@ -306,10 +334,7 @@ fn wrong_changes_and_stale_workspaces_are_errors() {
 
     // Backward before any forward pass.
     let mut work = Workspace::new();
-    let err = chain
-        .backward_reusing(&x, &mut work, &x, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    assert_refused(&chain, &x, &mut work, &x, &mut dx);
 
     // An output change of the wrong shape, through both kinds of passes.
     chain.forward_reusing(&x, &mut work).unwrap();
@@ -332,14 +357,8 @@ fn wrong_changes_and_stale_workspaces_are_errors() {
     let mut other = Chain::<f64>::new(&[2]);
     other.push_elementwise("sin", Sin).unwrap();
     other.push_per_element("cos", Cos).unwrap();
-    let err = other
-        .backward_reusing(&x, &mut work, &x, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
     // Its own forward pass refits the workspace, and then all agrees.
-    other.forward_reusing(&x, &mut work).unwrap();
-    other.backward_reusing(&x, &mut work, &x, &mut dx).unwrap();
-    assert_eq!(dx, other.backward(&x, &x).unwrap());
+    assert_refused_then_refilled(&other, &x, &mut work, &x, &mut dx);
 }
 
 /// `x -> 2x`, refusing inputs over 10: a map whose forward pass fails at
@@ -400,10 +419,7 @@ fn a_forward_pass_that_failed_halfway_is_not_read_back() {
     // The stage's own error, not a NaN or another error.
     let err = chain.forward_reusing(&far, &mut work).unwrap_err();
     assert_is_over_ten(&err);
-    let err = chain
-        .backward_reusing(&far, &mut work, &dy, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    assert_refused(&chain, &far, &mut work, &dy, &mut dx);
 }
 
 /// `x -> x` below 1, NaN from 1 on, never an error; slope 1 below 1, NaN
@@ -477,28 +493,16 @@ fn clones_of_a_chain_share_its_buffers_and_a_grown_chain_refills_them() {
     );
     // Grown after the forward pass: the workspace is stale for it.
     chain.push_per_element("sin", Sin).unwrap();
-    let err = chain
-        .backward_reusing(&x, &mut work, &dy, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
     // Its own forward pass refills it; the clone's is then stale in turn.
-    chain.forward_reusing(&x, &mut work).unwrap();
-    chain.backward_reusing(&x, &mut work, &dy, &mut dx).unwrap();
-    assert_eq!(dx, chain.backward(&x, &dy).unwrap());
-    let err = twin
-        .backward_reusing(&x, &mut work, &dy, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    assert_refused_then_refilled(&chain, &x, &mut work, &dy, &mut dx);
+    assert_refused(&twin, &x, &mut work, &dy, &mut dx);
     // A chain of the same make (one run of three per-element stages) but
     // other maps: its stages did not fill the workspace.
     let mut other = Chain::<f64>::new(&[1]);
     for _ in 0..3 {
         other.push_per_element("exp", Exp).unwrap();
     }
-    let err = other
-        .backward_reusing(&x, &mut work, &dy, &mut dx)
-        .unwrap_err();
-    assert!(matches!(err, Error::WorkspaceNotFilled { .. }), "{err}");
+    assert_refused(&other, &x, &mut work, &dy, &mut dx);
 }
 
 /// A chain of scalar maps: `count` per-element stages, in turn a sine, a
