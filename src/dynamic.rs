@@ -21,15 +21,19 @@ use crate::space::{Real, Space, shape_tuple};
 use crate::workspace::Workspace;
 use ndarray::linalg::general_mat_vec_mul;
 use ndarray::{Array1, Array2, ArrayD, Ix1, IxDyn};
-use std::any::Any;
+use std::any::{Any, TypeId};
 use std::fmt;
-use std::sync::Arc;
+use std::sync::{Arc, OnceLock};
 
 mod per_element;
+mod scalar_stages;
 mod spare;
 use per_element::{
     EachElement, ElementPasses, PerElementStage, RunWork, one_shot_one, run_backward, run_forward,
+    sweep_one, times_slopes,
 };
+pub use scalar_stages::ScalarStages;
+use scalar_stages::{same_mut, same_owned, same_ref};
 pub use spare::free_spare_workspaces;
 
 trait ErasedMap<A, B> {
@@ -47,6 +51,7 @@ trait ErasedMap<A, B> {
         dy: &B,
         dx: &mut A,
     ) -> Result<()>;
+    fn erased_scalar_stages(&self, into: &mut ScalarStages) -> bool;
 }
 
 impl<A: Space, F: Map<A>> ErasedMap<A, F::Output> for F
@@ -89,6 +94,9 @@ where
     ) -> Result<()> {
         Map::backward_reusing(self, x, work, dy, dx)
     }
+    fn erased_scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        Compose::scalar_stages(self, into)
+    }
 }
 
 /// What a [`Boxed`] map's forward pass keeps: the erased map's own memo,
@@ -118,6 +126,20 @@ impl HeldBytes for BoxedMemo {
 /// level, so that 1,000 levels fit a thread's default 2 MiB. For models
 /// deeper than that, a [`Chain`] holds any number of stages side by side,
 /// without nesting.
+///
+/// A `Boxed<f64, f64>` (or `f32`) whose map is, all the way down, a
+/// composition of maps on one real number that list their stages
+/// ([`Compose::scalar_stages`]: the catalogue's elementwise maps, [`Then`](crate::Then)
+/// and boxed maps) runs its reusing passes and its one-shot
+/// [`backward`](Map::backward) as one sweep through the stages, however
+/// deep the nesting: one dynamic call a stage, each stage's slope kept,
+/// the backward pass the product of the change and the slopes, and no
+/// allocation once the workspace is filled (see [`ScalarStages`]). The
+/// numbers are those of the maps' own passes, bit for bit for the
+/// catalogue's maps; a NaN value (which may stand for an error) or a slope
+/// that is not a finite number sends the pass through the maps' own
+/// passes, so errors and NaNs come back as they would. The memo passes
+/// are always the maps' own.
 ///
 /// ```
 /// use revdiff::{Boxed, Compose, Error, Map, Sin};
@@ -149,6 +171,11 @@ pub struct Boxed<A, B> {
     // threads of a law check or of sharded training.
     inner: Arc<dyn ErasedMap<A, B> + Send + Sync>,
     depth: usize,
+    // The map's stages as a composition of maps on one real number, listed
+    // the first time a pass asks (so that the levels of a nested boxed map
+    // do not each keep a copy of the list below them). Shared by the
+    // clones, and its address tells the workspaces this map filled.
+    stages: Arc<OnceLock<Option<ScalarStages>>>,
 }
 
 impl<A, B> Clone for Boxed<A, B> {
@@ -156,6 +183,7 @@ impl<A, B> Clone for Boxed<A, B> {
         Boxed {
             inner: Arc::clone(&self.inner),
             depth: self.depth,
+            stages: Arc::clone(&self.stages),
         }
     }
 }
@@ -189,7 +217,11 @@ impl<A: Space, B: Space> Boxed<A, B> {
                 limit: Self::MAX_DEPTH,
             });
         }
-        Ok(Boxed { inner: map, depth })
+        Ok(Boxed {
+            inner: map,
+            depth,
+            stages: Arc::default(),
+        })
     }
 
     /// [`new`](Self::new) without the depth limit, for the crate's own
@@ -202,6 +234,127 @@ impl<A: Space, B: Space> Boxed<A, B> {
         Boxed {
             depth: map.boxed_depth() + 1,
             inner: Arc::new(map),
+            stages: Arc::default(),
+        }
+    }
+
+    /// The stages this map sweeps when `A` and `B` are both the real type
+    /// `T` and the map lists its stages on `T` ([`Compose::scalar_stages`]).
+    #[inline]
+    fn sweeps<T: Real>(&self) -> Option<&[PerElementStage<T>]> {
+        // Both comparisons are resolved when the code is generated.
+        if TypeId::of::<A>() != TypeId::of::<T>() || TypeId::of::<B>() != TypeId::of::<T>() {
+            return None;
+        }
+        self.stages
+            .get_or_init(|| {
+                let mut stages = ScalarStages::new();
+                self.inner
+                    .erased_scalar_stages(&mut stages)
+                    .then_some(stages)
+            })
+            .as_ref()?
+            .on::<T>()
+    }
+
+    /// The forward pass as a sweep of `stages`, into `work`; through the
+    /// map's own passes when the sweep meets a NaN value (which may stand
+    /// for an error) or a slope that is not a finite number.
+    fn sweep_forward<'w, T: Real>(
+        &self,
+        stages: &[PerElementStage<T>],
+        x: &A,
+        work: &'w mut Workspace,
+    ) -> Result<&'w B> {
+        let w = work.state_or_insert_with(|| Swept::<T>::new(&self.stages));
+        if !Arc::ptr_eq(&w.owner, &self.stages) {
+            *w = Swept::new(&self.stages);
+        }
+        w.slopes.resize(stages.len(), T::zero());
+        let swept = same_ref::<A, T>(x).and_then(|&v| sweep_one(stages, v, &mut w.slopes));
+        match swept {
+            Some(y) => {
+                w.value = Some(y);
+                Ok(same_ref(w.value.as_ref().expect("just set")).expect("B is T"))
+            }
+            None => {
+                w.value = None;
+                self.inner.erased_forward_reusing(x, &mut w.through_map)
+            }
+        }
+    }
+
+    /// What the last [`sweep_forward`](Self::sweep_forward) into `work`
+    /// kept, checked to be this map's.
+    fn swept<'w, T: Real>(&self, work: &'w mut Workspace) -> Result<&'w mut Swept<T>> {
+        match work.state_mut::<Swept<T>>()? {
+            w if Arc::ptr_eq(&w.owner, &self.stages) => Ok(w),
+            _ => Err(not_swept_here()),
+        }
+    }
+
+    fn swept_output<'w, T: Real>(&self, work: &'w Workspace) -> Result<&'w B> {
+        let w = work.state::<Swept<T>>()?;
+        match &w.value {
+            _ if !Arc::ptr_eq(&w.owner, &self.stages) => Err(not_swept_here()),
+            Some(y) => Ok(same_ref(y).expect("B is T")),
+            None => self.inner.erased_reused_output(&w.through_map),
+        }
+    }
+
+    fn sweep_backward<T: Real>(
+        &self,
+        x: &A,
+        work: &mut Workspace,
+        dy: &B,
+        dx: &mut A,
+    ) -> Result<()> {
+        let w = self.swept::<T>(work)?;
+        match (w.value, same_ref::<B, T>(dy), same_mut::<A, T>(dx)) {
+            (Some(_), Some(&g), Some(d)) => {
+                *d = times_slopes(&w.slopes, g);
+                Ok(())
+            }
+            _ => self
+                .inner
+                .erased_backward_reusing(x, &mut w.through_map, dy, dx),
+        }
+    }
+
+    /// The one-shot backward pass as a sweep of `stages`, keeping nothing;
+    /// `None` where [`sweep_forward`](Self::sweep_forward) would go
+    /// through the map's own passes.
+    fn sweep_once<T: Real>(&self, stages: &[PerElementStage<T>], x: &A, dy: &B) -> Option<A> {
+        let dx = one_shot_one(stages, *same_ref::<A, T>(x)?, *same_ref::<B, T>(dy)?)?;
+        same_owned(dx)
+    }
+}
+
+fn not_swept_here() -> Error {
+    Error::WorkspaceNotFilled {
+        operation: "reading what a boxed map's reusing forward pass kept",
+    }
+}
+
+/// What a [`Boxed`] map that sweeps its stages keeps between its reusing
+/// passes: the output and each stage's slope, or, when the sweep gave way
+/// to the map's own passes, their workspace.
+struct Swept<T> {
+    owner: Arc<OnceLock<Option<ScalarStages>>>,
+    value: Option<T>,
+    slopes: Vec<T>,
+    through_map: Workspace,
+}
+
+impl<T> Swept<T> {
+    // Keeping the owner's list alive keeps its address from being reused
+    // by another boxed map while this workspace holds its slopes.
+    fn new(owner: &Arc<OnceLock<Option<ScalarStages>>>) -> Self {
+        Swept {
+            owner: Arc::clone(owner),
+            value: None,
+            slopes: Vec::new(),
+            through_map: Workspace::new(),
         }
     }
 }
@@ -215,6 +368,13 @@ impl<A, B> fmt::Debug for Boxed<A, B> {
 impl<A, B> Compose for Boxed<A, B> {
     fn boxed_depth(&self) -> usize {
         self.depth
+    }
+    fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        match self.stages.get() {
+            Some(Some(listed)) => into.append(listed),
+            Some(None) => false,
+            None => self.inner.erased_scalar_stages(into),
+        }
     }
 }
 
@@ -230,13 +390,48 @@ impl<A: Space, B: Space> Map<A> for Boxed<A, B> {
     fn backward_memo(&self, memo: &BoxedMemo, dy: &B) -> Result<A> {
         self.inner.erased_backward(memo.memo.as_ref(), dy)
     }
+    // A map on `f64` or `f32` that lists its stages sweeps them (see
+    // `ScalarStages`); the memo passes stay the map's own, so that a memo
+    // is the same whatever the map.
+    fn backward(&self, x: &A, dy: &B) -> Result<A> {
+        let swept = match (self.sweeps::<f64>(), self.sweeps::<f32>()) {
+            (Some(stages), _) => self.sweep_once(stages, x, dy),
+            (_, Some(stages)) => self.sweep_once(stages, x, dy),
+            _ => None,
+        };
+        match swept {
+            Some(dx) => Ok(dx),
+            None => {
+                let (_, memo) = self.forward_memo(x)?;
+                self.backward_memo(&memo, dy)
+            }
+        }
+    }
     fn forward_reusing<'w>(&self, x: &A, work: &'w mut Workspace) -> Result<&'w B> {
+        if let Some(stages) = self.sweeps::<f64>() {
+            return self.sweep_forward(stages, x, work);
+        }
+        if let Some(stages) = self.sweeps::<f32>() {
+            return self.sweep_forward(stages, x, work);
+        }
         self.inner.erased_forward_reusing(x, work)
     }
     fn reused_output<'w>(&self, work: &'w Workspace) -> Result<&'w B> {
+        if self.sweeps::<f64>().is_some() {
+            return self.swept_output::<f64>(work);
+        }
+        if self.sweeps::<f32>().is_some() {
+            return self.swept_output::<f32>(work);
+        }
         self.inner.erased_reused_output(work)
     }
     fn backward_reusing(&self, x: &A, work: &mut Workspace, dy: &B, dx: &mut A) -> Result<()> {
+        if self.sweeps::<f64>().is_some() {
+            return self.sweep_backward::<f64>(x, work, dy, dx);
+        }
+        if self.sweeps::<f32>().is_some() {
+            return self.sweep_backward::<f32>(x, work, dy, dx);
+        }
         self.inner.erased_backward_reusing(x, work, dy, dx)
     }
 }

@@ -75,7 +75,9 @@ pub use proptest;
 
 pub use combinators::*;
 pub use cores::on_awake_cores;
-pub use dynamic::{Boxed, BoxedMemo, Chain, ChainMemo, StageShape, free_spare_workspaces};
+pub use dynamic::{
+    Boxed, BoxedMemo, Chain, ChainMemo, ScalarStages, StageShape, free_spare_workspaces,
+};
 pub use error::{Error, Result};
 pub use formula::{Formula, as_formula, input, input_at, parameter};
 pub use higher::{

@@ -4,6 +4,7 @@
 //! methods).
 
 use crate::combinators::{Alongside, Pair, Plus, ReversedThrough, Scaled, Then, Transpose};
+use crate::dynamic::ScalarStages;
 use crate::error::{Error, Result};
 use crate::space::Space;
 use crate::workspace::Workspace;
@@ -405,5 +406,26 @@ pub trait Compose {
     /// for every other map.
     fn boxed_depth(&self) -> usize {
         0
+    }
+
+    /// Appends this map's stages, as a composition of maps on one real
+    /// number, to `into`, and returns true; false (the default) when it is
+    /// not one, or its stages are not known. What a map appended before
+    /// returning false is then thrown away.
+    ///
+    /// A [`Boxed<f64, f64>`](crate::Boxed) (or `f32`) whose map lists its
+    /// stages runs them in one sweep, with no workspace lookup or dynamic
+    /// call per level of nesting (see [`ScalarStages`]): the catalogue's
+    /// elementwise maps list themselves, [`Then`] lists its two parts one
+    /// after the other, and a boxed map lists the map it holds. A
+    /// hand-written scalar map opts in with
+    /// `into.push_on::<f64, _>(self.clone())` (or
+    /// [`push`](ScalarStages::push) for a map on both `f64` and `f32`), and
+    /// must then be exactly the map on one number that it lists: its
+    /// forward pass, and a backward pass that is its slope
+    /// `R[f](x, 1)` times the change.
+    fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        let _ = into;
+        false
     }
 }

@@ -1,10 +1,11 @@
 //! A run-time chain of per-element stages allocates nothing in its reusing
 //! passes once its workspace is filled, and its one-shot backward pass
-//! allocates only the array it returns. One test only: the counting
-//! allocator counts for the whole process.
+//! allocates only the array it returns; a nested boxed map of scalar maps,
+//! which sweeps its stages, allocates nothing after its first call. One
+//! test only: the counting allocator counts for the whole process.
 
 use ndarray::{ArrayD, IxDyn};
-use revdiff::{Chain, Compose, Exp, Map, Sin, Tanh, Workspace};
+use revdiff::{Boxed, Chain, Compose, Exp, Map, Sin, Tanh, Workspace};
 #[path = "common/allocation_count.rs"]
 mod allocation_count;
 use allocation_count::allocations;
@@ -71,4 +72,33 @@ fn reusing_passes_allocate_nothing_after_the_first_call() {
         let (_, memo) = scalar.forward_memo(&x).unwrap();
         assert_eq!(dx, scalar.backward_memo(&memo, &dy).unwrap());
     }
+
+    // A boxed map nested eight deep, of scalar maps, sweeps its stages:
+    // after the first call of each pass (which lists the stages and fills
+    // the workspace), nothing is allocated; through the maps' own passes
+    // each level would box its memo.
+    let mut boxed: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
+    for _ in 1..8 {
+        boxed = Boxed::new(boxed.then(Tanh)).unwrap();
+    }
+    let (mut work, mut dx) = (Workspace::new(), 0.0);
+    let first = boxed.backward(&0.4, &1.0).unwrap();
+    boxed.forward_reusing(&0.4, &mut work).unwrap();
+    boxed
+        .backward_reusing(&0.4, &mut work, &1.0, &mut dx)
+        .unwrap();
+    let before = allocations();
+    for _ in 0..5 {
+        assert_eq!(boxed.backward(&0.4, &1.0).unwrap(), first);
+        boxed.forward_reusing(&0.4, &mut work).unwrap();
+        boxed
+            .backward_reusing(&0.4, &mut work, &1.0, &mut dx)
+            .unwrap();
+        assert_eq!(dx, first);
+    }
+    let made = allocations() - before;
+    assert_eq!(
+        made, 0,
+        "allocations in five rounds of a nested boxed map's passes"
+    );
 }

@@ -2,6 +2,7 @@
 //! pairing, product, sum, scaling and transpose.
 
 use crate::combinators::{AddPair, Fst, Snd};
+use crate::dynamic::ScalarStages;
 use crate::error::{Error, Result};
 use crate::map::{Compose, Kept, Linear, Map, Reverse};
 use crate::space::{Scalable, Space};
@@ -166,12 +167,17 @@ macro_rules! compose_two {
         }
     )*};
 }
-compose_two!(
-    Then.first.second,
-    Pair.left.right,
-    Alongside.left.right,
-    Plus.left.right
-);
+compose_two!(Pair.left.right, Alongside.left.right, Plus.left.right);
+
+// The stages of `f.then(g)` are `f`'s, then `g`'s.
+impl<F: Compose, G: Compose> Compose for Then<F, G> {
+    fn boxed_depth(&self) -> usize {
+        self.first.boxed_depth().max(self.second.boxed_depth())
+    }
+    fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        self.first.scalar_stages(into) && self.second.scalar_stages(into)
+    }
+}
 
 impl<F: Compose, S> Compose for Scaled<F, S> {
     fn boxed_depth(&self) -> usize {

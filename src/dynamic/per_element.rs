@@ -585,6 +585,20 @@ pub(crate) fn one_shot_one<T: Real>(stages: &[PerElementStage<T>], x: T, dy: T) 
             &mut on_heap[..]
         }
     };
+    sweep_one(stages, x, slopes)?;
+    Some(times_slopes(slopes, dy))
+}
+
+/// The value of a chain of scalar stages at `x`, each stage's slope
+/// `R[f](x, 1)` written into `slopes` (one per stage): one dynamic call a
+/// stage, nothing kept. `None` when a value is NaN (which may stand for an
+/// error) or a slope is not a finite number, as in [`one_shot_one`].
+#[inline]
+pub(crate) fn sweep_one<T: Real>(
+    stages: &[PerElementStage<T>],
+    x: T,
+    slopes: &mut [T],
+) -> Option<T> {
     let mut v = x;
     for (stage, slope) in stages.iter().zip(slopes.iter_mut()) {
         let (y, s) = stage.passes.value_and_slope(v);
@@ -593,7 +607,15 @@ pub(crate) fn one_shot_one<T: Real>(stages: &[PerElementStage<T>], x: T, dy: T) 
         }
         (v, *slope) = (y, s);
     }
-    Some(slopes.iter().rev().fold(dy, |d, s| *s * d))
+    Some(v)
+}
+
+/// `R[f](x, dy)` for a chain of scalar stages whose slopes at `x` are
+/// `slopes`: the change times each slope, last stage first, as the chain
+/// rule applies them and as every other pass multiplies.
+#[inline]
+pub(crate) fn times_slopes<T: Real>(slopes: &[T], dy: T) -> T {
+    slopes.iter().rev().fold(dy, |d, s| *s * d)
 }
 
 /// The longest arrays for which the forward pass of a run keeps slopes.

@@ -14,32 +14,60 @@
 //! a primitive of this module, so reverse derivatives of every order exist.
 
 use crate::combinators::{Fst, Id, MultiplyBy, Pair, Snd, Then, ZeroMap};
+use crate::dynamic::ScalarStages;
 use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
 use crate::workspace::Workspace;
+use std::any::Any;
 
-impl Compose for Exp {}
-impl Compose for ExpMinusOne {}
-impl Compose for LnOnePlus {}
-impl Compose for Arctan {}
-impl<T> Compose for Shift<T> {}
-impl Compose for Ln {}
-impl Compose for Sqrt {}
-impl Compose for Sin {}
-impl Compose for Cos {}
-impl Compose for Tanh {}
-impl Compose for SechSquared {}
-impl Compose for Sigmoid {}
-impl Compose for Softplus {}
-impl Compose for Relu {}
-impl Compose for Heaviside {}
-impl Compose for Abs {}
-impl Compose for Signum {}
-impl<T> Compose for Powi<T> {}
-impl<T> Compose for Powf<T> {}
-impl<T> Compose for Clamp<T> {}
-impl<T> Compose for InsideBand<T> {}
+// Every map here lists itself as a stage on one real number, so that a
+// boxed composition of them is swept (see `ScalarStages`).
+macro_rules! scalar_stage {
+    ($($ty:ident),*) => {$(
+        impl Compose for $ty {
+            fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+                into.push(self.clone())
+            }
+        }
+    )*};
+    // Maps with a setting of the element type act on that type only.
+    ($($ty:ident<T>),*) => {$(
+        impl<T: Real> Compose for $ty<T> {
+            fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+                let any: &dyn Any = self;
+                if let Some(map) = any.downcast_ref::<$ty<f64>>() {
+                    into.push_on::<f64, _>(map.clone())
+                } else if let Some(map) = any.downcast_ref::<$ty<f32>>() {
+                    into.push_on::<f32, _>(map.clone())
+                } else {
+                    false
+                }
+            }
+        }
+    )*};
+}
+scalar_stage!(
+    Exp,
+    ExpMinusOne,
+    LnOnePlus,
+    Arctan,
+    Ln,
+    Sqrt,
+    Sin,
+    Cos,
+    Tanh,
+    SechSquared,
+    Sigmoid,
+    Softplus,
+    Relu,
+    Heaviside,
+    Abs,
+    Signum,
+    Neg,
+    IntegerPower
+);
+scalar_stage!(Shift<T>, Powi<T>, Powf<T>, Clamp<T>, InsideBand<T>);
 
 /// A scalar function with its derivative, applied element by element.
 trait Elementwise<T: Real> {
@@ -816,8 +844,6 @@ elementwise!([E: Pointwise] Signum, slope map ZeroMap = |_s| ZeroMap);
 #[derive(Clone, Copy, Debug, Default, PartialEq)]
 pub struct Neg;
 
-impl Compose for Neg {}
-
 impl<E: Pointwise> Map<E> for Neg {
     type Output = E;
     type Memo = ();
@@ -1092,8 +1118,6 @@ elementwise!([E: Pointwise] Arctan,
 /// ```
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct IntegerPower(pub i32);
-
-impl Compose for IntegerPower {}
 
 impl<T: Real> Elementwise<T> for IntegerPower {
     const NAME: &'static str = "integer power";

@@ -14,6 +14,8 @@ mod bad_inputs;
 mod batches;
 #[path = "../bits.rs"]
 mod bits;
+#[path = "../boxed_sweep.rs"]
+mod boxed_sweep;
 #[path = "../combinators.rs"]
 mod combinators;
 #[path = "../cores.rs"]
