@@ -8,7 +8,7 @@
 #[path = "support/chains.rs"]
 mod chains;
 
-use chains::sine_chains;
+use chains::{double, sine_chains};
 use criterion::{Criterion, criterion_group, criterion_main};
 use ndarray::{Array1, ArrayD};
 use revdiff::{Boxed, Chain, Compose, Map, Reverse, Sigmoid, Sin, Softplus, Tanh, Workspace};
@@ -107,6 +107,42 @@ fn compositions(c: &mut Criterion) {
     group.finish();
 }
 
+/// Eight sine stages on one `f64`, composed four ways: statically, as a
+/// boxed map nested eight deep (which sweeps its stages), and as a
+/// run-time chain of per-element stages over one-element arrays.
+fn scalar_chains(c: &mut Criterion) {
+    let fixed = double(double(double(Sin)));
+    let mut nested: Boxed<f64, f64> = Boxed::new(Sin).unwrap();
+    for _ in 1..8 {
+        nested = Boxed::new(nested.then(Sin)).unwrap();
+    }
+    let mut chain = Chain::<f64>::new(&[1]);
+    for _ in 0..8 {
+        chain.push_per_element("sin", Sin).unwrap();
+    }
+    let (x, xd) = (0.7_f64, ArrayD::from_elem(vec![1], 0.7));
+    let mut group = c.benchmark_group("eight sine stages on one number");
+    group.bench_function("static backward", |b| {
+        b.iter(|| fixed.backward(black_box(&x), &1.0).unwrap())
+    });
+    group.bench_function("nested boxed backward", |b| {
+        b.iter(|| nested.backward(black_box(&x), &1.0).unwrap())
+    });
+    group.bench_function("nested boxed, reusing passes", |b| {
+        let (mut work, mut dx) = (Workspace::new(), 0.0);
+        b.iter(|| {
+            nested.forward_reusing(black_box(&x), &mut work).unwrap();
+            nested
+                .backward_reusing(&x, &mut work, &1.0, &mut dx)
+                .unwrap();
+        })
+    });
+    group.bench_function("run-time chain backward", |b| {
+        b.iter(|| chain.backward(black_box(&xd), &xd).unwrap())
+    });
+    group.finish();
+}
+
 fn backward_and_hessian<F: revdiff::Reverse<f64, Output = f64>>(
     group: &mut criterion::BenchmarkGroup<'_, criterion::measurement::WallTime>,
     n: usize,
@@ -133,5 +169,5 @@ fn second_order(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, compositions, second_order);
+criterion_group!(benches, compositions, scalar_chains, second_order);
 criterion_main!(benches);
