@@ -8,6 +8,10 @@
 //! [`Error::ChainShape`] naming both shapes and the stage, and the chain is
 //! left as it was.
 //!
+//! A boxed map of `f64` or `f32` whose map is a composition of maps on one
+//! real number lists its stages ([`ScalarStages`]) and sweeps them, with
+//! no dynamic call or workspace lookup per level of nesting.
+//!
 //! Both forms are first-order (forward and backward passes). Reverse
 //! derivatives as maps, and so second order, need the statically typed
 //! combinators, whose types describe the whole map.
