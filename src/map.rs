@@ -416,8 +416,9 @@ pub trait Compose {
     /// A [`Boxed<f64, f64>`](crate::Boxed) (or `f32`) whose map lists its
     /// stages runs them in one sweep, with no workspace lookup or dynamic
     /// call per level of nesting (see [`ScalarStages`]): the catalogue's
-    /// elementwise maps list themselves, [`Then`] lists its two parts one
-    /// after the other, and a boxed map lists the map it holds. A
+    /// elementwise maps and scaling list themselves, the identity lists no
+    /// stage, [`Then`] lists its two parts one after the other, and a
+    /// boxed map lists the map it holds. A
     /// hand-written scalar map opts in with
     /// `into.push_on::<f64, _>(self.clone())` (or
     /// [`push`](ScalarStages::push) for a map on both `f64` and `f32`), and

@@ -26,8 +26,8 @@ impl<T: Real, F: Map<T, Output = T>> Map<T> for Opaque<F> {
 }
 
 /// How many stages [`nested`] can make: every elementwise map of the
-/// catalogue.
-const STAGES: usize = 23;
+/// catalogue, the identity and scaling.
+const STAGES: usize = 25;
 
 /// The boxed map of `stages` (each below [`STAGES`]), nested one level
 /// per stage after the first; with `opaque`, the innermost stage is
@@ -41,6 +41,7 @@ where
     Shift<T>: Map<T, Output = T, Memo = T>,
     Clamp<T>: Map<T, Output = T, Memo = T>,
     InsideBand<T>: Map<T, Output = T, Memo = T>,
+    MultiplyBy<T>: Map<T, Output = T, Memo = ()>,
 {
     let real = |v: f64| T::from(v).unwrap();
     // `f` followed by stage `k`, boxed: one level of nesting.
@@ -68,7 +69,9 @@ where
             19 => Boxed::new(f.then(Powf::new(real(0.5)))),
             20 => Boxed::new(f.then(Shift::new(real(0.25)).unwrap())),
             21 => Boxed::new(f.then(Clamp::new(real(0.9)).unwrap())),
-            _ => Boxed::new(f.then(InsideBand::new(real(0.9)).unwrap())),
+            22 => Boxed::new(f.then(InsideBand::new(real(0.9)).unwrap())),
+            23 => Boxed::new(f.then(id())),
+            _ => Boxed::new(f.then(multiply_by(real(-1.7)))),
         }
         .unwrap()
     };
@@ -162,6 +165,15 @@ fn stages_are_listed_by_type() {
     assert_eq!(
         listed(&|s| Sin.then(Exp).scalar_stages(s)),
         (true, Some(2), Some(2))
+    );
+    // The identity is no stage; scaling by an `f32` is a stage on `f32`.
+    assert_eq!(
+        listed(&|s| id().then(Sin).then(id()).scalar_stages(s)),
+        (true, Some(1), Some(1))
+    );
+    assert_eq!(
+        listed(&|s| Sin.then(multiply_by(2.0_f32)).scalar_stages(s)),
+        (true, None, Some(2))
     );
     // A setting of one element type: the other type's list is dropped.
     assert_eq!(

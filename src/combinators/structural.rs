@@ -3,9 +3,11 @@
 //! structural maps only, so every order of reverse derivative stays here.
 
 use crate::combinators::{Pair, Then};
+use crate::dynamic::ScalarStages;
 use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Scalable, Space};
+use std::any::Any;
 
 macro_rules! compose_for {
     ($($t:ident),*) => {$( impl Compose for $t {} )*};
@@ -146,9 +148,30 @@ pub fn multiply_by<S>(s: S) -> MultiplyBy<S> {
     MultiplyBy(s)
 }
 
-compose_for!(Id, Fst, Snd, Duplicate, AddPair, Discard, ZeroMap);
+compose_for!(Fst, Snd, Duplicate, AddPair, Discard, ZeroMap);
 impl<B> Compose for Constant<B> {}
-impl<S> Compose for MultiplyBy<S> {}
+
+// On one real number the identity is no stage at all, and scaling by a
+// number of the same type is one (see `ScalarStages`).
+impl Compose for Id {
+    fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        let _ = into;
+        true
+    }
+}
+
+impl<S: Copy + 'static> Compose for MultiplyBy<S> {
+    fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
+        let any: &dyn Any = self;
+        if let Some(&map) = any.downcast_ref::<MultiplyBy<f64>>() {
+            into.push_on::<f64, _>(map)
+        } else if let Some(&map) = any.downcast_ref::<MultiplyBy<f32>>() {
+            into.push_on::<f32, _>(map)
+        } else {
+            false
+        }
+    }
+}
 
 impl<A: Space> Map<A> for Id {
     type Output = A;
@@ -314,7 +337,7 @@ impl<A: Space, B: Space> Reverse<A> for Constant<B> {
     }
 }
 
-impl<S: Copy, A: Scalable<S>> Map<A> for MultiplyBy<S> {
+impl<S: Copy + 'static, A: Scalable<S>> Map<A> for MultiplyBy<S> {
     type Output = A;
     type Memo = ();
     fn forward_memo(&self, x: &A) -> Result<(A, ())> {
@@ -325,7 +348,7 @@ impl<S: Copy, A: Scalable<S>> Map<A> for MultiplyBy<S> {
     }
 }
 
-impl<S: Copy, A: Scalable<S>> Reverse<A> for MultiplyBy<S> {
+impl<S: Copy + 'static, A: Scalable<S>> Reverse<A> for MultiplyBy<S> {
     type Rev = Then<Snd, MultiplyBy<S>>;
     fn rev(&self) -> Self::Rev {
         Snd.then(*self)
@@ -339,4 +362,4 @@ impl<A: Space> Linear<A> for Duplicate {}
 impl<A: Space> Linear<(A, A)> for AddPair {}
 impl<A: Space> Linear<A> for Discard {}
 impl<A: Space> Linear<A> for ZeroMap {}
-impl<S: Copy, A: Scalable<S>> Linear<A> for MultiplyBy<S> {}
+impl<S: Copy + 'static, A: Scalable<S>> Linear<A> for MultiplyBy<S> {}
