@@ -7,7 +7,6 @@ use crate::dynamic::ScalarStages;
 use crate::error::Result;
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Scalable, Space};
-use std::any::Any;
 
 macro_rules! compose_for {
     ($($t:ident),*) => {$( impl Compose for $t {} )*};
@@ -162,14 +161,7 @@ impl Compose for Id {
 
 impl<S: Copy + 'static> Compose for MultiplyBy<S> {
     fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
-        let any: &dyn Any = self;
-        if let Some(&map) = any.downcast_ref::<MultiplyBy<f64>>() {
-            into.push_on::<f64, _>(map)
-        } else if let Some(&map) = any.downcast_ref::<MultiplyBy<f32>>() {
-            into.push_on::<f32, _>(map)
-        } else {
-            false
-        }
+        into.push_either::<MultiplyBy<f64>, MultiplyBy<f32>>(self)
     }
 }
 

@@ -144,6 +144,26 @@ impl ScalarStages {
         self.is_listed()
     }
 
+    /// Appends `map`, a `M64` or a `M32` (one type with a setting of each
+    /// real type, such as `Powi<f64>` and `Powi<f32>`), with
+    /// [`push_on`](Self::push_on) on its type; false, listing nothing, when
+    /// it is neither.
+    pub(crate) fn push_either<M64, M32>(&mut self, map: &dyn Any) -> bool
+    where
+        M64: Map<f64, Output = f64> + Clone + Send + Sync + 'static,
+        M64::Memo: Send + Sync + 'static,
+        M32: Map<f32, Output = f32> + Clone + Send + Sync + 'static,
+        M32::Memo: Send + Sync + 'static,
+    {
+        if let Some(map) = map.downcast_ref::<M64>() {
+            self.push_on::<f64, _>(map.clone())
+        } else if let Some(map) = map.downcast_ref::<M32>() {
+            self.push_on::<f32, _>(map.clone())
+        } else {
+            false
+        }
+    }
+
     /// How many stages are listed on `T`, or `None` when a stage does not
     /// act on `T` (or `T` is neither `f64` nor `f32`).
     pub fn len_on<T: Real>(&self) -> Option<usize> {

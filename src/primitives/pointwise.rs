@@ -19,7 +19,6 @@ use crate::error::{Error, Result};
 use crate::map::{Compose, Linear, Map, Reverse};
 use crate::space::{Pointwise, Real};
 use crate::workspace::Workspace;
-use std::any::Any;
 
 // Every map here lists itself as a stage on one real number, so that a
 // boxed composition of them is swept (see `ScalarStages`).
@@ -35,14 +34,7 @@ macro_rules! scalar_stage {
     ($($ty:ident<T>),*) => {$(
         impl<T: Real> Compose for $ty<T> {
             fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
-                let any: &dyn Any = self;
-                if let Some(map) = any.downcast_ref::<$ty<f64>>() {
-                    into.push_on::<f64, _>(map.clone())
-                } else if let Some(map) = any.downcast_ref::<$ty<f32>>() {
-                    into.push_on::<f32, _>(map.clone())
-                } else {
-                    false
-                }
+                into.push_either::<$ty<f64>, $ty<f32>>(self)
             }
         }
     )*};
