@@ -669,11 +669,26 @@ impl<R: Real> Checker<R> {
                 // The receiver may have given up waiting: nothing to do then.
                 let _ = sender.send(checker.judge_case(&*shared, law, order, &case));
             });
-        if spawned.is_err() {
+        let Ok(thread) = spawned else {
             // No thread to be had: judge here, without a limit.
             return self.judge_case(eval.as_ref(), law, order, c);
+        };
+        let received = receiver.recv_timeout(self.time_limit);
+        // Never drop (detach) the handle of a thread that may be ending:
+        // glibc's `pthread_detach` reads the thread's descriptor after
+        // marking it detached, and a thread that ends in between unmaps
+        // its stack (a stack this large is not kept in glibc's cache), so
+        // the read faulted (SIGSEGV, seen in test runs). A thread that
+        // answered is joined; one that overran is kept until it ends.
+        match received {
+            Ok(_) | Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                // Its result was sent (or it panicked, which `judge_case`
+                // already caught and reported), so it is ending.
+                let _ = thread.join();
+            }
+            Err(std::sync::mpsc::RecvTimeoutError::Timeout) => keep_until_ended(thread),
         }
-        match receiver.recv_timeout(self.time_limit) {
+        match received {
             Ok(outcome) => outcome,
             Err(std::sync::mpsc::RecvTimeoutError::Timeout) => Err(Discrepancy::failure(format!(
                 "{OVERRAN} of {:?}: the map may never return at this case (its thread was left \
@@ -879,3 +894,21 @@ fn not_for_maps(law: Law) -> Discrepancy {
 
 /// The stack of the thread each sampled case runs on.
 const CASE_STACK_BYTES: usize = 64 << 20;
+
+/// Keeps the handle of a case's thread that overran its time limit, and
+/// joins those kept before that have ended since (see
+/// [`Checker::judge_in_time`] for why a handle is never dropped).
+fn keep_until_ended(thread: std::thread::JoinHandle<()>) {
+    static OVERRUNNING: std::sync::Mutex<Vec<std::thread::JoinHandle<()>>> =
+        std::sync::Mutex::new(Vec::new());
+    let mut kept = OVERRUNNING
+        .lock()
+        .unwrap_or_else(std::sync::PoisonError::into_inner);
+    let (ended, running): (Vec<_>, Vec<_>) = kept.drain(..).partition(|t| t.is_finished());
+    *kept = running;
+    kept.push(thread);
+    drop(kept);
+    for t in ended {
+        let _ = t.join();
+    }
+}
