@@ -418,13 +418,12 @@ pub trait Compose {
     /// call per level of nesting (see [`ScalarStages`]): the catalogue's
     /// elementwise maps and scaling list themselves, the identity lists no
     /// stage, [`Then`] lists its two parts one after the other, and a
-    /// boxed map lists the map it holds. A
-    /// hand-written scalar map opts in with
-    /// `into.push_on::<f64, _>(self.clone())` (or
+    /// boxed map lists the map it holds. A hand-written scalar map opts in
+    /// with `into.push_on::<f64, _>(self.clone())` (or
     /// [`push`](ScalarStages::push) for a map on both `f64` and `f32`), and
     /// must then be exactly the map on one number that it lists: its
-    /// forward pass, and a backward pass that is its slope
-    /// `R[f](x, 1)` times the change.
+    /// forward pass, and a backward pass that is its slope `R[f](x, 1)`
+    /// times the change.
     fn scalar_stages(&self, into: &mut ScalarStages) -> bool {
         let _ = into;
         false

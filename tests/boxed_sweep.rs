@@ -136,6 +136,7 @@ proptest! {
         dy in -3.0..3.0_f32,
     ) {
         let swept = nested::<f32>(first, &stages, false);
+        prop_assert_eq!(swept.scalar_stages(&mut ScalarStages::new()), true);
         assert_same_passes(&swept, &nested(first, &stages, true), x, dy);
     }
 }

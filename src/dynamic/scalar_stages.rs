@@ -187,13 +187,9 @@ impl ScalarStages {
     #[inline]
     pub(crate) fn on<T: Real>(&self) -> Option<&[PerElementStage<T>]> {
         // Resolved when the code is generated: no dynamic call is left.
-        if let Some(list) =
-            (&self.on_f64 as &dyn Any).downcast_ref::<Option<Vec<PerElementStage<T>>>>()
-        {
-            return list.as_deref();
-        }
-        (&self.on_f32 as &dyn Any)
-            .downcast_ref::<Option<Vec<PerElementStage<T>>>>()
+        type On<T> = Option<Vec<PerElementStage<T>>>;
+        same_ref::<_, On<T>>(&self.on_f64)
+            .or_else(|| same_ref(&self.on_f32))
             .and_then(Option::as_deref)
     }
 
@@ -215,7 +211,7 @@ where
 /// Moves `stage` into `list` when they are of the same type (and the list
 /// is still there); whether they were.
 fn push_if_same<S: 'static, U: 'static>(list: &mut Option<Vec<U>>, stage: &mut Option<S>) -> bool {
-    match (stage as &mut dyn Any).downcast_mut::<Option<U>>() {
+    match same_mut::<Option<S>, Option<U>>(stage) {
         Some(same) => {
             if let (Some(list), Some(stage)) = (list.as_mut(), same.take()) {
                 list.push(stage);
