@@ -20,7 +20,7 @@ use std::cell::Cell;
 #[derive(Clone, Copy, PartialEq, Eq)]
 enum Spread {
     /// Splits only large work (products of 2^24 multiply-adds, maps over
-    /// 2^17 elements): the other threads may be asleep.
+    /// 2^18 elements): the other threads may be asleep.
     Large,
     /// Another thread stands by ([`on_awake_cores`]): splits from much
     /// smaller sizes, in halves.
@@ -137,9 +137,12 @@ const AWAKE_ELEMENTS_FROM: usize = 1 << 14;
 /// Elementwise maps over at least this many elements split anywhere else:
 /// below it handing work to sleeping threads cost more than it saved (at
 /// 2^15 elements, `tanh` over a 128 x 256 batch, an f32 training step ran
-/// at 42 GFLOP/s split against 62 not).
+/// at 42 GFLOP/s split against 62 not). Since the loops run on the widest
+/// vector instructions, an f32 `tanh` split at 2^17 elements ran no faster
+/// than whole (0.41 against 0.40 ns per element), at 2^18 at 0.34, at
+/// 2^19 at 0.23.
 #[cfg(feature = "threads")]
-const ELEMENTS_FROM: usize = 1 << 17;
+const ELEMENTS_FROM: usize = 1 << 18;
 
 /// How a product of `m` rows and `m * k * n` multiply-adds runs on the
 /// calling thread.
@@ -297,7 +300,7 @@ where
 /// multiply-adds or more (a 128 x 256 batch by a 256 x 256 matrix is 2^23)
 /// and elementwise maps and optimiser updates over 16,384 elements or more
 /// run in two halves, one per core; elsewhere only products of 2^24 and
-/// maps over 131,072 elements split, because a thread of the pool that has
+/// maps over 262,144 elements split, because a thread of the pool that has
 /// gone to sleep takes longer to wake than half of a smaller product takes.
 /// At 128 x 256 x 256 (f32), two halves ran at 150-226 GFLOP/s this way
 /// against 93-150 on one core and 90-137 handed to sleeping threads.

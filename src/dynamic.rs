@@ -946,7 +946,7 @@ impl<T: Real> Chain<T> {
     /// finite number (a power near 0, whose slope overflows while its
     /// product with a small change need not), the map's own backward pass
     /// gives the change. All passes (reusing or not) compute the same
-    /// numbers. Arrays of 131,072 elements or more are split across the
+    /// numbers. Arrays of 262,144 elements or more are split across the
     /// cores (with the `threads` feature), which is why the map's memo must
     /// be `Send` and `Sync`.
     ///

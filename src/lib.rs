@@ -64,6 +64,7 @@ pub mod primitives;
 mod products;
 pub mod retention;
 pub mod space;
+mod vectors;
 pub mod workspace;
 
 /// The ndarray this crate is built on, re-exported so that a user's arrays

@@ -549,6 +549,27 @@ fn single<T: Copy, D: Dimension>(a: &Array<T, D>) -> Option<T> {
     }
 }
 
+/// Runs `each` over contiguous slices of `len` elements (`parts`, one or
+/// several of that length): in two halves on two cores where the length
+/// calls for it (see [`crate::cores`]), and, from a few vectors' worth of
+/// elements, compiled for the processor's widest vector instructions
+/// ([`crate::vectors`]). Every element is computed as it would be alone,
+/// so neither choice changes a result.
+#[inline]
+fn over_slices<K: crate::cores::Halves>(len: usize, parts: K, each: impl Fn(K) + Sync) {
+    // Below this, choosing the instructions costs more than they save.
+    const WIDE_FROM: usize = 32;
+    if len < WIDE_FROM {
+        return each(parts);
+    }
+    crate::cores::over_halves(
+        len,
+        parts,
+        &|k| crate::vectors::widest(|| each(k)),
+        |(), ()| (),
+    )
+}
+
 /// Updates every element of `out` by `update` from the elements of `a`
 /// and `b` at the same place (the caller checked that the three shapes
 /// agree), through the fastest path their layouts allow: one element,
@@ -564,12 +585,12 @@ fn update_from_two<T: Real, D: Dimension>(
         update(o, x, y);
         return;
     }
-    if !split_across_cores(a.len())
-        && let (Some(o), Some(x), Some(y)) = (out.as_slice_mut(), a.as_slice(), b.as_slice())
-    {
-        o.iter_mut()
-            .zip(x.iter().zip(y))
-            .for_each(|(o, (&x, &y))| update(o, x, y));
+    if let (Some(o), Some(x), Some(y)) = (out.as_slice_mut(), a.as_slice(), b.as_slice()) {
+        over_slices(o.len(), (o, (x, y)), |(o, (x, y))| {
+            o.iter_mut()
+                .zip(x.iter().zip(y))
+                .for_each(|(o, (&x, &y))| update(o, x, y))
+        });
         return;
     }
     let zip = Zip::from(out).and(a).and(b);
@@ -692,10 +713,12 @@ pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
     // (checks of gradients were a tenth of a small network's step).
     #[allow(clippy::eq_op)]
     let check = |values: &[T]| {
-        values.chunks(256).all(|block| {
-            block
-                .iter()
-                .fold(true, |ok, &v| ok & ((v - v) == T::zero()))
+        crate::vectors::widest(|| {
+            values.chunks(256).all(|block| {
+                block
+                    .iter()
+                    .fold(true, |ok, &v| ok & ((v - v) == T::zero()))
+            })
         })
     };
     if crate::cores::standing_by() {
@@ -706,6 +729,7 @@ pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
 
 /// Whether an elementwise map over `len` elements splits across cores
 /// (see [`crate::cores`]).
+#[cfg(feature = "threads")]
 #[inline]
 pub(crate) fn split_across_cores(len: usize) -> bool {
     crate::cores::split_elements(len)
@@ -714,6 +738,15 @@ pub(crate) fn split_across_cores(len: usize) -> bool {
 impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
     type Elem = T;
     fn map_elems(&self, f: impl Fn(T) -> T + Sync + Send) -> Self {
+        // Contiguous (the crate's own outputs): a copy of `self`, mapped in
+        // place through the slice loop.
+        if self.as_slice_memory_order().is_some() {
+            let mut out = self.clone();
+            if let Some(o) = out.as_slice_memory_order_mut() {
+                over_slices(o.len(), o, |o| o.iter_mut().for_each(|v| *v = f(*v)));
+                return out;
+            }
+        }
         #[cfg(feature = "threads")]
         if split_across_cores(self.len()) {
             return Zip::from(self).par_map_collect(|&v| f(v));
@@ -727,18 +760,20 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         f: impl Fn(T, T) -> T + Sync + Send,
     ) -> Result<Self> {
         same_shape(operation, self, other)?;
-        #[cfg(feature = "threads")]
-        if split_across_cores(self.len()) {
-            return Ok(Zip::from(self).and(other).par_map_collect(|&a, &b| f(a, b)));
-        }
         // Both in standard layout: a copy of `self` overwritten in place,
         // without the setup of a `Zip`, which dominates for small arrays.
         if self.is_standard_layout() && other.is_standard_layout() {
             let mut out = self.clone();
             if let (Some(o), Some(b)) = (out.as_slice_mut(), other.as_slice()) {
-                o.iter_mut().zip(b).for_each(|(o, &b)| *o = f(*o, b));
+                over_slices(o.len(), (o, b), |(o, b)| {
+                    o.iter_mut().zip(b).for_each(|(o, &b)| *o = f(*o, b))
+                });
                 return Ok(out);
             }
+        }
+        #[cfg(feature = "threads")]
+        if split_across_cores(self.len()) {
+            return Ok(Zip::from(self).and(other).par_map_collect(|&a, &b| f(a, b)));
         }
         Ok(Zip::from(self).and(other).map_collect(|&a, &b| f(a, b)))
     }
@@ -754,10 +789,10 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         // Both in standard layout (as the crate's own outputs are): plain
         // slices, without the per-call setup of a `Zip`, which dominates for
         // small arrays.
-        if !split_across_cores(self.len())
-            && let (Some(o), Some(a)) = (out.as_slice_mut(), self.as_slice())
-        {
-            o.iter_mut().zip(a).for_each(|(o, &v)| *o = f(v));
+        if let (Some(o), Some(a)) = (out.as_slice_mut(), self.as_slice()) {
+            over_slices(o.len(), (o, a), |(o, a)| {
+                o.iter_mut().zip(a).for_each(|(o, &v)| *o = f(v))
+            });
             return;
         }
         let zip = Zip::from(out).and(self);
@@ -773,13 +808,15 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
         // overwritten in place. A copy costs less than building an array
         // from a shape, which for small arrays of dynamic dimension costs
         // more than the map.
-        if !split_across_cores(self.len()) && self.as_slice_memory_order().is_some() {
+        if self.as_slice_memory_order().is_some() {
             let (mut first, mut second) = (self.clone(), self.clone());
             if let (Some(a), Some(b)) = (
                 first.as_slice_memory_order_mut(),
                 second.as_slice_memory_order_mut(),
             ) {
-                a.iter_mut().zip(b).for_each(|(a, b)| (*a, *b) = f(*a));
+                over_slices(a.len(), (a, b), |(a, b)| {
+                    a.iter_mut().zip(b).for_each(|(a, b)| (*a, *b) = f(*a))
+                });
                 return (first, second);
             }
         }
@@ -806,14 +843,15 @@ impl<T: Real, D: Dimension + 'static> Pointwise for Array<T, D> {
             }
             return;
         }
-        if !split_across_cores(self.len())
-            && let (Some(a), Some(b), Some(x)) =
-                (first.as_slice_mut(), second.as_slice_mut(), self.as_slice())
+        if let (Some(a), Some(b), Some(x)) =
+            (first.as_slice_mut(), second.as_slice_mut(), self.as_slice())
         {
-            a.iter_mut()
-                .zip(b.iter_mut())
-                .zip(x)
-                .for_each(|((a, b), &v)| (*a, *b) = f(v));
+            over_slices(a.len(), (a, b, x), |(a, b, x)| {
+                a.iter_mut()
+                    .zip(b.iter_mut())
+                    .zip(x)
+                    .for_each(|((a, b), &v)| (*a, *b) = f(v))
+            });
             return;
         }
         let zip = Zip::from(first).and(second).and(self);

@@ -459,8 +459,8 @@ fn a_failing_or_panicking_shard_stops_sharded_training_with_an_error() {
 
 #[test]
 fn large_elementwise_maps_split_across_cores_give_the_same_values() {
-    // Above the 131,072 elements from which elementwise work is split.
-    let x: Array1<f64> = Array1::linspace(-5.0, 5.0, 200_000);
+    // Above the 262,144 elements from which elementwise work is split.
+    let x: Array1<f64> = Array1::linspace(-5.0, 5.0, 300_000);
     let y = Tanh.forward(&x).unwrap();
     // The reusing passes split too, into the kept buffers.
     let mut work = Workspace::new();

@@ -1,8 +1,10 @@
 //! The hand-written baselines the library is measured against: the same
 //! multilayer perceptron, loss and Adam written directly in ndarray, as
 //! efficiently as ndarray allows (products into buffers allocated once,
-//! elementwise updates in place, no input change for the first layer,
-//! the library's vectorised `tanh`).
+//! elementwise updates in place over slices, no input change for the
+//! first layer, the library's vectorised `tanh`), and the same code with
+//! the library's kernels: its product and, for the elementwise loops, the
+//! widest vector instructions (`Network::with_library_kernels`).
 //!
 //! Shared by `benches/against_hand_written.rs` and
 //! `examples/against_hand_written.rs` through `#[path]`.
@@ -10,7 +12,7 @@
 #![allow(dead_code)]
 
 use ndarray::linalg::general_mat_mul;
-use ndarray::{Array1, Array2, ArrayView2, Zip};
+use ndarray::{Array1, Array2, ArrayView2};
 use revdiff::Real;
 
 /// The sizes of a measured network and its batches: layer widths
@@ -181,8 +183,24 @@ pub struct Network<T> {
     adam_v: Vec<T>,
     steps: i32,
     /// Whether the products go through the library's kernel
-    /// (`Real::product_into`) rather than ndarray's `general_mat_mul`.
-    library_products: bool,
+    /// (`Real::product_into`) rather than ndarray's `general_mat_mul`, and
+    /// the elementwise loops are compiled for the processor's widest
+    /// vector instructions as the library's are, rather than for the
+    /// target's baseline.
+    library_kernels: bool,
+}
+
+/// Runs `loops` compiled for the widest vector instructions of this
+/// processor (AVX2 or AVX-512 on x86-64, chosen at run time through
+/// `pulp`, as the library's own elementwise loops are) when `wide`, and
+/// as built otherwise.
+#[inline(always)]
+fn vector_loops<R>(wide: bool, loops: impl FnOnce() -> R) -> R {
+    if wide {
+        pulp::Arch::new().dispatch(loops)
+    } else {
+        loops()
+    }
 }
 
 /// `c = alpha a b + beta c`, through ndarray or through the library's
@@ -222,16 +240,17 @@ impl<T: Real> Network<T> {
             adam_m: vec![T::zero(); n],
             adam_v: vec![T::zero(); n],
             steps: 0,
-            library_products: false,
+            library_kernels: false,
         }
     }
 
     /// The same network with its products through the library's kernel
-    /// (`Real::product_into`): what the code costs by hand with the same
-    /// products as the library's.
-    pub fn with_library_products(p: &Params<T>, batch: usize) -> Self {
+    /// (`Real::product_into`) and its elementwise loops compiled for the
+    /// widest vector instructions: what the code costs by hand with the
+    /// same kernels as the library's.
+    pub fn with_library_kernels(p: &Params<T>, batch: usize) -> Self {
         Network {
-            library_products: true,
+            library_kernels: true,
             ..Network::new(p, batch)
         }
     }
@@ -257,11 +276,14 @@ impl<T: Real> Network<T> {
                 before[k - 1].view()
             };
             let keep = if elementwise { T::one() } else { T::zero() };
-            mat_mul(self.library_products, T::one(), input, w.t(), keep, out);
+            mat_mul(self.library_kernels, T::one(), input, w.t(), keep, out);
             if elementwise && k < 2 {
                 // The same vectorised tanh as the library's (public through
                 // `Real`), so that the ratio measures composition alone.
-                out.mapv_inplace(|v| v.vector_tanh());
+                let out = out.as_slice_mut().unwrap();
+                vector_loops(self.library_kernels, || {
+                    out.iter_mut().for_each(|v| *v = v.vector_tanh())
+                });
             }
         }
     }
@@ -286,17 +308,22 @@ impl<T: Real> Network<T> {
         self.forward_pass(x, elementwise);
         let n: T = real(self.dy.len() as f64);
         let mut total = T::zero();
+        let library = self.library_kernels;
         if let Some(t) = targets {
-            Zip::from(&mut self.dy)
-                .and(&self.acts[2])
-                .and(t)
-                .for_each(|d, &y, &t| {
+            let (dy, y, t) = (
+                self.dy.as_slice_mut().unwrap(),
+                self.acts[2].as_slice().unwrap(),
+                t.as_slice().unwrap(),
+            );
+            let two = real::<T>(2.0);
+            vector_loops(library, || {
+                for ((d, &y), &t) in dy.iter_mut().zip(y).zip(t) {
                     let r = y - t;
                     total = total + r * r;
-                    *d = real::<T>(2.0) * r / n;
-                });
+                    *d = two * r / n;
+                }
+            });
         }
-        let library = self.library_products;
         // Layer 3, then 2, then 1: `upstream` is the change of the layer's
         // output before its activation; the first layer's input change is
         // skipped.
@@ -311,10 +338,14 @@ impl<T: Real> Network<T> {
             let (gw, gb) = &mut self.grads[k];
             mat_mul(library, T::one(), upstream.t(), input.view(), T::zero(), gw);
             if elementwise {
-                gb.fill(T::zero());
-                for row in upstream.rows() {
-                    Zip::from(&mut *gb).and(&row).for_each(|g, &r| *g = *g + r);
-                }
+                let gb = gb.as_slice_mut().unwrap();
+                let rows = upstream.as_slice().unwrap().chunks_exact(gb.len());
+                vector_loops(library, || {
+                    gb.fill(T::zero());
+                    for row in rows {
+                        gb.iter_mut().zip(row).for_each(|(g, &r)| *g = *g + r);
+                    }
+                });
             }
             if k > 0 {
                 let target = &mut lower[k - 1];
@@ -327,9 +358,15 @@ impl<T: Real> Network<T> {
                     target,
                 );
                 if elementwise {
-                    Zip::from(target)
-                        .and(&self.acts[k - 1])
-                        .for_each(|d, &a| *d = *d * (T::one() - a * a));
+                    let (d, a) = (
+                        target.as_slice_mut().unwrap(),
+                        self.acts[k - 1].as_slice().unwrap(),
+                    );
+                    vector_loops(library, || {
+                        d.iter_mut()
+                            .zip(a)
+                            .for_each(|(d, &a)| *d = *d * (T::one() - a * a))
+                    });
                 }
             }
         }
@@ -358,11 +395,13 @@ impl<T: Real> Network<T> {
             ] {
                 let m = &mut self.adam_m[at..at + p.len()];
                 let v = &mut self.adam_v[at..at + p.len()];
-                for (((p, g), m), v) in p.iter_mut().zip(g).zip(m).zip(v) {
-                    *m = b1 * *m + (T::one() - b1) * *g;
-                    *v = b2 * *v + (T::one() - b2) * *g * *g;
-                    *p = *p - lr * (*m / c1) / ((*v / c2).sqrt() + eps);
-                }
+                vector_loops(self.library_kernels, || {
+                    for (((p, g), m), v) in p.iter_mut().zip(g).zip(m).zip(v) {
+                        *m = b1 * *m + (T::one() - b1) * *g;
+                        *v = b2 * *v + (T::one() - b2) * *g * *g;
+                        *p = *p - lr * (*m / c1) / ((*v / c2).sqrt() + eps);
+                    }
+                });
                 at += p.len();
             }
         }

@@ -225,10 +225,12 @@ fn root_scaled_step<R: Real>(
     (rate, epsilon): (R, R),
     next: impl Fn(R, R) -> R,
 ) {
-    for ((p, g), s) in params.iter_mut().zip(gradient).zip(squares.iter_mut()) {
-        *s = next(*s, *g);
-        *p = *p - rate * *g / (s.sqrt() + epsilon);
-    }
+    crate::vectors::widest(|| {
+        for ((p, g), s) in params.iter_mut().zip(gradient).zip(squares.iter_mut()) {
+            *s = next(*s, *g);
+            *p = *p - rate * *g / (s.sqrt() + epsilon);
+        }
+    })
 }
 
 /// Plain gradient descent: `p <- p - lr g`.
@@ -259,9 +261,11 @@ impl<R: Real> GradientDescent<R> {
 impl<R: Real> Optimiser<R> for GradientDescent<R> {
     fn step_run(&mut self, _: usize, params: &mut [R], gradient: &[R]) {
         let rate = self.state.rate;
-        for (p, g) in params.iter_mut().zip(gradient) {
-            *p = *p - rate * *g;
-        }
+        crate::vectors::widest(|| {
+            for (p, g) in params.iter_mut().zip(gradient) {
+                *p = *p - rate * *g;
+            }
+        })
     }
     bookkeeping!();
 }
@@ -319,11 +323,13 @@ impl<R: Real> Velocity<R> {
     fn step(&mut self, offset: usize, params: &mut [R], gradient: &[R], look_ahead: bool) {
         let (rate, mu) = (self.state.rate, self.momentum);
         let v = self.state.run(0, offset, params.len());
-        for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
-            *v = mu * *v + *g;
-            let direction = if look_ahead { *g + mu * *v } else { *v };
-            *p = *p - rate * direction;
-        }
+        crate::vectors::widest(|| {
+            for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
+                *v = mu * *v + *g;
+                let direction = if look_ahead { *g + mu * *v } else { *v };
+                *p = *p - rate * direction;
+            }
+        })
     }
 }
 
@@ -529,16 +535,18 @@ impl<R: Real> Optimiser<R> for Adam<R> {
         // Every coordinate on its own: halves on two cores give the same
         // numbers.
         let update = |params: &mut [R], gradient: &[R], m: &mut [R], v: &mut [R]| {
-            for (((p, g), m), v) in params
-                .iter_mut()
-                .zip(gradient)
-                .zip(m.iter_mut())
-                .zip(v.iter_mut())
-            {
-                *m = b1 * *m + keep1 * *g;
-                *v = b2 * *v + keep2 * *g * *g;
-                *p = *p - step * *m / (v.sqrt() * root_scale + epsilon);
-            }
+            crate::vectors::widest(|| {
+                for (((p, g), m), v) in params
+                    .iter_mut()
+                    .zip(gradient)
+                    .zip(m.iter_mut())
+                    .zip(v.iter_mut())
+                {
+                    *m = b1 * *m + keep1 * *g;
+                    *v = b2 * *v + keep2 * *g * *g;
+                    *p = *p - step * *m / (v.sqrt() * root_scale + epsilon);
+                }
+            })
         };
         let halves = ((params, gradient), (m, v));
         over_halves(

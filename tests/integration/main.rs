@@ -46,6 +46,8 @@ mod per_element;
 mod primitives;
 #[path = "../retention.rs"]
 mod retention;
+#[path = "../vector_loops.rs"]
+mod vector_loops;
 #[path = "../word_by_word.rs"]
 mod word_by_word;
 #[path = "../workspace.rs"]
