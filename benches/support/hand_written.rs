@@ -267,8 +267,12 @@ impl<T: Real> Network<T> {
             let (before, rest) = self.acts.split_at_mut(k);
             let out = &mut rest[0];
             if elementwise {
-                let dim = out.raw_dim();
-                out.assign(&b.broadcast(dim).unwrap());
+                // The bias in every row: a copy per row, not a broadcast
+                // through a `Zip`.
+                let b = b.as_slice().unwrap();
+                for row in out.as_slice_mut().unwrap().chunks_exact_mut(b.len()) {
+                    row.copy_from_slice(b);
+                }
             }
             let input = if k == 0 {
                 x.view()
