@@ -557,15 +557,10 @@ fn single<T: Copy, D: Dimension>(a: &Array<T, D>) -> Option<T> {
 /// so neither choice changes a result.
 #[inline]
 fn over_slices<K: crate::cores::Halves>(len: usize, parts: K, each: impl Fn(K) + Sync) {
-    // Below this, choosing the instructions costs more than they save.
-    const WIDE_FROM: usize = 32;
-    if len < WIDE_FROM {
-        return each(parts);
-    }
     crate::cores::over_halves(
         len,
         parts,
-        &|k| crate::vectors::widest(|| each(k)),
+        &|k| crate::vectors::widest_for(len, || each(k)),
         |(), ()| (),
     )
 }
@@ -713,7 +708,7 @@ pub(crate) fn all_finite_slice<T: Real>(values: &[T]) -> bool {
     // (checks of gradients were a tenth of a small network's step).
     #[allow(clippy::eq_op)]
     let check = |values: &[T]| {
-        crate::vectors::widest(|| {
+        crate::vectors::widest_for(values.len(), || {
             values.chunks(256).all(|block| {
                 block
                     .iter()

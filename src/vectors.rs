@@ -21,3 +21,19 @@
 pub(crate) fn widest<R>(work: impl FnOnce() -> R) -> R {
     pulp::Arch::new().dispatch(work)
 }
+
+/// Below this many elements, choosing the instructions costs more than the
+/// wider ones save.
+const WIDE_FROM: usize = 32;
+
+/// `work`, a loop over `len` elements, through [`widest`] from a few
+/// vectors' worth of elements, and as it is below (a scalar parameter, a
+/// one-element array).
+#[inline(always)]
+pub(crate) fn widest_for<R>(len: usize, work: impl FnOnce() -> R) -> R {
+    if len < WIDE_FROM {
+        work()
+    } else {
+        widest(work)
+    }
+}

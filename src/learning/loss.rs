@@ -411,7 +411,7 @@ fn residual_passes<T: Real, D: Dimension + 'static>(
     if let (Some(k), Some(y), Some(t)) = (kept.as_slice_mut(), y.as_slice(), t.as_slice())
         && k.len() == y.len()
     {
-        crate::vectors::widest(|| {
+        crate::vectors::widest_for(k.len(), || {
             for ((s, &a), &b) in k.iter_mut().zip(y).zip(t) {
                 let r = a - b;
                 total = total + value(r);

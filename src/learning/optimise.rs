@@ -225,7 +225,7 @@ fn root_scaled_step<R: Real>(
     (rate, epsilon): (R, R),
     next: impl Fn(R, R) -> R,
 ) {
-    crate::vectors::widest(|| {
+    crate::vectors::widest_for(params.len(), || {
         for ((p, g), s) in params.iter_mut().zip(gradient).zip(squares.iter_mut()) {
             *s = next(*s, *g);
             *p = *p - rate * *g / (s.sqrt() + epsilon);
@@ -261,7 +261,7 @@ impl<R: Real> GradientDescent<R> {
 impl<R: Real> Optimiser<R> for GradientDescent<R> {
     fn step_run(&mut self, _: usize, params: &mut [R], gradient: &[R]) {
         let rate = self.state.rate;
-        crate::vectors::widest(|| {
+        crate::vectors::widest_for(params.len(), || {
             for (p, g) in params.iter_mut().zip(gradient) {
                 *p = *p - rate * *g;
             }
@@ -323,7 +323,7 @@ impl<R: Real> Velocity<R> {
     fn step(&mut self, offset: usize, params: &mut [R], gradient: &[R], look_ahead: bool) {
         let (rate, mu) = (self.state.rate, self.momentum);
         let v = self.state.run(0, offset, params.len());
-        crate::vectors::widest(|| {
+        crate::vectors::widest_for(params.len(), || {
             for ((p, g), v) in params.iter_mut().zip(gradient).zip(v.iter_mut()) {
                 *v = mu * *v + *g;
                 let direction = if look_ahead { *g + mu * *v } else { *v };
@@ -535,7 +535,7 @@ impl<R: Real> Optimiser<R> for Adam<R> {
         // Every coordinate on its own: halves on two cores give the same
         // numbers.
         let update = |params: &mut [R], gradient: &[R], m: &mut [R], v: &mut [R]| {
-            crate::vectors::widest(|| {
+            crate::vectors::widest_for(params.len(), || {
                 for (((p, g), m), v) in params
                     .iter_mut()
                     .zip(gradient)
