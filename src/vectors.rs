@@ -6,7 +6,7 @@
 //! processor of that target. Its elementwise loops (`tanh` and its slope,
 //! the optimisers' updates, the finite checks, the squared errors, the
 //! bias's totals) are a large part of a small network's training step; run
-//! through [`widest`], the same loops run 8 or 16 `f32` per instruction
+//! through [`widest_for`], the same loops run 8 or 16 `f32` per instruction
 //! where AVX2 or AVX-512 is present. The instructions differ, the
 //! arithmetic does not: each element goes through the same operations in
 //! the same order (the compiler fuses no multiply-add the code does not
@@ -18,7 +18,7 @@
 /// as it is where there are none. `work` must be inlined to profit: keep
 /// it a closure over plain loops on slices.
 #[inline(always)]
-pub(crate) fn widest<R>(work: impl FnOnce() -> R) -> R {
+fn widest<R>(work: impl FnOnce() -> R) -> R {
     pulp::Arch::new().dispatch(work)
 }
 

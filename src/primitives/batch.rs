@@ -253,7 +253,7 @@ fn column_totals<T: Real>(m: &Array2<T>, totals: &mut Array1<T>) {
     if let (Some(all), Some(t)) = (m.as_slice(), totals.as_slice_mut())
         && !t.is_empty()
     {
-        crate::vectors::widest_for(t.len(), || {
+        crate::vectors::widest_for(all.len(), || {
             for row in all.chunks_exact(t.len()) {
                 t.iter_mut().zip(row).for_each(|(s, &r)| *s = *s + r);
             }
