@@ -162,7 +162,9 @@ pub(crate) enum ProductSplit {
 pub(crate) fn product_split(m: usize, multiply_adds: usize) -> ProductSplit {
     #[cfg(feature = "threads")]
     match spread() {
-        Spread::Large | Spread::StandingBy if m >= 32 && multiply_adds >= PRODUCT_FROM => {
+        Spread::Large | Spread::StandingBy
+            if m >= 32 && multiply_adds >= PRODUCT_FROM && another_core() =>
+        {
             return ProductSplit::Halves;
         }
         Spread::Awake if m >= 16 && multiply_adds >= AWAKE_PRODUCT_FROM => {
@@ -174,13 +176,23 @@ pub(crate) fn product_split(m: usize, multiply_adds: usize) -> ProductSplit {
     ProductSplit::Whole
 }
 
+/// Whether rayon's pool has a thread for a second half. With one thread
+/// (`RAYON_NUM_THREADS=1`, or a machine of one core) a half handed to the
+/// pool runs on that thread while this one waits for it: the same work,
+/// plus two hand-overs between threads.
+#[cfg(feature = "threads")]
+#[inline]
+fn another_core() -> bool {
+    rayon::current_num_threads() >= 2
+}
+
 /// Whether an elementwise map over `len` elements splits across cores.
 #[inline]
 pub(crate) fn split_elements(len: usize) -> bool {
     #[cfg(feature = "threads")]
     {
         match spread() {
-            Spread::Large | Spread::StandingBy => len >= ELEMENTS_FROM,
+            Spread::Large | Spread::StandingBy => len >= ELEMENTS_FROM && another_core(),
             Spread::Awake => len >= AWAKE_ELEMENTS_FROM,
             Spread::Own => false,
         }
@@ -440,6 +452,23 @@ mod tests {
         let mut after_prompt = vec![false; 50];
         after_prompt.extend([true; 8]);
         assert!(gives_up(&after_prompt));
+    }
+
+    #[test]
+    fn a_pool_of_one_thread_gets_no_halves() {
+        let pool = |n| {
+            rayon::ThreadPoolBuilder::new()
+                .num_threads(n)
+                .build()
+                .unwrap()
+        };
+        let large = 1 << 26;
+        // The same thread state (`Spread::Large`) in both pools: only the
+        // pool's size differs.
+        let one = pool(1).install(|| (split_elements(large), product_split(1024, large)));
+        assert_eq!(one, (false, ProductSplit::Whole));
+        let two = pool(2).install(|| (split_elements(large), product_split(1024, large)));
+        assert_eq!(two, (true, ProductSplit::Halves));
     }
 
     #[test]
