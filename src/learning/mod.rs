@@ -12,6 +12,7 @@
 pub mod layers;
 pub mod least_squares;
 pub mod loss;
+mod mailbox;
 pub mod optimise;
 pub mod parametrised;
 pub mod rows;

@@ -1,6 +1,7 @@
 //! The minibatch training loop: a parametrised model, a loss, an optimiser
 //! and an in-memory dataset of ndarray rows.
 
+use super::mailbox::{CloseOnDrop, Mailbox};
 use crate::error::{Error, Result};
 use crate::learning::optimise::{Optimiser, step_finite};
 use crate::map::Map;
@@ -13,7 +14,7 @@ use rand::seq::SliceRandom;
 use std::borrow::Cow;
 use std::fmt;
 use std::ops::ControlFlow;
-use std::sync::{Mutex, MutexGuard, RwLock, mpsc};
+use std::sync::{Mutex, MutexGuard, RwLock};
 
 /// Examples as rows: row `i` of the inputs goes with row `i` of the targets.
 ///
@@ -469,19 +470,24 @@ impl Training {
     /// (rounding only). This needs a model that treats rows independently,
     /// as every batched map of the crate does.
     ///
-    /// The shards' threads start once per run and each keeps its workspace
-    /// (the model's reusing passes), its rows and its gradient for the whole
-    /// run; every step the parameters are lent to them, not copied, and
-    /// each gathers its own rows of the batch from the training data. A
-    /// shard's matrix products and elementwise maps stay on its thread, so
-    /// the shards, not the products, share the cores. On 2
-    /// cores, batch 1,024, 2 shards ran 1.83 to 1.97 times as fast as
-    /// one shard on one core, and 0.96 to 1.08 times as fast as
-    /// [`run`](Training::run) with the `threads` feature (whose products
-    /// and elementwise maps split over the two cores beside a standing-by
-    /// thread, see [`on_awake_cores`](crate::on_awake_cores)): `run` uses
-    /// both cores as well at that size. Sharding is the form whose gradient
-    /// sum can go beyond one machine ([`GradientReduction`]).
+    /// The calling thread runs the first shard itself, and one thread per
+    /// other shard starts once per run; each shard keeps its workspace (the
+    /// model's reusing passes), its rows and its gradient for the whole
+    /// run. Every step the parameters are lent to the shards, not copied,
+    /// and each gathers its own rows of the batch from the training data.
+    /// A shard's matrix products and elementwise maps stay on its thread,
+    /// so the shards, not the products, share the cores. Jobs and answers
+    /// pass through one-message slots (a mutex and a condition variable),
+    /// which a thread waits on awake for up to half a millisecond before it
+    /// sleeps: between the phases of a step, waking a sleeping thread took
+    /// longer than the wait. On 2 cores, batch 1,024 (f64, runs of 10
+    /// steps), 2 shards ran 1.64 to 1.71 times as fast as
+    /// [`run`](Training::run) on one core, and 1.11 to 1.20 times as fast
+    /// as `run` with the `threads` feature (whose products and elementwise
+    /// maps split over the two cores beside a standing-by thread, see
+    /// [`on_awake_cores`](crate::on_awake_cores)). Sharding is the form
+    /// whose gradient sum can go beyond one machine
+    /// ([`GradientReduction`]).
     ///
     /// Each shard's output is copied to this thread (the loss needs the
     /// whole batch's) and joined, and the output change goes back in row
@@ -548,28 +554,24 @@ impl Training {
         // The parameters lent for the step, and the batch's row numbers.
         let shared = RwLock::new((start.clone(), Vec::new()));
         let slots: Vec<Mutex<P>> = (0..shards).map(|_| Mutex::new(start.zero_like())).collect();
+        // One job and one answer at a time each way, for each shard but the
+        // first, which this thread runs itself: one thread less to hand work
+        // to and wake, and none waiting idle beside the shards.
+        let lines: Vec<ShardLine<B>> = (1..shards).map(|_| ShardLine::new()).collect();
         std::thread::scope(|scope| {
-            let mut jobs = Vec::with_capacity(shards);
-            let mut answers = Vec::with_capacity(shards);
-            let mut threads = Vec::with_capacity(shards);
-            for slot in &slots {
-                // One job and one answer at a time each way: bounded
-                // channels, whose one slot is allocated here, not per
-                // message.
-                let (job_tx, job_rx) = mpsc::sync_channel(1);
-                let (answer_tx, answer_rx) = mpsc::sync_channel(1);
-                jobs.push(job_tx);
-                answers.push(answer_rx);
-                let shared = &shared;
-                threads
-                    .push(scope.spawn(move || {
-                        shard_worker(model, train, shared, slot, job_rx, answer_tx)
-                    }));
-            }
+            let threads: Vec<_> = lines
+                .iter()
+                .zip(&slots[1..])
+                .map(|(line, slot)| {
+                    let shared = &shared;
+                    scope.spawn(move || shard_worker(model, train, shared, slot, line))
+                })
+                .collect();
             let mut pool = ShardPool {
+                model,
                 train,
-                jobs,
-                answers,
+                own: Shard::new(),
+                lines: &lines,
                 shared: &shared,
                 slots: &slots,
                 ranges: Vec::with_capacity(shards),
@@ -591,7 +593,7 @@ impl Training {
                     pool.gradient(batch, loss, rows, &mut input.0, gradient, reduction)
                 },
             );
-            // Closing the job channels ends the threads; joining them here
+            // Closing the job slots ends the threads; joining them here
             // (a panic was already reported as an error) keeps the scope
             // from panicking in turn.
             drop(pool);
@@ -968,51 +970,127 @@ fn shard_worker<T, P, B, M>(
     train: &Examples<T>,
     shared: &RwLock<(P, Vec<usize>)>,
     slot: &Mutex<P>,
-    jobs: mpsc::Receiver<ToShard<B>>,
-    answers: mpsc::SyncSender<FromShard<B>>,
+    line: &ShardLine<B>,
 ) where
     T: Real,
     P: Euclidean<T>,
     B: Space,
     M: SplitInput<P, Array2<T>, Output = B>,
 {
+    // However this thread ends, a panic included, the training thread's
+    // wait for its answer ends.
+    let _closing = CloseOnDrop(&line.answers);
     crate::cores::keep_work_on_this_thread();
-    let mut work = Workspace::new();
-    let mut rows = Array2::<T>::zeros((0, 0));
-    while let Ok(job) = jobs.recv() {
+    let mut shard = Shard::new();
+    while let Some(job) = line.jobs.receive() {
         let answer = match job {
-            ToShard::Forward(start, end, buffer) => FromShard::Output((|| {
-                let shared = shared.read().map_err(|_| poisoned())?;
-                gather_rows(&train.inputs, &shared.1[start..end], &mut rows);
-                let y = model.forward_split(&shared.0, &rows, &mut work)?;
-                Ok(match buffer {
-                    Some(mut kept) => {
-                        kept.assign_from(y);
-                        kept
-                    }
-                    None => y.clone(),
-                })
-            })()),
+            ToShard::Forward(start, end, buffer) => {
+                FromShard::Output(shard.forward(model, train, shared, start..end, buffer))
+            }
             ToShard::Backward(dy) => {
-                let done = (|| {
-                    let shared = shared.read().map_err(|_| poisoned())?;
-                    let mut gradient = slot.lock().map_err(|_| poisoned())?;
-                    model.backward_split(&shared.0, &rows, &mut work, &dy, &mut gradient, None)
-                })();
-                FromShard::Done(done, Some(dy))
+                FromShard::Done(shard.backward(model, shared, slot, &dy), Some(dy))
             }
         };
-        if answers.send(answer).is_err() {
+        if !line.answers.send(answer) {
             return;
         }
     }
 }
 
-/// The shards' threads, as the training thread sees them.
-struct ShardPool<'s, T, P, B> {
+/// A shard's thread's two slots: its jobs and its answers.
+struct ShardLine<B> {
+    jobs: Mailbox<ToShard<B>>,
+    answers: Mailbox<FromShard<B>>,
+}
+
+impl<B> ShardLine<B> {
+    fn new() -> Self {
+        ShardLine {
+            jobs: Mailbox::new(),
+            answers: Mailbox::new(),
+        }
+    }
+}
+
+/// What a shard keeps for the whole run, on whichever thread runs it: the
+/// model's workspace (its reusing passes) and its rows of the batch.
+struct Shard<T> {
+    work: Workspace,
+    rows: Array2<T>,
+}
+
+impl<T: Real> Shard<T> {
+    fn new() -> Self {
+        Shard {
+            work: Workspace::new(),
+            rows: Array2::zeros((0, 0)),
+        }
+    }
+
+    /// The forward pass on the batch's rows at positions `at` of the shared
+    /// list (gathered here from the training data), with the lent
+    /// parameters; its output copied into `buffer` (the last step's, when
+    /// there is one).
+    fn forward<P, B, M>(
+        &mut self,
+        model: &M,
+        train: &Examples<T>,
+        shared: &RwLock<(P, Vec<usize>)>,
+        at: std::ops::Range<usize>,
+        buffer: Option<B>,
+    ) -> Result<B>
+    where
+        P: Space,
+        B: Space,
+        M: SplitInput<P, Array2<T>, Output = B>,
+    {
+        let shared = shared.read().map_err(|_| poisoned())?;
+        gather_rows(&train.inputs, &shared.1[at], &mut self.rows);
+        let y = model.forward_split(&shared.0, &self.rows, &mut self.work)?;
+        Ok(match buffer {
+            Some(mut kept) => {
+                kept.assign_from(y);
+                kept
+            }
+            None => y.clone(),
+        })
+    }
+
+    /// The backward pass for the change `dy` of the last forward pass's
+    /// output, its parameter gradient into `slot`.
+    fn backward<P, B, M>(
+        &mut self,
+        model: &M,
+        shared: &RwLock<(P, Vec<usize>)>,
+        slot: &Mutex<P>,
+        dy: &B,
+    ) -> Result<()>
+    where
+        P: Space,
+        B: Space,
+        M: SplitInput<P, Array2<T>, Output = B>,
+    {
+        let shared = shared.read().map_err(|_| poisoned())?;
+        let mut gradient = slot.lock().map_err(|_| poisoned())?;
+        model.backward_split(
+            &shared.0,
+            &self.rows,
+            &mut self.work,
+            dy,
+            &mut gradient,
+            None,
+        )
+    }
+}
+
+/// The shards, as the training thread sees them: the first its own, the
+/// others on their threads.
+struct ShardPool<'s, T, P, B, M> {
+    model: &'s M,
     train: &'s Examples<T>,
-    jobs: Vec<mpsc::SyncSender<ToShard<B>>>,
-    answers: Vec<mpsc::Receiver<FromShard<B>>>,
+    own: Shard<T>,
+    /// The other shards' slots, shard 1 first.
+    lines: &'s [ShardLine<B>],
     shared: &'s RwLock<(P, Vec<usize>)>,
     slots: &'s [Mutex<P>],
     ranges: Vec<(usize, usize)>,
@@ -1026,17 +1104,30 @@ struct ShardPool<'s, T, P, B> {
     spare_changes: Vec<Option<B>>,
 }
 
-impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
-    /// The answer of shard `k`, or the error that its thread is gone.
+impl<T, P, B, M> ShardPool<'_, T, P, B, M>
+where
+    T: Real,
+    P: Euclidean<T>,
+    B: Space + RowBlocks,
+    M: SplitInput<P, Array2<T>, Output = B>,
+{
+    /// The answer of shard `k` (at least 1), or the error that its thread
+    /// is gone.
     fn answer(&self, k: usize) -> FromShard<B> {
-        self.answers[k]
-            .recv()
-            .unwrap_or_else(|_| FromShard::Done(Err(panicked()), None))
+        self.lines[k - 1]
+            .answers
+            .receive()
+            .unwrap_or_else(|| FromShard::Done(Err(panicked()), None))
     }
 
-    /// Sends `job` to shard `k`; an error when its thread is gone.
+    /// Sends `job` to shard `k` (at least 1); an error when its thread is
+    /// gone.
     fn send(&self, k: usize, job: ToShard<B>) -> Result<()> {
-        self.jobs[k].send(job).map_err(|_| panicked())
+        if self.lines[k - 1].jobs.send(job) {
+            Ok(())
+        } else {
+            Err(panicked())
+        }
     }
 
     /// The batch loss, and its parameter gradient into `gradient`: the
@@ -1092,7 +1183,7 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
     where
         L: SplitInput<B, Array2<T>, Output = T>,
     {
-        let count = self.jobs.len().min(rows).max(1);
+        let count = (self.lines.len() + 1).min(rows).max(1);
         let per = rows.div_ceil(count);
         self.ranges.clear();
         self.ranges.extend(
@@ -1100,15 +1191,27 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
                 .map(|k| (k * per, ((k + 1) * per).min(rows)))
                 .filter(|(a, b)| a < b),
         );
-        for (k, &(a, b)) in self.ranges.iter().enumerate() {
+        // The other shards start first; this thread then runs its own.
+        for (k, &(a, b)) in self.ranges.iter().enumerate().skip(1) {
             let buffer = self.spare_outputs.get_mut(k).and_then(Option::take);
             self.send(k, ToShard::Forward(a, b, buffer))?;
         }
-        // Every answer is collected, even after a failure, so that none is
-        // left to be read as the next step's.
         self.outputs.clear();
         let mut failure = None;
-        for k in 0..self.ranges.len() {
+        if let Some(&(a, b)) = self.ranges.first() {
+            let buffer = self.spare_outputs.first_mut().and_then(Option::take);
+            let own = crate::cores::with_work_on_this_thread(|| {
+                self.own
+                    .forward(self.model, self.train, self.shared, a..b, buffer)
+            });
+            match own {
+                Ok(y) => self.outputs.push(y),
+                Err(e) => failure = Some(e),
+            }
+        }
+        // Every answer is collected, even after a failure, so that none is
+        // left to be read as the next step's.
+        for k in 1..self.ranges.len() {
             match self.answer(k) {
                 FromShard::Output(Ok(y)) => self.outputs.push(y),
                 FromShard::Output(Err(e)) | FromShard::Done(Err(e), _) => {
@@ -1135,17 +1238,22 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
             .output_or_insert_with(|| y.zero_like());
         reshape_to(dy, y);
         loss.backward_split(y, &batch.targets, &mut batch.loss_work, &T::one(), dy, None)?;
-        for (k, &(a, b)) in self.ranges.iter().enumerate() {
-            let block = match self.spare_changes.get_mut(k).and_then(Option::take) {
-                Some(mut kept) => {
-                    dy.row_block_into(a, b, &mut kept);
-                    kept
-                }
-                None => dy.row_block(a, b),
-            };
+        for (k, &range) in self.ranges.iter().enumerate().skip(1) {
+            let block = row_block_in(dy, range, &mut self.spare_changes[k]);
             self.send(k, ToShard::Backward(block))?;
         }
-        for k in 0..self.ranges.len() {
+        if let Some(&range) = self.ranges.first() {
+            let block = row_block_in(dy, range, &mut self.spare_changes[0]);
+            let done = crate::cores::with_work_on_this_thread(|| {
+                self.own
+                    .backward(self.model, self.shared, &self.slots[0], &block)
+            });
+            self.spare_changes[0] = Some(block);
+            if let Err(e) = done {
+                failure = Some(e);
+            }
+        }
+        for k in 1..self.ranges.len() {
             match self.answer(k) {
                 FromShard::Done(Ok(()), kept) => self.spare_changes[k] = kept,
                 FromShard::Done(Err(e), _) | FromShard::Output(Err(e)) => {
@@ -1201,6 +1309,28 @@ impl<T: Real, P: Euclidean<T>, B: Space + RowBlocks> ShardPool<'_, T, P, B> {
             }
         }
         gradient.copy_from(&first)
+    }
+}
+
+impl<T, P, B, M> Drop for ShardPool<'_, T, P, B, M> {
+    /// Closing the job slots ends the shards' threads, however the run
+    /// ended.
+    fn drop(&mut self) {
+        for line in self.lines {
+            line.jobs.close();
+        }
+    }
+}
+
+/// Rows `start..end` of `dy`, in the buffer `spare` holds when there is
+/// one (the last step's block of the same shard).
+fn row_block_in<B: RowBlocks>(dy: &B, (start, end): (usize, usize), spare: &mut Option<B>) -> B {
+    match spare.take() {
+        Some(mut kept) => {
+            dy.row_block_into(start, end, &mut kept);
+            kept
+        }
+        None => dy.row_block(start, end),
     }
 }
 
