@@ -118,6 +118,25 @@ pub(crate) fn keep_work_on_this_thread() {
     SPREAD.with(|s| s.set(Spread::Own));
 }
 
+/// Runs `work` with this thread's products and elementwise maps kept on
+/// it, as on a shard's thread, then lets them split again as before:
+/// the training thread running a shard of its own beside the others.
+pub(crate) fn with_work_on_this_thread<R>(work: impl FnOnce() -> R) -> R {
+    #[cfg(feature = "threads")]
+    {
+        struct Restore(Spread);
+        impl Drop for Restore {
+            fn drop(&mut self) {
+                SPREAD.with(|s| s.set(self.0));
+            }
+        }
+        let _restore = Restore(SPREAD.with(|s| s.replace(Spread::Own)));
+        work()
+    }
+    #[cfg(not(feature = "threads"))]
+    work()
+}
+
 /// Products of at least this many multiply-adds split their rows in two
 /// halves when another core stands by: about 10 to 20 microseconds of one
 /// core's work, against about a microsecond to hand a half over.

@@ -420,41 +420,45 @@ impl SplitInput<f64, Array2<f64>> for Touchy {}
 
 #[test]
 fn a_failing_or_panicking_shard_stops_sharded_training_with_an_error() {
-    let train = |marker: f64| {
-        let mut x = Array2::from_shape_fn((12, 1), |(i, _)| i as f64 / 12.0);
-        x[[11, 0]] = marker; // in the last shard of every batch that holds it
-        let data = Examples::new(x.clone(), x * 2.0).unwrap();
-        Training::new(3, 12).unwrap().run_sharded(
-            &Touchy,
-            &MeanSquaredError,
-            &mut Adam::new(0.1).unwrap(),
-            0.5,
-            &data,
-            3,
-            &mut ShardSum,
-            |_| {},
-        )
-    };
-    let refused = train(100.0).unwrap_err();
-    assert!(
-        matches!(refused.error, Error::InvalidSetting { name: "row", .. }),
-        "{}",
-        refused.error
-    );
-    assert_eq!(refused.step, Some(0));
-    assert_eq!(refused.parameters, 0.5);
-    let panicked = train(-100.0).unwrap_err();
-    assert!(
-        matches!(panicked.error, Error::ShardFailed { .. }),
-        "{}",
-        panicked.error
-    );
-    // The parameters lent to the shards for the step come back.
-    assert_eq!(panicked.step, Some(0));
-    assert_eq!(panicked.parameters, 0.5);
-    // A clean run of the same model trains.
-    let fit = train(0.5).unwrap();
-    assert!((fit.parameters - 2.0).abs() < (0.5_f64 - 2.0).abs());
+    // Row 11 is in the last shard of every batch that holds it (a thread
+    // of its own); row 0 in the first, which the calling thread runs.
+    for row in [11, 0] {
+        let train = |marker: f64| {
+            let mut x = Array2::from_shape_fn((12, 1), |(i, _)| i as f64 / 12.0);
+            x[[row, 0]] = marker;
+            let data = Examples::new(x.clone(), x * 2.0).unwrap();
+            Training::new(3, 12).unwrap().run_sharded(
+                &Touchy,
+                &MeanSquaredError,
+                &mut Adam::new(0.1).unwrap(),
+                0.5,
+                &data,
+                3,
+                &mut ShardSum,
+                |_| {},
+            )
+        };
+        let refused = train(100.0).unwrap_err();
+        assert!(
+            matches!(refused.error, Error::InvalidSetting { name: "row", .. }),
+            "row {row}: {}",
+            refused.error
+        );
+        assert_eq!(refused.step, Some(0));
+        assert_eq!(refused.parameters, 0.5);
+        let panicked = train(-100.0).unwrap_err();
+        assert!(
+            matches!(panicked.error, Error::ShardFailed { .. }),
+            "row {row}: {}",
+            panicked.error
+        );
+        // The parameters lent to the shards for the step come back.
+        assert_eq!(panicked.step, Some(0));
+        assert_eq!(panicked.parameters, 0.5);
+        // A clean run of the same model trains.
+        let fit = train(0.5).unwrap();
+        assert!((fit.parameters - 2.0).abs() < (0.5_f64 - 2.0).abs());
+    }
 }
 
 #[test]

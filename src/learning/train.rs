@@ -1200,7 +1200,7 @@ where
         let mut failure = None;
         if let Some(&(a, b)) = self.ranges.first() {
             let buffer = self.spare_outputs.first_mut().and_then(Option::take);
-            let own = crate::cores::with_work_on_this_thread(|| {
+            let own = own_shard(|| {
                 self.own
                     .forward(self.model, self.train, self.shared, a..b, buffer)
             });
@@ -1244,7 +1244,7 @@ where
         }
         if let Some(&range) = self.ranges.first() {
             let block = row_block_in(dy, range, &mut self.spare_changes[0]);
-            let done = crate::cores::with_work_on_this_thread(|| {
+            let done = own_shard(|| {
                 self.own
                     .backward(self.model, self.shared, &self.slots[0], &block)
             });
@@ -1290,7 +1290,8 @@ where
                 .collect::<Result<Vec<_>>>()?;
             let others: Vec<&P> = guards.iter().map(|g| &**g).collect();
             reduction.reduce(&mut first, &others)?;
-            return gradient.copy_from(&first);
+            std::mem::swap(gradient, &mut *first);
+            return Ok(());
         }
         let mut guards: [Option<MutexGuard<'_, P>>; ON_STACK] = std::array::from_fn(|_| None);
         for (guard, slot) in guards.iter_mut().zip(rest) {
@@ -1308,8 +1309,23 @@ where
                 reduction.reduce(&mut first, &others[..rest.len()])?;
             }
         }
-        gradient.copy_from(&first)
+        // The sum changes places with the last step's gradient rather than
+        // being copied: the first shard's backward pass overwrites its slot
+        // whole (as `backward_split` does), and both have the
+        // parameters' shapes.
+        std::mem::swap(gradient, &mut *first);
+        Ok(())
     }
+}
+
+/// A pass of the shard the training thread runs itself, with its work
+/// kept on this thread as on the other shards' threads; a panic in it is
+/// [`Error::ShardFailed`], as in theirs. (The pool and the shard's state
+/// are not used again after that error: the run stops.)
+fn own_shard<R>(pass: impl FnOnce() -> Result<R>) -> Result<R> {
+    let pass = std::panic::AssertUnwindSafe(pass);
+    std::panic::catch_unwind(|| crate::cores::with_work_on_this_thread(pass))
+        .unwrap_or_else(|_| Err(panicked()))
 }
 
 impl<T, P, B, M> Drop for ShardPool<'_, T, P, B, M> {
