@@ -756,8 +756,10 @@ fn measure_shards(rounds: usize) {
     let (x, t) = data::<f64>(WIDTHS, 2 * batch);
     let examples = Examples::new(x, t).unwrap();
     let p0: Params<f64> = start(WIDTHS);
-    // Five epochs of two steps each, so that the first step's filling of
-    // buffers (and the start of the shards' threads) weighs little.
+    // Five epochs of two steps each. The first step's filling of buffers
+    // (page faults on fresh memory, on either side) still weighs about a
+    // sixth of a sharded run: at steady state the speed-up is higher (see
+    // the README's limits), but this is what a short run gets.
     let training = Training::new(5, batch).unwrap();
     let (one, two) = race(
         rounds,
