@@ -480,13 +480,14 @@ impl Training {
     /// pass through one-message slots (a mutex and a condition variable),
     /// which a thread waits on awake for up to half a millisecond before it
     /// sleeps: between the phases of a step, waking a sleeping thread took
-    /// longer than the wait. On 2 cores, batch 1,024 (f64, runs of 10
-    /// steps), 2 shards ran 1.64 to 1.71 times as fast as
-    /// [`run`](Training::run) on one core, and 1.11 to 1.20 times as fast
-    /// as `run` with the `threads` feature (whose products and elementwise
-    /// maps split over the two cores beside a standing-by thread, see
-    /// [`on_awake_cores`](crate::on_awake_cores)). Sharding is the form
-    /// whose gradient sum can go beyond one machine
+    /// longer than the wait. On 2 cores, batch 1,024 (f64), 2 shards ran
+    /// 1.71 to 1.83 times as fast as [`run`](Training::run) on one core in
+    /// runs of 50 steps (1.61 to 1.82 in runs of 10, where filling the
+    /// buffers at the first step weighs more), and 1.05 to 1.22 times as
+    /// fast as `run` with the `threads` feature (whose products and
+    /// elementwise maps split over the two cores beside a standing-by
+    /// thread, see [`on_awake_cores`](crate::on_awake_cores)). Sharding is
+    /// the form whose gradient sum can go beyond one machine
     /// ([`GradientReduction`]).
     ///
     /// Each shard's output is copied to this thread (the loss needs the
